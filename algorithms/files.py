@@ -1,0 +1,194 @@
+"""Reading and writing files: the only module of the core that touches the disk.
+
+Layers are read with geopandas (fiona or pyogrio, whichever is installed); tables from CSV,
+Parquet or any vector format. Results are written to a temporary file beside the target and
+moved into place only when complete, so a failed or cancelled run leaves no partial output.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import os
+import sqlite3
+import tempfile
+from contextlib import contextmanager
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from .errors import InputError
+
+#: File suffixes read as delimited text.
+TEXT_SUFFIXES = {".csv", ".txt", ".tsv"}
+
+
+def split_layer(path):
+    """Split ``'file.gpkg|layername=gauges'`` (QGIS style) into the file and the layer name."""
+    text = str(path)
+    if "|layername=" in text:
+        file_part, layer = text.split("|layername=", 1)
+        return Path(file_part), layer.split("|", 1)[0]
+    return Path(text), None
+
+
+def _existing(path, what):
+    file_path, layer = split_layer(path)
+    if not file_path.exists():
+        raise InputError(f"the {what} file does not exist", file=str(file_path))
+    if file_path.is_dir() and file_path.suffix.lower() not in {".gdb"}:
+        raise InputError(f"the {what} path is a folder, not a file", file=str(file_path))
+    return file_path, layer
+
+
+def read_layer(path, what="layer"):
+    """Read a vector layer (any format GDAL reads) as a GeoDataFrame."""
+    import geopandas as gpd
+
+    file_path, layer = _existing(path, what)
+    try:
+        frame = gpd.read_file(file_path, layer=layer) if layer else gpd.read_file(file_path)
+    except Exception as exc:  # the readers raise many types; the user needs one sentence
+        raise InputError(f"the {what} file could not be read as a vector layer: {_first_line(exc)}", file=str(file_path)) from None
+    return frame
+
+
+def read_table(path, what="discharge table"):
+    """Read a table: CSV/TSV text, Parquet, or the attribute table of any vector source.
+
+    Text files are read with every column as text; the core converts ids, dates and values
+    itself, so gauge ids keep their leading zeros.
+    """
+    file_path, layer = _existing(path, what)
+    suffix = file_path.suffix.lower()
+    try:
+        if suffix in TEXT_SUFFIXES:
+            sep = "\t" if suffix == ".tsv" else None
+            return pd.read_csv(file_path, dtype=str, sep=sep, engine="python" if sep is None else "c", skipinitialspace=True)
+        if suffix == ".parquet":
+            return pd.read_parquet(file_path)
+        frame = read_layer(path, what)
+    except InputError:
+        raise
+    except Exception as exc:
+        raise InputError(f"the {what} file could not be read: {_first_line(exc)}", file=str(file_path)) from None
+    if "geometry" in frame.columns:
+        frame = pd.DataFrame(frame.drop(columns="geometry"))
+    return frame
+
+
+def _first_line(exc):
+    text = str(exc).strip().splitlines()
+    return text[0] if text else type(exc).__name__
+
+
+# --------------------------------------------------------------------------- writing
+
+
+@contextmanager
+def atomic_path(target):
+    """Yield a temporary path beside ``target``; move it into place only on success."""
+    target = Path(target)
+    folder = target.parent if str(target.parent) else Path(".")
+    if not folder.exists():
+        raise InputError("the output folder does not exist", file=str(folder))
+    if not os.access(folder, os.W_OK):
+        raise InputError("the output folder is not writable", file=str(folder))
+    handle, temp = tempfile.mkstemp(prefix=f".{target.stem}.", suffix=target.suffix, dir=folder)
+    os.close(handle)
+    os.unlink(temp)  # writers want to create the file themselves
+    try:
+        yield Path(temp)
+        os.replace(temp, target)
+    finally:
+        for leftover in (temp, temp + "-journal", temp + "-wal", temp + "-shm"):
+            if os.path.exists(leftover):
+                os.unlink(leftover)
+
+
+def write_geopackage(result, path):
+    """Write a run's results as one GeoPackage: layer ``catchments``, tables ``annual``, ``events``."""
+    with atomic_path(path) as temp:
+        result.catchments.to_file(temp, layer="catchments", driver="GPKG")
+        with sqlite3.connect(temp) as db:
+            add_attribute_table(db, "annual", result.annual, "Recharge by gauge and water year")
+            add_attribute_table(db, "events", result.events, "Recharge of each event by recession-curve displacement")
+        db.close()
+    return Path(path)
+
+
+def save_figure(figure, path, dpi=150):
+    """Save a matplotlib figure as PNG, atomically."""
+    with atomic_path(path) as temp:
+        figure.savefig(temp, dpi=dpi, format="png", bbox_inches="tight")
+    return Path(path)
+
+
+def write_csv(frame, path):
+    """Write a table as CSV, atomically."""
+    with atomic_path(path) as temp:
+        frame.to_csv(temp, index=False)
+    return Path(path)
+
+
+def _gpkg_type(series):
+    if pd.api.types.is_bool_dtype(series):
+        return "BOOLEAN"
+    if pd.api.types.is_integer_dtype(series):
+        return "INTEGER"
+    if pd.api.types.is_float_dtype(series):
+        return "DOUBLE"
+    if pd.api.types.is_datetime64_any_dtype(series):
+        if (series.dropna() == series.dropna().dt.normalize()).all():
+            return "DATE"
+        return "DATETIME"
+    return "TEXT"
+
+
+def _cell(value, kind):
+    if value is None or value is pd.NaT:
+        return None
+    if kind == "DATE":
+        return pd.Timestamp(value).strftime("%Y-%m-%d")
+    if kind == "DATETIME":
+        return pd.Timestamp(value).strftime("%Y-%m-%dT%H:%M:%SZ")
+    if kind == "BOOLEAN":
+        return int(bool(value))
+    if kind == "INTEGER":
+        return int(value)
+    if kind == "DOUBLE":
+        value = float(value)
+        return value if np.isfinite(value) else None
+    if isinstance(value, float) and np.isnan(value):
+        return None
+    return str(value)
+
+
+def add_attribute_table(db, name, frame, description=""):
+    """Add a non-spatial table to an open GeoPackage (data type ``attributes``, GPKG 1.2+)."""
+    kinds = {column: _gpkg_type(frame[column]) for column in frame.columns}
+    columns_sql = ", ".join(f'"{c}" {k}' for c, k in kinds.items())
+    db.execute(f'DROP TABLE IF EXISTS "{name}"')
+    db.execute(f'CREATE TABLE "{name}" (fid INTEGER PRIMARY KEY AUTOINCREMENT NOT NULL{", " if kinds else ""}{columns_sql})')
+    if len(frame):
+        placeholders = ", ".join("?" for _ in kinds)
+        names = ", ".join(f'"{c}"' for c in kinds)
+        rows = zip(*[[_cell(v, kinds[c]) for v in frame[c].tolist()] for c in kinds])
+        db.executemany(f'INSERT INTO "{name}" ({names}) VALUES ({placeholders})', rows)
+    now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.000Z")
+    db.execute("DELETE FROM gpkg_contents WHERE table_name = ?", (name,))
+    db.execute(
+        "INSERT INTO gpkg_contents (table_name, data_type, identifier, description, last_change) VALUES (?, 'attributes', ?, ?, ?)",
+        (name, name, description, now),
+    )
+    has_ogr = db.execute("SELECT 1 FROM sqlite_master WHERE name = 'gpkg_ogr_contents'").fetchone()
+    if has_ogr:
+        db.execute("DELETE FROM gpkg_ogr_contents WHERE table_name = ?", (name,))
+        db.execute("INSERT INTO gpkg_ogr_contents (table_name, feature_count) VALUES (?, ?)", (name, len(frame)))
+
+
+def read_attribute_table(path, name):
+    """Read a non-spatial table written by :func:`add_attribute_table` (for tests and reports)."""
+    with sqlite3.connect(f"file:{Path(path)}?mode=ro", uri=True) as db:
+        frame = pd.read_sql_query(f'SELECT * FROM "{name}"', db)
+    return frame.drop(columns="fid")

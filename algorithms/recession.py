@@ -1,0 +1,262 @@
+"""The recession index K and the constants of the recession-curve displacement method.
+
+The recession index K is the time (days) groundwater discharge takes to fall one log cycle
+(tenfold) during baseflow recession. It is estimated from many recession segments of the record,
+each starting after surface runoff has ended.
+
+References
+----------
+Linsley, R.K., Kohler, M.A. & Paulhus, J.L.H. (1982). Hydrology for Engineers, 3rd ed.
+McGraw-Hill: surface runoff ends about N = A^0.2 days after the peak (A in mi²).
+Rorabaugh, M.I. (1964). Estimating changes in bank storage and ground-water contribution to
+streamflow. IASH Publication 63, 432–441: critical time 0.2144 K; recession-curve displacement.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from .rises import Rises
+from .units import SECONDS_PER_DAY, SQUARE_MILE_KM2
+
+LN10 = float(np.log(10.0))
+#: Critical time as a fraction of K (Rorabaugh 1964).
+CRITICAL_TIME_FACTOR = 0.2144
+#: Usual range of K in days (common practice, no single published source).
+USUAL_RECESSION_INDEX_DAYS = (10.0, 300.0)
+#: Fewer segments than this make K uncertain (common practice).
+FEW_SEGMENTS = 10
+
+
+def runoff_end_lag_days(area_km2):
+    """Days after a peak when surface runoff has ended: N = A^0.2, A in mi².
+
+    Notes
+    -----
+    Linsley, Kohler & Paulhus, *Hydrology for Engineers*: ``N = A^0.2`` with A in square
+    miles, which is ``(A_km² / 2.589988110336)^0.2 ≈ 0.827 A_km²^0.2``.
+
+    Examples
+    --------
+    >>> round(float(runoff_end_lag_days(2.589988110336)), 6)
+    1.0
+    """
+    area = np.asarray(area_km2, dtype=float)
+    return (area / SQUARE_MILE_KM2) ** 0.2
+
+
+def critical_time_days(recession_index_days):
+    """Critical time after a peak, Tc = 0.2144 K (Rorabaugh 1964).
+
+    Examples
+    --------
+    >>> round(critical_time_days(45.0), 3)
+    9.648
+    """
+    return CRITICAL_TIME_FACTOR * np.asarray(recession_index_days, dtype=float)
+
+
+def potential_groundwater_discharge_m3(flow_m3s, recession_index_days):
+    """Total potential groundwater discharge V = Q K / ln 10 (Q as volume per day).
+
+    The volume the aquifer would yield if the recession went on for ever
+    (Rorabaugh 1964): ``V = ∫ Q 10^(−t/K) dt = Q K / ln 10``.
+    """
+    q = np.asarray(flow_m3s, dtype=float) * SECONDS_PER_DAY
+    return q * np.asarray(recession_index_days, dtype=float) / LN10
+
+
+def displacement_recharge_m3(flow_before_m3s, flow_after_m3s, recession_index_days):
+    """Recharge volume of one event by recession-curve displacement (Rorabaugh 1964).
+
+    ``R = 2 (Q2 − Q1) K / 2.3026`` with Q1 the pre-event and Q2 the post-event groundwater
+    discharge at the critical time after the peak, both as volume per day.
+    """
+    q1 = np.asarray(flow_before_m3s, dtype=float)
+    q2 = np.asarray(flow_after_m3s, dtype=float)
+    return 2.0 * (q2 - q1) * SECONDS_PER_DAY * np.asarray(recession_index_days, float) / LN10
+
+
+# --------------------------------------------------------------------------- segments
+
+
+@dataclass
+class RecessionIndex:
+    """The recession index of one gauge with its diagnostics.
+
+    Attributes
+    ----------
+    days : float
+        K, days per log cycle (NaN when it could not be estimated).
+    low, high : float
+        A 90 % bootstrap interval over segments.
+    segments_used : int
+        Number of recession segments behind the estimate.
+    source : str
+        ``"record"`` when estimated from the record, ``"given"`` when the user set it.
+    segments : pandas.DataFrame
+        One row per segment: first and last day, length, slope (log10 per day), K, r².
+    warnings : list of str
+        Plain-language cautions (few segments, K outside the usual range).
+    """
+
+    days: float
+    low: float
+    high: float
+    segments_used: int
+    source: str = "record"
+    segments: pd.DataFrame = field(default_factory=pd.DataFrame, repr=False)
+    warnings: list = field(default_factory=list)
+
+    def __repr__(self):
+        return (
+            f"RecessionIndex({self.days:.1f} d [{self.low:.1f}–{self.high:.1f}], "
+            f"{self.segments_used} segments, {self.source})"
+        )
+
+
+def recession_segments(logq, rises: Rises, lag_days, min_days=7) -> pd.DataFrame:
+    """Recession segments: from N days after each peak to the next rise, with their fits.
+
+    Parameters
+    ----------
+    logq : array_like
+        log10 daily flow with NaN on unusable days.
+    rises : Rises
+        Events of the record (:func:`recession_analysis.find_rises`).
+    lag_days : float
+        Days after the peak before a segment may start (the runoff-end lag N or more).
+    min_days : int
+        Shortest segment kept, in days.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns ``first``, ``last`` (day positions), ``days``, ``slope`` (log10 per day, from
+        least squares), ``recession_index_days`` (−1/slope) and ``r2``.
+    """
+    x = np.asarray(logq, dtype=float)
+    first = rises.peak + int(np.ceil(lag_days))
+    last = rises.recession_end.astype(int)
+    # A recession is cut short at its first unusable day.
+    bad = ~np.isfinite(x)
+    next_bad = _next_true(bad)
+    last = np.minimum(last, next_bad[np.minimum(first, x.size - 1)] - 1)
+    length = last - first + 1
+    keep = (length >= min_days) & (first < x.size)
+    first, last, length = first[keep], last[keep], length[keep]
+    slope, r2 = _segment_fits(x, first, last)
+    with np.errstate(divide="ignore"):
+        k = np.where(slope < 0, -1.0 / slope, np.nan)
+    return pd.DataFrame(
+        {
+            "first": first,
+            "last": last,
+            "days": length,
+            "slope": slope,
+            "recession_index_days": k,
+            "r2": r2,
+        }
+    )
+
+
+def _next_true(mask):
+    """For each position, the index of the next True at or after it (len when none)."""
+    n = mask.size
+    idx = np.where(mask, np.arange(n), n)
+    return np.minimum.accumulate(idx[::-1])[::-1]
+
+
+def _segment_fits(x, first, last):
+    """Least-squares slope and r² of x against day number on each [first, last] span."""
+    if first.size == 0:
+        return np.empty(0), np.empty(0)
+    t = np.arange(x.size, dtype=float)
+    xf = np.where(np.isfinite(x), x, 0.0)
+    c = lambda v: np.concatenate([[0.0], np.cumsum(v)])  # noqa: E731
+    s1, st, sx, stt, stx, sxx = c(np.ones_like(t)), c(t), c(xf), c(t * t), c(t * xf), c(xf * xf)
+    a, b = first, last + 1
+    n = s1[b] - s1[a]
+    sum_t, sum_x = st[b] - st[a], sx[b] - sx[a]
+    ctt = stt[b] - stt[a] - sum_t**2 / n
+    ctx = stx[b] - stx[a] - sum_t * sum_x / n
+    cxx = sxx[b] - sxx[a] - sum_x**2 / n
+    slope = ctx / ctt
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r2 = np.where(cxx > 0, ctx**2 / (ctt * cxx), 1.0)
+    return slope, r2
+
+
+def combine_segments(segments: pd.DataFrame, quantile=0.5, n_boot=400, seed=0):
+    """Combine segment slopes into one K with a bootstrap interval.
+
+    The combined slope is the length-weighted ``quantile`` of the segment slopes; K = −1/slope.
+    The interval is the 5–95 % range of that estimate over segments resampled with replacement.
+    """
+    seg = segments[np.isfinite(segments["slope"])]
+    if seg.empty:
+        return np.nan, np.nan, np.nan
+    slopes = seg["slope"].to_numpy()
+    weights = seg["days"].to_numpy(dtype=float)
+    k = _k_from(slopes, weights, quantile)
+    if slopes.size < 2:
+        return k, np.nan, np.nan
+    rng = np.random.default_rng(seed)
+    picks = rng.integers(0, slopes.size, size=(n_boot, slopes.size))
+    boot = np.array([_k_from(slopes[p], weights[p], quantile) for p in picks])
+    boot = boot[np.isfinite(boot)]
+    if boot.size == 0:
+        return k, np.nan, np.nan
+    low, high = np.percentile(boot, [5.0, 95.0])
+    return k, float(low), float(high)
+
+
+def _k_from(slopes, weights, quantile):
+    order = np.argsort(slopes)
+    s, w = slopes[order], weights[order]
+    cum = np.cumsum(w) / w.sum()
+    # Slopes are negative; the slow end (large K) has the slopes nearest zero, at the top.
+    slope = s[min(np.searchsorted(cum, quantile), s.size - 1)]
+    return float(-1.0 / slope) if slope < 0 else np.nan
+
+
+def estimate_recession_index(
+    logq, rises: Rises, lag_days, min_days=7, quantile=0.5, seed=0
+) -> RecessionIndex:
+    """Estimate K from the record's recession segments.
+
+    Segments begin at the later of the runoff-end lag N and the critical time after each
+    peak: before the critical time the groundwater recession itself is still steeper than its
+    late-time slope (Rorabaugh 1960 series solution), so early days would bias K low. A first
+    pass from N gives the critical time; the second pass gives K.
+
+    See :func:`recession_segments` and :func:`combine_segments`.
+    """
+    segs = recession_segments(logq, rises, lag_days, min_days)
+    k, low, high = combine_segments(segs, quantile, seed=seed)
+    if np.isfinite(k):
+        later = max(float(lag_days), float(critical_time_days(k)))
+        segs2 = recession_segments(logq, rises, later, min_days)
+        if len(segs2) >= 2:
+            segs = segs2
+            k, low, high = combine_segments(segs, quantile, seed=seed)
+    used = int(np.isfinite(segs["slope"]).sum()) if len(segs) else 0
+    return RecessionIndex(
+        days=k, low=low, high=high, segments_used=used, segments=segs, warnings=recession_warnings(k, used)
+    )
+
+
+def recession_warnings(k, segments_used=None):
+    """Plain-language cautions about a recession index (``segments_used`` None: K was given)."""
+    notes = []
+    if segments_used is not None and segments_used < FEW_SEGMENTS:
+        notes.append(f"recession index from only {segments_used} segments (fewer than {FEW_SEGMENTS})")
+    lo, hi = USUAL_RECESSION_INDEX_DAYS
+    if np.isfinite(k) and not lo <= k <= hi:
+        notes.append(f"recession index {k:.0f} days is outside the usual {lo:.0f}–{hi:.0f} days")
+    if not np.isfinite(k):
+        notes.append("no recession index could be estimated from the record")
+    return notes

@@ -1,0 +1,174 @@
+"""Command-line interface: ``recharge-atlas run`` and ``recharge-atlas demo``.
+
+A thin shell over :func:`recharge_atlas.algorithms.pipeline.run_atlas`, the same pipeline the
+QGIS plugin uses. Exit codes: 0 on success (even when some gauges are flagged), 2 on bad input
+or usage, with a short message on stderr and no traceback.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+from recharge_atlas.algorithms.units import DISCHARGE_UNITS, UNIT_ALIASES
+
+EXIT_OK = 0
+EXIT_BAD_INPUT = 2
+EXIT_INTERNAL = 1
+
+
+def _parser():
+    parser = argparse.ArgumentParser(
+        prog="recharge-atlas",
+        description="Groundwater recharge from streamflow records, mapped across catchments.",
+    )
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub.required = True
+
+    run = sub.add_parser("run", help="estimate recharge for gauges and catchments", description="Estimate recharge for every gauge by recession-curve displacement and write a GeoPackage.")
+    run.add_argument("--gauges", required=True, metavar="PATH", help="gauge points (any vector format; 'file.gpkg|layername=NAME' picks a layer)")
+    run.add_argument("--catchments", required=True, metavar="PATH", help="catchment polygons, each carrying its gauge id")
+    run.add_argument("--discharge", required=True, metavar="PATH", help="daily discharge table: CSV, Parquet or a vector table (one row per gauge and day)")
+    run.add_argument("--out", required=True, metavar="OUT.gpkg", help="GeoPackage to write (layer catchments; tables annual, events)")
+    _add_options(run)
+    run.add_argument("--map", metavar="OUT.png", help="also draw a choropleth map of mean annual recharge")
+
+    demo = sub.add_parser("demo", help="run the whole job on the invented demo region", description="Run the whole job on the invented demo region in sample_layers/.")
+    demo.add_argument("--out", default="demo_output", metavar="DIR", help="folder for the results (default: demo_output)")
+    return parser
+
+
+def _add_options(run):
+    units = sorted(DISCHARGE_UNITS) + sorted(UNIT_ALIASES)
+    run.add_argument("--units", default="m3/s", choices=units, help="units of the discharge values (default m3/s)")
+    run.add_argument("--water-year-start", type=int, default=10, metavar="MONTH", help="first month of the water year, 1-12 (default 10, October)")
+    run.add_argument("--gauge-id-field", default="gauge_id", metavar="FIELD", help="gauge id field of the gauges layer (default gauge_id)")
+    run.add_argument("--discharge-gauge-field", metavar="FIELD", help="gauge id field of the discharge table (default: the gauge id field)")
+    run.add_argument("--date-field", default="date", metavar="FIELD", help="date field of the discharge table (default date)")
+    run.add_argument("--value-field", default="discharge", metavar="FIELD", help="discharge field of the discharge table (default discharge)")
+    run.add_argument("--catchment-gauge-field", metavar="FIELD", help="gauge id field of the catchments (default: the gauge id field)")
+    run.add_argument("--recession-index", type=float, metavar="DAYS", help="use this recession index K (days per log cycle) for every gauge instead of estimating it")
+
+
+class _StderrReporter:
+    """Prints per-gauge cautions and the summary to stderr."""
+
+    def __init__(self, stream=None):
+        self.stream = stream or sys.stderr
+
+    def progress(self, done, total, gauge_id=None):
+        pass
+
+    def cancelled(self):
+        return False
+
+    def info(self, text):
+        print(text, file=self.stream)
+
+    def warning(self, text):
+        print(f"caution: {text}", file=self.stream)
+
+
+def run_files(gauges, catchments, discharge, out, settings, map_path=None, reporter=None):
+    """Read the inputs, run the pipeline and write the outputs. Returns the AtlasResult."""
+    from recharge_atlas.algorithms import files
+    from recharge_atlas.algorithms.errors import InputError
+    from recharge_atlas.algorithms.pipeline import run_atlas
+
+    out = Path(out)
+    inputs = [files.split_layer(p)[0] for p in (gauges, catchments, discharge)]
+    for target in [out] + ([Path(map_path)] if map_path else []):
+        if any(_same_file(target, p) for p in inputs):
+            raise InputError("the output path is one of the input files", file=str(target))
+    if out.suffix.lower() != ".gpkg":
+        raise InputError("the output must be a GeoPackage ending in .gpkg", file=str(out))
+    gauge_layer = files.read_layer(gauges, "gauges")
+    catchment_layer = files.read_layer(catchments, "catchments")
+    table = files.read_table(discharge, "discharge table")
+    result = run_atlas(gauge_layer, catchment_layer, table, settings, reporter)
+    files.write_geopackage(result, out)
+    if map_path:
+        from recharge_atlas.algorithms.maps import recharge_map
+
+        files.save_figure(recharge_map(result.catchments, gauge_layer), map_path)
+    return result
+
+
+def _same_file(a, b):
+    try:
+        return Path(a).resolve() == Path(b).resolve()
+    except OSError:
+        return False
+
+
+def _settings(args):
+    from recharge_atlas.algorithms.pipeline import Settings
+
+    return Settings(
+        units=args.units,
+        water_year_start=args.water_year_start,
+        gauge_id_field=args.gauge_id_field,
+        discharge_gauge_field=args.discharge_gauge_field,
+        date_field=args.date_field,
+        value_field=args.value_field,
+        catchment_gauge_field=args.catchment_gauge_field,
+        recession_index_days=args.recession_index,
+    )
+
+
+def _demo(args):
+    from recharge_atlas.sample_layers import generate
+
+    folder = Path(generate.HERE)
+    out_dir = Path(args.out)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    gpkg = out_dir / "recharge.gpkg"
+    png = out_dir / "recharge_map.png"
+    print(f"Demo region: {generate.REGION_NAME} (invented), from {folder}")
+    result = run_files(
+        folder / "gauges.gpkg",
+        folder / "catchments.gpkg",
+        folder / "discharge.csv",
+        gpkg,
+        _settings(argparse.Namespace(
+            units="m3/s", water_year_start=10, gauge_id_field="gauge_id", discharge_gauge_field=None,
+            date_field="date", value_field="discharge", catchment_gauge_field=None, recession_index=None,
+        )),
+        map_path=png,
+        reporter=_StderrReporter(),
+    )
+    print(f"Results: {gpkg} (layer catchments; tables annual, events)")
+    print(f"Map:     {png}")
+    print("Open the GeoPackage in QGIS, or compare with the known truth in sample_layers/truth_*.csv.")
+    return result
+
+
+def main(argv=None):
+    """Entry point of the ``recharge-atlas`` command; returns the exit code."""
+    parser = _parser()
+    args = parser.parse_args(argv)
+    from recharge_atlas.algorithms.errors import InputError
+
+    try:
+        if args.command == "demo":
+            _demo(args)
+            return EXIT_OK
+        result = run_files(args.gauges, args.catchments, args.discharge, args.out, _settings(args), args.map, _StderrReporter())
+        print(f"wrote {args.out}" + (f" and {args.map}" if args.map else ""))
+        del result
+        return EXIT_OK
+    except InputError as exc:
+        print(f"recharge-atlas: error: {exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print("recharge-atlas: interrupted; no output written", file=sys.stderr)
+        return 130
+    except Exception as exc:  # the last line of defence: a short message, never a traceback
+        print(f"recharge-atlas: internal error: {type(exc).__name__}: {exc}", file=sys.stderr)
+        print("recharge-atlas: please report this with the command you ran", file=sys.stderr)
+        return EXIT_INTERNAL
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
