@@ -26,29 +26,103 @@ def _parser():
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
 
-    run = sub.add_parser("run", help="estimate recharge for gauges and catchments", description="Estimate recharge for every gauge by recession-curve displacement and write a GeoPackage.")
-    run.add_argument("--gauges", required=True, metavar="PATH", help="gauge points (any vector format; 'file.gpkg|layername=NAME' picks a layer)")
-    run.add_argument("--catchments", required=True, metavar="PATH", help="catchment polygons, each carrying its gauge id")
-    run.add_argument("--discharge", required=True, metavar="PATH", help="daily discharge table: CSV, Parquet or a vector table (one row per gauge and day)")
-    run.add_argument("--out", required=True, metavar="OUT.gpkg", help="GeoPackage to write (layer catchments; tables annual, events)")
+    run = sub.add_parser(
+        "run",
+        help="estimate recharge for gauges and catchments",
+        description="Estimate recharge for every gauge by recession-curve displacement and write a GeoPackage.",
+    )
+    run.add_argument(
+        "--gauges",
+        required=True,
+        metavar="PATH",
+        help="gauge points (any vector format; 'file.gpkg|layername=NAME' picks a layer)",
+    )
+    run.add_argument(
+        "--catchments",
+        required=True,
+        metavar="PATH",
+        help="catchment polygons, each carrying its gauge id",
+    )
+    run.add_argument(
+        "--discharge",
+        required=True,
+        metavar="PATH",
+        help="daily discharge table: CSV, Parquet or a vector table (one row per gauge and day)",
+    )
+    run.add_argument(
+        "--out",
+        required=True,
+        metavar="OUT.gpkg",
+        help="GeoPackage to write (layer catchments; tables annual, events)",
+    )
     _add_options(run)
-    run.add_argument("--map", metavar="OUT.png", help="also draw a choropleth map of mean annual recharge")
+    run.add_argument(
+        "--map", metavar="OUT.png", help="also draw a choropleth map of mean annual recharge"
+    )
 
-    demo = sub.add_parser("demo", help="run the whole job on the invented demo region", description="Run the whole job on the invented demo region in sample_layers/.")
-    demo.add_argument("--out", default="demo_output", metavar="DIR", help="folder for the results (default: demo_output)")
+    demo = sub.add_parser(
+        "demo",
+        help="run the whole job on the invented demo region",
+        description="Run the whole job on the invented demo region in sample_layers/.",
+    )
+    demo.add_argument(
+        "--out",
+        default="demo_output",
+        metavar="DIR",
+        help="folder for the results (default: demo_output)",
+    )
     return parser
 
 
 def _add_options(run):
     units = sorted(DISCHARGE_UNITS) + sorted(UNIT_ALIASES)
-    run.add_argument("--units", default="m3/s", choices=units, help="units of the discharge values (default m3/s)")
-    run.add_argument("--water-year-start", type=int, default=10, metavar="MONTH", help="first month of the water year, 1-12 (default 10, October)")
-    run.add_argument("--gauge-id-field", default="gauge_id", metavar="FIELD", help="gauge id field of the gauges layer (default gauge_id)")
-    run.add_argument("--discharge-gauge-field", metavar="FIELD", help="gauge id field of the discharge table (default: the gauge id field)")
-    run.add_argument("--date-field", default="date", metavar="FIELD", help="date field of the discharge table (default date)")
-    run.add_argument("--value-field", default="discharge", metavar="FIELD", help="discharge field of the discharge table (default discharge)")
-    run.add_argument("--catchment-gauge-field", metavar="FIELD", help="gauge id field of the catchments (default: the gauge id field)")
-    run.add_argument("--recession-index", type=float, metavar="DAYS", help="use this recession index K (days per log cycle) for every gauge instead of estimating it")
+    run.add_argument(
+        "--units",
+        default="m3/s",
+        choices=units,
+        help="units of the discharge values (default m3/s)",
+    )
+    run.add_argument(
+        "--water-year-start",
+        type=int,
+        default=10,
+        metavar="MONTH",
+        help="first month of the water year, 1-12 (default 10, October)",
+    )
+    run.add_argument(
+        "--gauge-id-field",
+        default="gauge_id",
+        metavar="FIELD",
+        help="gauge id field of the gauges layer (default gauge_id)",
+    )
+    run.add_argument(
+        "--discharge-gauge-field",
+        metavar="FIELD",
+        help="gauge id field of the discharge table (default: the gauge id field)",
+    )
+    run.add_argument(
+        "--date-field",
+        default="date",
+        metavar="FIELD",
+        help="date field of the discharge table (default date)",
+    )
+    run.add_argument(
+        "--value-field",
+        default="discharge",
+        metavar="FIELD",
+        help="discharge field of the discharge table (default discharge)",
+    )
+    run.add_argument(
+        "--catchment-gauge-field",
+        metavar="FIELD",
+        help="gauge id field of the catchments (default: the gauge id field)",
+    )
+    run.add_argument(
+        "--recession-index",
+        type=float,
+        metavar="DAYS",
+        help="use this recession index K (days per log cycle) for every gauge instead of estimating it",
+    )
 
 
 class _StderrReporter:
@@ -131,16 +205,26 @@ def _demo(args):
         folder / "catchments.gpkg",
         folder / "discharge.csv",
         gpkg,
-        _settings(argparse.Namespace(
-            units="m3/s", water_year_start=10, gauge_id_field="gauge_id", discharge_gauge_field=None,
-            date_field="date", value_field="discharge", catchment_gauge_field=None, recession_index=None,
-        )),
+        _settings(
+            argparse.Namespace(
+                units="m3/s",
+                water_year_start=10,
+                gauge_id_field="gauge_id",
+                discharge_gauge_field=None,
+                date_field="date",
+                value_field="discharge",
+                catchment_gauge_field=None,
+                recession_index=None,
+            )
+        ),
         map_path=png,
         reporter=_StderrReporter(),
     )
     print(f"Results: {gpkg} (layer catchments; tables annual, events)")
     print(f"Map:     {png}")
-    print("Open the GeoPackage in QGIS, or compare with the known truth in sample_layers/truth_*.csv.")
+    print(
+        "Open the GeoPackage in QGIS, or compare with the known truth in sample_layers/truth_*.csv."
+    )
     return result
 
 
@@ -154,7 +238,15 @@ def main(argv=None):
         if args.command == "demo":
             _demo(args)
             return EXIT_OK
-        result = run_files(args.gauges, args.catchments, args.discharge, args.out, _settings(args), args.map, _StderrReporter())
+        result = run_files(
+            args.gauges,
+            args.catchments,
+            args.discharge,
+            args.out,
+            _settings(args),
+            args.map,
+            _StderrReporter(),
+        )
         print(f"wrote {args.out}" + (f" and {args.map}" if args.map else ""))
         del result
         return EXIT_OK

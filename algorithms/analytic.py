@@ -40,8 +40,11 @@ def strip_aquifer_recession_index(half_width_m, storage_coefficient, transmissiv
     46.66
     """
     a = np.asarray(half_width_m, dtype=float)
-    return STRIP_FACTOR * a**2 * np.asarray(storage_coefficient, float) / np.asarray(
-        transmissivity_m2_per_day, float
+    return (
+        STRIP_FACTOR
+        * a**2
+        * np.asarray(storage_coefficient, float)
+        / np.asarray(transmissivity_m2_per_day, float)
     )
 
 
@@ -84,7 +87,8 @@ def strip_aquifer_daily_response(recession_index_days, n_days, pulse_time=0.5, m
     for lo in range(0, n_days, 512):
         hi = min(lo + 512, n_days)
         kernel[lo:hi] = (
-            weights * (np.exp(-np.outer(starts[lo:hi], rates)) - np.exp(-np.outer(ends[lo:hi], rates)))
+            weights
+            * (np.exp(-np.outer(starts[lo:hi], rates)) - np.exp(-np.outer(ends[lo:hi], rates)))
         ).sum(axis=1)
     # Truncating the series at max_terms drops (8/π²) Σ_{n > N} 1/n² of the first day's mass;
     # put it back on day 0, where the high terms live.

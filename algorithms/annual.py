@@ -56,7 +56,16 @@ def annual_recharge(flow, events, area_km2, start_month=10, max_missing_share=MA
         events_skipped``. A year is complete when it lies wholly inside the record, at most
         ``max_missing_share`` of its days lack a value, and no event in it was skipped.
     """
-    columns = ["water_year", "recharge_mm", "recharge_m3", "complete", "days", "days_missing", "events", "events_skipped"]
+    columns = [
+        "water_year",
+        "recharge_mm",
+        "recharge_m3",
+        "complete",
+        "days",
+        "days_missing",
+        "events",
+        "events_skipped",
+    ]
     if flow.empty:
         return pd.DataFrame({c: [] for c in columns})
     years_of_days = water_year(flow.index, start_month)

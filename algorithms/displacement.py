@@ -119,11 +119,14 @@ def event_displacements(
         note[fresh] = text
         used[fresh] = False
 
-    refuse(rises.start_in_gap, "rise begins after a gap: pre-event anchor unknown")
+    refuse(rises.start_in_gap, "rise begins in or just after a gap: pre-event anchor unknown")
     refuse(rises.peak_at_gap, "record stops during the rise: peak unknown")
     refuse(~has_post, "no clean day on the recession after the peak")
     refuse(pre_span > max_extrapolation_days, "pre-event extrapolation longer than the limit")
-    refuse(np.abs(np.nan_to_num(post_span)) > max_extrapolation_days, "post-event extrapolation longer than the limit")
+    refuse(
+        np.abs(np.nan_to_num(post_span)) > max_extrapolation_days,
+        "post-event extrapolation longer than the limit",
+    )
     merged_note = np.where(rises.peaks_merged > 1, "peaks merged", "")
     for i in np.flatnonzero(used & (rises.peaks_merged > 1)):
         note[i] = merged_note[i]

@@ -49,7 +49,10 @@ def read_layer(path, what="layer"):
     try:
         frame = gpd.read_file(file_path, layer=layer) if layer else gpd.read_file(file_path)
     except Exception as exc:  # the readers raise many types; the user needs one sentence
-        raise InputError(f"the {what} file could not be read as a vector layer: {_first_line(exc)}", file=str(file_path)) from None
+        raise InputError(
+            f"the {what} file could not be read as a vector layer: {_first_line(exc)}",
+            file=str(file_path),
+        ) from None
     return frame
 
 
@@ -64,14 +67,22 @@ def read_table(path, what="discharge table"):
     try:
         if suffix in TEXT_SUFFIXES:
             sep = "\t" if suffix == ".tsv" else None
-            return pd.read_csv(file_path, dtype=str, sep=sep, engine="python" if sep is None else "c", skipinitialspace=True)
+            return pd.read_csv(
+                file_path,
+                dtype=str,
+                sep=sep,
+                engine="python" if sep is None else "c",
+                skipinitialspace=True,
+            )
         if suffix == ".parquet":
             return pd.read_parquet(file_path)
         frame = read_layer(path, what)
     except InputError:
         raise
     except Exception as exc:
-        raise InputError(f"the {what} file could not be read: {_first_line(exc)}", file=str(file_path)) from None
+        raise InputError(
+            f"the {what} file could not be read: {_first_line(exc)}", file=str(file_path)
+        ) from None
     if "geometry" in frame.columns:
         frame = pd.DataFrame(frame.drop(columns="geometry"))
     return frame
@@ -112,7 +123,12 @@ def write_geopackage(result, path):
         result.catchments.to_file(temp, layer="catchments", driver="GPKG")
         with sqlite3.connect(temp) as db:
             add_attribute_table(db, "annual", result.annual, "Recharge by gauge and water year")
-            add_attribute_table(db, "events", result.events, "Recharge of each event by recession-curve displacement")
+            add_attribute_table(
+                db,
+                "events",
+                result.events,
+                "Recharge of each event by recession-curve displacement",
+            )
         db.close()
     return Path(path)
 
@@ -169,7 +185,9 @@ def add_attribute_table(db, name, frame, description=""):
     kinds = {column: _gpkg_type(frame[column]) for column in frame.columns}
     columns_sql = ", ".join(f'"{c}" {k}' for c, k in kinds.items())
     db.execute(f'DROP TABLE IF EXISTS "{name}"')
-    db.execute(f'CREATE TABLE "{name}" (fid INTEGER PRIMARY KEY AUTOINCREMENT NOT NULL{", " if kinds else ""}{columns_sql})')
+    db.execute(
+        f'CREATE TABLE "{name}" (fid INTEGER PRIMARY KEY AUTOINCREMENT NOT NULL{", " if kinds else ""}{columns_sql})'
+    )
     if len(frame):
         placeholders = ", ".join("?" for _ in kinds)
         names = ", ".join(f'"{c}"' for c in kinds)
@@ -184,7 +202,10 @@ def add_attribute_table(db, name, frame, description=""):
     has_ogr = db.execute("SELECT 1 FROM sqlite_master WHERE name = 'gpkg_ogr_contents'").fetchone()
     if has_ogr:
         db.execute("DELETE FROM gpkg_ogr_contents WHERE table_name = ?", (name,))
-        db.execute("INSERT INTO gpkg_ogr_contents (table_name, feature_count) VALUES (?, ?)", (name, len(frame)))
+        db.execute(
+            "INSERT INTO gpkg_ogr_contents (table_name, feature_count) VALUES (?, ?)",
+            (name, len(frame)),
+        )
 
 
 def read_attribute_table(path, name):

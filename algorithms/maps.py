@@ -62,18 +62,35 @@ def recharge_map(catchments, gauges=None, field="recharge_mm_per_year", title=No
     ax = figure.add_subplot(1, 1, 1)
     ordered.plot(ax=ax, color=colours, edgecolor="#333333", linewidth=0.8)
     if gauges is not None and len(gauges):
-        gauges.to_crs(catchments.crs).plot(ax=ax, color="#b2182b", marker="^", markersize=40, zorder=5)
+        gauges.to_crs(catchments.crs).plot(
+            ax=ax, color="#b2182b", marker="^", markersize=40, zorder=5
+        )
         id_field = "gauge_id" if "gauge_id" in gauges.columns else None
         if id_field:
             for geom, label in zip(gauges.to_crs(catchments.crs).geometry, gauges[id_field]):
                 if geom is not None and not geom.is_empty:
-                    ax.annotate(str(label), (geom.x, geom.y), xytext=(4, 4), textcoords="offset points", fontsize=8, zorder=6)
+                    ax.annotate(
+                        str(label),
+                        (geom.x, geom.y),
+                        xytext=(4, 4),
+                        textcoords="offset points",
+                        fontsize=8,
+                        zorder=6,
+                    )
     handles = []
     if breaks.size >= 2:
         for i in range(n_classes):
-            handles.append(Patch(facecolor=palette[i], edgecolor="#333333", label=_label(breaks[i], breaks[i + 1], digits)))
+            handles.append(
+                Patch(
+                    facecolor=palette[i],
+                    edgecolor="#333333",
+                    label=_label(breaks[i], breaks[i + 1], digits),
+                )
+            )
     if not np.all(np.isfinite(values)):
-        handles.append(Patch(facecolor=NO_ESTIMATE_COLOUR, edgecolor="#333333", label="no estimate"))
+        handles.append(
+            Patch(facecolor=NO_ESTIMATE_COLOUR, edgecolor="#333333", label="no estimate")
+        )
     if handles:
         ax.legend(
             handles=handles,

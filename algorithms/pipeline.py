@@ -90,11 +90,15 @@ class Settings:
         except (TypeError, ValueError):
             month = 0
         if not 1 <= month <= 12 or float(self.water_year_start) != month:
-            raise InputError(f"water year start was {self.water_year_start!r}; expected a month number 1 to 12")
+            raise InputError(
+                f"water year start was {self.water_year_start!r}; expected a month number 1 to 12"
+            )
         if self.recession_index_days is not None and not (
             math.isfinite(float(self.recession_index_days)) and float(self.recession_index_days) > 0
         ):
-            raise InputError(f"recession index was {self.recession_index_days!r}; expected a positive number of days")
+            raise InputError(
+                f"recession index was {self.recession_index_days!r}; expected a positive number of days"
+            )
         return replace(
             self,
             units=units,
@@ -221,7 +225,9 @@ def gauge_hydrology(record: GaugeRecord, area_km2: float, settings: Settings) ->
 
     if settings.recession_index_days is not None:
         k = float(settings.recession_index_days)
-        recession = RecessionIndex(k, np.nan, np.nan, 0, source="given", warnings=recession_warnings(k))
+        recession = RecessionIndex(
+            k, np.nan, np.nan, 0, source="given", warnings=recession_warnings(k)
+        )
     else:
         recession = estimate_recession_index(x, rises, lag, settings.min_segment_days)
     result.recession = recession
@@ -231,11 +237,15 @@ def gauge_hydrology(record: GaugeRecord, area_km2: float, settings: Settings) ->
     events.insert(0, "event", np.arange(1, len(events) + 1))
     events["recharge_mm"] = events["recharge_m3"] / (area_km2 * 1e3) if has_area else np.nan
     result.events = events
-    annual = annual_mod.annual_recharge(flow, events, area_km2 if has_area else np.nan, settings.water_year_start)
+    annual = annual_mod.annual_recharge(
+        flow, events, area_km2 if has_area else np.nan, settings.water_year_start
+    )
     result.annual = annual
     result.complete_years = int(annual["complete"].sum()) if len(annual) else 0
     result.recharge_m3_per_year = annual_mod.mean_annual(annual, "recharge_m3")
-    result.recharge_mm_per_year = annual_mod.mean_annual(annual, "recharge_mm") if has_area else np.nan
+    result.recharge_mm_per_year = (
+        annual_mod.mean_annual(annual, "recharge_mm") if has_area else np.nan
+    )
     quality.extend(_record_quality(record, result, settings))
     return result
 
@@ -259,7 +269,13 @@ def _record_quality(record: GaugeRecord, result: GaugeResult, settings: Settings
     return notes
 
 
-def run_atlas(gauges, catchments, discharge: pd.DataFrame, settings: Settings | None = None, reporter: Reporter | None = None) -> AtlasResult:
+def run_atlas(
+    gauges,
+    catchments,
+    discharge: pd.DataFrame,
+    settings: Settings | None = None,
+    reporter: Reporter | None = None,
+) -> AtlasResult:
     """Estimate recharge for every gauge and attach it to the catchments.
 
     Parameters
@@ -287,7 +303,11 @@ def run_atlas(gauges, catchments, discharge: pd.DataFrame, settings: Settings | 
     reporter = reporter or Reporter()
     require_columns(gauges, [settings.gauge_id_field], "gauges layer")
     require_columns(catchments, [settings.catchment_gauge_field], "catchments layer")
-    gauge_ids = [g for g in dict.fromkeys(gauge_id_text(gauges[settings.gauge_id_field].to_numpy())) if g is not None]
+    gauge_ids = [
+        g
+        for g in dict.fromkeys(gauge_id_text(gauges[settings.gauge_id_field].to_numpy()))
+        if g is not None
+    ]
     if not gauge_ids:
         raise InputError("the gauges layer holds no gauge ids", field=settings.gauge_id_field)
     records = tidy_discharge(
@@ -302,7 +322,9 @@ def run_atlas(gauges, catchments, discharge: pd.DataFrame, settings: Settings | 
     for gid in links.unlinked:
         reporter.warning(f"gauge {gid}: no catchment carries this gauge id")
     for gid, rows in links.several.items():
-        reporter.warning(f"gauge {gid}: {len(rows)} catchments carry this gauge id; depths not computed")
+        reporter.warning(
+            f"gauge {gid}: {len(rows)} catchments carry this gauge id; depths not computed"
+        )
 
     results: dict[str, GaugeResult] = {}
     failed = 0
@@ -372,11 +394,15 @@ def _catchment_layer(catchments, areas, links, results, settings):
         columns["recession_index_high"].append(k.high if k else np.nan)
         columns["recession_segments"].append(k.segments_used if k else 0)
         columns["critical_time_days"].append(float(critical_time_days(k.days)) if k else np.nan)
-        columns["runoff_end_lag_days"].append(float(runoff_end_lag_days(areas[row])) if np.isfinite(areas[row]) else np.nan)
+        columns["runoff_end_lag_days"].append(
+            float(runoff_end_lag_days(areas[row])) if np.isfinite(areas[row]) else np.nan
+        )
         columns["recharge_mm_per_year"].append(r.recharge_mm_per_year if r else np.nan)
         columns["recharge_m3_per_year"].append(r.recharge_m3_per_year if r else np.nan)
         columns["complete_years"].append(r.complete_years if r else 0)
-        columns["events"].append(int(r.events["used"].sum()) if r is not None and len(r.events) else 0)
+        columns["events"].append(
+            int(r.events["used"].sum()) if r is not None and len(r.events) else 0
+        )
         if r is not None:
             quality = r.quality_text
             if gid in links.several:
@@ -391,7 +417,9 @@ def _catchment_layer(catchments, areas, links, results, settings):
             out = out.drop(columns=name)
         out[name] = columns[name]
     geometry_name = out.geometry.name
-    order = [c for c in out.columns if c != geometry_name and c not in CATCHMENT_FIELDS] + CATCHMENT_FIELDS
+    order = [
+        c for c in out.columns if c != geometry_name and c not in CATCHMENT_FIELDS
+    ] + CATCHMENT_FIELDS
     out = out[order + [geometry_name]]
     out["recession_segments"] = out["recession_segments"].astype("int64")
     out["complete_years"] = out["complete_years"].astype("int64")

@@ -245,7 +245,12 @@ def estimate_recession_index(
             k, low, high = combine_segments(segs, quantile, seed=seed)
     used = int(np.isfinite(segs["slope"]).sum()) if len(segs) else 0
     return RecessionIndex(
-        days=k, low=low, high=high, segments_used=used, segments=segs, warnings=recession_warnings(k, used)
+        days=k,
+        low=low,
+        high=high,
+        segments_used=used,
+        segments=segs,
+        warnings=recession_warnings(k, used),
     )
 
 
@@ -253,7 +258,9 @@ def recession_warnings(k, segments_used=None):
     """Plain-language cautions about a recession index (``segments_used`` None: K was given)."""
     notes = []
     if segments_used is not None and segments_used < FEW_SEGMENTS:
-        notes.append(f"recession index from only {segments_used} segments (fewer than {FEW_SEGMENTS})")
+        notes.append(
+            f"recession index from only {segments_used} segments (fewer than {FEW_SEGMENTS})"
+        )
     lo, hi = USUAL_RECESSION_INDEX_DAYS
     if np.isfinite(k) and not lo <= k <= hi:
         notes.append(f"recession index {k:.0f} days is outside the usual {lo:.0f}–{hi:.0f} days")

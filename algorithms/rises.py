@@ -101,6 +101,20 @@ def _turning_points(x, threshold):
     return np.asarray(troughs, int), np.asarray(peaks, int)
 
 
+def _rise_hidden_in_gap(x, previous_end, b0, b1, troughs, threshold):
+    """Peak position when the block after a gap starts above the day before the gap."""
+    if previous_end < 0:
+        return None
+    head_end = troughs[0] if troughs.size else b1 - 1
+    if head_end <= b0 and troughs.size:
+        return None  # the block starts on a trough: its own rise is seen and flagged
+    head = x[b0 : head_end + 1]
+    top = b0 + int(np.argmax(head))
+    if x[top] - x[previous_end] >= threshold:
+        return top
+    return None
+
+
 @dataclass
 class Rises:
     """Events found in one record (indices are day positions in the record).
@@ -117,7 +131,7 @@ class Rises:
         The last day of the recession that follows each event: the next event's rise start, or
         the last day before a gap or the end of the record.
     start_in_gap : ndarray of bool
-        The rise begins right after a gap, so the true lowest day before it is unknown.
+        The rise begins in or right after a gap, so the true lowest day before it is unknown.
     peak_at_gap : ndarray of bool
         The record stops (gap or end) while the flow is still rising, so the peak is unknown.
     threshold : float
@@ -153,16 +167,24 @@ def find_rises(logq, lag_days, threshold) -> Rises:
     valid = np.isfinite(x)
     starts, ends = _blocks(valid)
     rise, peak, block_start, block_end = [], [], [], []
+    previous_end = -1
     for b0, b1 in zip(starts, ends):
         t, p = _turning_points(x[b0:b1], threshold)
-        rise.append(t + b0)
-        peak.append(p + b0)
+        t, p = t + b0, p + b0
+        hidden = _rise_hidden_in_gap(x, previous_end, b0, b1, t, threshold)
+        if hidden is not None:
+            # The flow rose during the gap: keep the event so its year is not taken as
+            # complete, anchored on the last day before the gap (and flagged).
+            t, p = np.r_[b0, t], np.r_[hidden, p]
+        rise.append(t)
+        peak.append(p)
         block_start.append(np.full(t.size, b0))
         block_end.append(np.full(t.size, b1 - 1))
-    if not rise:
+        previous_end = b1 - 1
+    rise = np.concatenate(rise) if rise else np.empty(0, int)
+    if rise.size == 0:
         empty = np.empty(0, int)
         return Rises(empty, empty, empty, empty, empty.astype(bool), empty.astype(bool), threshold)
-    rise = np.concatenate(rise)
     peak = np.concatenate(peak)
     block_start = np.concatenate(block_start)
     block_end = np.concatenate(block_end)

@@ -286,7 +286,11 @@ def make_region(
     """
     rng = np.random.default_rng(seed)
     first = pd.Timestamp(start)
-    dates_all = pd.date_range(first - pd.DateOffset(years=spin_up_years), first + pd.DateOffset(years=years) - pd.Timedelta(days=1), freq="D")
+    dates_all = pd.date_range(
+        first - pd.DateOffset(years=spin_up_years),
+        first + pd.DateOffset(years=years) - pd.Timedelta(days=1),
+        freq="D",
+    )
     keep = dates_all >= first
     dates = dates_all[keep]
 
@@ -335,7 +339,11 @@ def make_region(
         record = pd.Series(flow, index=dates)
         if poor_record and gauge_id == POOR_GAUGE:
             record = _spoil(record, rng)
-        rows.append(pd.DataFrame({"gauge_id": gauge_id, "date": record.index, "discharge": record.to_numpy()}))
+        rows.append(
+            pd.DataFrame(
+                {"gauge_id": gauge_id, "date": record.index, "discharge": record.to_numpy()}
+            )
+        )
 
         recharge_mm = sum(unit_recharge[u][keep] * unit_area[u] for u in units) / area
         per_year = pd.Series(recharge_mm).groupby(np.asarray(wy[keep])).sum()

@@ -1,0 +1,72 @@
+"""Water years, completeness and the mean over complete years."""
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from recharge_atlas.algorithms.annual import (
+    annual_recharge,
+    mean_annual,
+    water_year,
+    water_year_bounds,
+)
+
+
+@pytest.mark.parametrize(
+    ("date", "start", "expected"),
+    [
+        ("2023-09-30", 10, 2023),
+        ("2023-10-01", 10, 2024),  # water year 2024 runs Oct 2023 – Sep 2024 (usual convention)
+        ("2024-06-30", 7, 2024),
+        ("2024-07-01", 7, 2025),
+        ("2024-12-31", 1, 2024),  # start in January: the calendar year
+        ("2024-01-01", 1, 2024),
+    ],
+)
+def test_water_year_is_named_by_the_year_it_ends(date, start, expected):
+    assert water_year(pd.to_datetime([date]), start)[0] == expected
+
+
+def test_water_year_bounds():
+    first, last = water_year_bounds(2024, 10)
+    assert first == pd.Timestamp("2023-10-01") and last == pd.Timestamp("2024-09-30")
+
+
+def test_bad_start_month_is_refused():
+    with pytest.raises(ValueError, match="expected 1 to 12"):
+        water_year(pd.to_datetime(["2020-01-01"]), 13)
+
+
+def _events(dates, m3, used=None):
+    return pd.DataFrame(
+        {
+            "peak_date": pd.to_datetime(dates),
+            "recharge_m3": m3,
+            "used": used if used is not None else [True] * len(dates),
+        }
+    )
+
+
+def test_sums_by_water_year_of_the_peak_and_completeness():
+    days = pd.date_range("2000-10-01", "2003-09-30", freq="D")
+    flow = pd.Series(1.0, index=days)
+    flow.iloc[400:420] = np.nan  # 20 missing days in water year 2002
+    events = _events(
+        ["2000-11-01", "2001-09-30", "2001-10-01", "2003-01-01", "2003-02-01"],
+        [1e6, 2e6, 4e6, 8e6, np.nan],
+        [True, True, True, True, False],
+    )
+    table = annual_recharge(flow, events, area_km2=10.0, start_month=10)
+    assert list(table["water_year"]) == [2001, 2002, 2003]
+    assert list(table["recharge_m3"]) == [3e6, 4e6, 8e6]
+    assert table["recharge_mm"].iloc[0] == pytest.approx(3e6 / 10e6 * 1000.0)  # volume / area
+    assert list(table["complete"]) == [True, False, False]  # 2002: gaps; 2003: an event skipped
+    assert list(table["events_skipped"]) == [0, 0, 1]
+    assert mean_annual(table) == pytest.approx(300.0)
+
+
+def test_partial_first_and_last_years_are_incomplete():
+    days = pd.date_range("2001-03-01", "2002-05-31", freq="D")
+    table = annual_recharge(pd.Series(1.0, index=days), _events([], []), 10.0, 10)
+    assert not table["complete"].any()
+    assert np.isnan(mean_annual(table))

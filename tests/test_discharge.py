@@ -1,0 +1,79 @@
+"""Reading the long discharge table into daily series."""
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from recharge_atlas.algorithms.discharge import gauge_id_text, tidy_discharge
+from recharge_atlas.algorithms.errors import InputError
+
+
+def _table(**columns):
+    return pd.DataFrame(columns)
+
+
+def test_daily_series_per_gauge_in_cubic_metres_per_second():
+    table = _table(
+        gauge_id=["A", "A", "A", "B"],
+        date=["2020-01-01", "2020-01-02", "2020-01-04", "2020-01-01"],
+        discharge=["100", "200", "300", "50"],
+    )
+    records = tidy_discharge(table, units="cfs")
+    a = records["A"].flow
+    assert list(a.index.strftime("%Y-%m-%d")) == [
+        "2020-01-01",
+        "2020-01-02",
+        "2020-01-03",
+        "2020-01-04",
+    ]
+    assert a.iloc[0] == pytest.approx(100 * 0.028316846592)  # NIST SP 811
+    assert np.isnan(a.iloc[2])  # a day absent from the table is a missing day
+    assert records["B"].days == 1
+
+
+def test_bad_values_become_missing_and_are_counted():
+    table = _table(
+        gauge_id=["A"] * 6,
+        date=pd.date_range("2020-01-01", periods=6).astype(str),
+        discharge=["1.0", "", "abc", "-5", "inf", "2.0"],
+    )
+    table.loc[1, "discharge"] = None
+    record = tidy_discharge(table)["A"]
+    assert record.counts == {"missing": 1, "non_numeric": 1, "negative": 2, "days_averaged": 0}
+    assert record.days_with_value == 2
+
+
+def test_sub_daily_values_are_averaged_into_daily_means():
+    table = _table(
+        gauge_id=["A"] * 4,
+        date=["2020-01-01 00:00", "2020-01-01 12:00", "2020-01-02 06:00", "2020-01-02 18:00"],
+        discharge=[1.0, 3.0, 5.0, 7.0],
+    )
+    record = tidy_discharge(table)["A"]
+    assert list(record.flow) == [2.0, 6.0]
+    assert record.counts["days_averaged"] == 2
+
+
+def test_missing_columns_are_named_with_those_found():
+    with pytest.raises(
+        InputError, match=r"no field 'flow'.*fields found: gauge_id, date, discharge"
+    ):
+        tidy_discharge(
+            _table(gauge_id=["A"], date=["2020-01-01"], discharge=[1.0]), value_field="flow"
+        )
+
+
+def test_unparseable_dates_are_an_input_error():
+    with pytest.raises(InputError, match="could be read as a date"):
+        tidy_discharge(_table(gauge_id=["A"], date=["yesterday"], discharge=[1.0]))
+
+
+def test_gauge_ids_compare_as_text():
+    assert list(gauge_id_text([1001, 1001.0, " 1001 ", "01001", None, float("nan")])) == [
+        "1001",
+        "1001",
+        "1001",
+        "01001",
+        None,
+        None,
+    ]

@@ -1,0 +1,100 @@
+"""Recession-curve displacement against the analytic strip-aquifer solution.
+
+Check against a source outside the project: Rorabaugh (1960, 1964) and Glover (1964) — for an
+ideal strip aquifer the displacement at the critical time recovers a recharge pulse within a
+few percent. The hydrographs are the series solution (see test_analytic.py for its own check
+against an independent numerical solution).
+"""
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from recharge_atlas.algorithms.analytic import strip_aquifer_daily_response
+from recharge_atlas.algorithms.displacement import event_displacements
+from recharge_atlas.algorithms.recession import runoff_end_lag_days
+from recharge_atlas.algorithms.rises import find_rises, log_flow
+
+AREA_KM2 = 150.0
+
+
+def _hydrograph(k, pulses_mm, days=900):
+    """Groundwater discharge (m³/s) of a strip aquifer after pulses {day: mm} at noon."""
+    kernel = strip_aquifer_daily_response(k, days)
+    depth = np.zeros(days)
+    for day, mm in pulses_mm.items():
+        depth[day] += mm
+    mm_per_day = np.convolve(depth, kernel)[:days]
+    background = 2.0 * 10.0 ** (-np.arange(days) / k)  # an old recession, already on K
+    q = mm_per_day * AREA_KM2 * 1e3 / 86400.0 + background
+    return pd.Series(q, index=pd.date_range("2010-10-01", periods=days, freq="D"))
+
+
+def _events(flow, k):
+    x = log_flow(flow)
+    lag = float(runoff_end_lag_days(AREA_KM2))
+    rises = find_rises(x, lag, 0.01)
+    return event_displacements(flow, x, rises, k, lag)
+
+
+@pytest.mark.parametrize("k", [20.0, 45.0, 90.0])
+def test_single_pulse_is_recovered_within_a_few_percent(k):
+    # An earlier pulse sets up a background recession; the second one is measured.
+    flow = _hydrograph(k, {10: 80.0, 300: 40.0})
+    events = _events(flow, k)
+    second = events[events["peak_date"] == flow.index[300]]
+    assert len(second) == 1 and second["used"].all()
+    true_m3 = 40.0 * AREA_KM2 * 1e3
+    assert second["recharge_m3"].iloc[0] == pytest.approx(true_m3, rel=0.03)
+
+
+def test_several_pulses_sum_to_the_total_within_a_few_percent():
+    k = 45.0
+    pulses = {20: 50.0, 70: 20.0, 95: 35.0, 160: 10.0, 230: 60.0, 265: 15.0}
+    flow = _hydrograph(k, pulses, days=700)
+    events = _events(flow, k)
+    assert events["used"].all()
+    assert len(events) == len(pulses)
+    total = sum(pulses.values()) * AREA_KM2 * 1e3
+    assert events["recharge_m3"].sum() == pytest.approx(total, rel=0.03)
+
+
+def test_event_rows_carry_their_anchors_and_spans():
+    k = 45.0
+    flow = _hydrograph(k, {10: 80.0, 300: 40.0})
+    row = _events(flow, k).iloc[-1]
+    assert row["pre_anchor_date"] == flow.index[299]  # lowest day before the rise
+    assert row["pre_anchor_m3s"] == pytest.approx(flow.iloc[299])
+    assert row["critical_time_days"] == pytest.approx(0.2144 * k)
+    assert abs(row["post_extrapolation_days"]) <= 0.5
+    assert row["q_after_m3s"] > row["q_before_m3s"] > 0
+
+
+def test_pre_event_anchor_in_a_gap_skips_and_says_why():
+    k = 45.0
+    flow = _hydrograph(k, {10: 80.0, 300: 40.0})
+    flow.iloc[297:300] = np.nan
+    events = _events(flow, k)
+    last = events.iloc[-1]
+    assert not last["used"] and np.isnan(last["recharge_m3"])
+    assert "gap" in last["note"]
+
+
+def test_rise_hidden_in_a_gap_is_kept_as_an_unmeasured_event():
+    k = 45.0
+    flow = _hydrograph(k, {10: 80.0, 300: 40.0})
+    flow.iloc[298:301] = np.nan  # the whole rise and the peak day are missing
+    events = _events(flow, k)
+    last = events.iloc[-1]
+    assert last["peak_date"] == flow.index[301]  # first day after the gap, still high
+    assert not last["used"] and "gap" in last["note"]
+
+
+def test_post_event_recession_missing_for_long_is_refused():
+    k = 45.0
+    flow = _hydrograph(k, {10: 80.0, 300: 40.0})
+    flow.iloc[302:360] = np.nan
+    events = _events(flow, k)
+    last = events.iloc[-1]
+    assert not last["used"]
+    assert "extrapolation" in last["note"] or "clean day" in last["note"]

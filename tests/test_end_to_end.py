@@ -1,0 +1,188 @@
+"""End to end: the CLI on the invented demo region, compared with the generator's known truth."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pytest
+
+from recharge_atlas.algorithms.files import read_attribute_table
+from recharge_atlas.cli import main
+
+# The issue's acceptance bound is ±15 %; the method does better on this region, so hold it to
+# ±10 % to catch regressions early.
+TOLERANCE = 0.10
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory, sample_paths):
+    out = tmp_path_factory.mktemp("e2e")
+    gpkg, png = out / "recharge.gpkg", out / "map.png"
+    code = main(
+        [
+            "run",
+            "--gauges",
+            str(sample_paths["gauges"]),
+            "--catchments",
+            str(sample_paths["catchments"]),
+            "--discharge",
+            str(sample_paths["discharge"]),
+            "--out",
+            str(gpkg),
+            "--map",
+            str(png),
+        ]
+    )
+    assert code == 0
+    return {
+        "gpkg": gpkg,
+        "png": png,
+        "catchments": gpd.read_file(gpkg, layer="catchments"),
+        "annual": read_attribute_table(gpkg, "annual"),
+        "events": read_attribute_table(gpkg, "events"),
+    }
+
+
+def test_geopackage_has_the_stable_schema(demo_run):
+    for name in ["gauge_id", "area_km2", "recession_index_days", "recharge_mm_per_year", "quality"]:
+        assert name in demo_run["catchments"].columns
+    for name in ["gauge_id", "water_year", "recharge_mm", "recharge_m3", "complete"]:
+        assert name in demo_run["annual"].columns
+    for name in [
+        "gauge_id",
+        "peak_date",
+        "critical_time_days",
+        "q_before_m3s",
+        "q_after_m3s",
+        "recharge_m3",
+        "recharge_mm",
+    ]:
+        assert name in demo_run["events"].columns
+    assert len(demo_run["catchments"]) == 9  # every input polygon comes back
+
+
+def test_recharge_and_recession_index_match_the_known_truth(demo_run, sample_paths):
+    truth = pd.read_csv(sample_paths["truth_gauges"], dtype={"gauge_id": str}).set_index("gauge_id")
+    truth_annual = pd.read_csv(sample_paths["truth_annual"], dtype={"gauge_id": str})
+    out = demo_run["catchments"].dropna(subset=["gauge_id"]).set_index("gauge_id")
+    annual = demo_run["annual"]
+    checked = 0
+    for gid, row in truth.iterrows():
+        if row["poor_record"]:
+            continue
+        est = out.loc[gid]
+        assert est["quality"] == "ok", gid
+        assert est["recession_index_days"] == pytest.approx(
+            row["recession_index_days"], rel=TOLERANCE
+        ), gid
+        complete = annual[(annual["gauge_id"] == gid) & (annual["complete"] == 1)]["water_year"]
+        assert len(complete) >= 20
+        true_mean = truth_annual[
+            (truth_annual["gauge_id"] == gid) & truth_annual["water_year"].isin(complete)
+        ]["recharge_mm"].mean()
+        assert est["recharge_mm_per_year"] == pytest.approx(true_mean, rel=TOLERANCE), gid
+        checked += 1
+    assert checked == 5
+
+
+def test_poor_record_gauge_is_flagged(demo_run):
+    row = demo_run["catchments"].set_index("gauge_id").loc["TB06"]
+    assert row["quality"] != "ok"
+    assert "complete water year" in row["quality"]
+
+
+def test_catchments_without_a_gauge_say_so(demo_run):
+    ungauged = demo_run["catchments"][demo_run["catchments"]["gauge_id"].isna()]
+    assert len(ungauged) == 3
+    assert (ungauged["quality"] == "no gauge linked to this catchment").all()
+
+
+def test_depth_is_volume_over_area(demo_run):
+    events = demo_run["events"].dropna(subset=["recharge_m3"])
+    areas = demo_run["catchments"].dropna(subset=["gauge_id"]).set_index("gauge_id")["area_km2"]
+    depth = events["recharge_m3"] / (events["gauge_id"].map(areas) * 1e3)
+    np.testing.assert_allclose(events["recharge_mm"], depth, rtol=1e-12)
+
+
+def test_map_is_a_png(demo_run):
+    data = demo_run["png"].read_bytes()
+    assert data[:8] == b"\x89PNG\r\n\x1a\n" and len(data) > 20_000
+
+
+def test_demo_command_writes_the_results(tmp_path, capsys):
+    assert main(["demo", "--out", str(tmp_path / "demo")]) == 0
+    assert (tmp_path / "demo" / "recharge.gpkg").exists()
+    assert (tmp_path / "demo" / "recharge_map.png").exists()
+    assert "recharge.gpkg" in capsys.readouterr().out
+
+
+def _run_cli(*args):
+    return subprocess.run(
+        [sys.executable, "-m", "recharge_atlas", *args], capture_output=True, text=True, timeout=300
+    )
+
+
+@pytest.mark.parametrize(
+    ("change", "message"),
+    [
+        ({"--discharge": "missing.csv"}, "discharge table file does not exist"),
+        ({"--value-field": "flow"}, "no field 'flow'"),
+        ({"--water-year-start": "13"}, "water year start was 13"),
+        ({"--units": "gallons"}, "invalid choice"),
+    ],
+)
+def test_bad_input_exits_2_with_a_short_message_and_no_output(
+    tmp_path, sample_paths, change, message
+):
+    args = {
+        "--gauges": str(sample_paths["gauges"]),
+        "--catchments": str(sample_paths["catchments"]),
+        "--discharge": str(sample_paths["discharge"]),
+        "--out": str(tmp_path / "out.gpkg"),
+    }
+    args.update({k: (str(tmp_path / v) if v.endswith(".csv") else v) for k, v in change.items()})
+    flat = [item for pair in args.items() for item in pair]
+    result = _run_cli("run", *flat)
+    assert result.returncode == 2
+    assert message in result.stderr
+    assert "Traceback" not in result.stderr
+    assert not (tmp_path / "out.gpkg").exists()
+    assert list(tmp_path.iterdir()) == []  # no partial or temporary file left behind
+
+
+def test_output_over_an_input_is_refused(tmp_path, sample_paths):
+    copy = tmp_path / "discharge.csv"
+    copy.write_bytes(sample_paths["discharge"].read_bytes())
+    before = copy.read_bytes()
+    code = main(
+        [
+            "run",
+            "--gauges",
+            str(sample_paths["gauges"]),
+            "--catchments",
+            str(sample_paths["catchments"]),
+            "--discharge",
+            str(copy),
+            "--out",
+            str(copy),
+        ]
+    )
+    assert code == 2
+    assert copy.read_bytes() == before
+
+
+def test_generator_reproduces_the_committed_demo_data(demo_region, sample_paths):
+    committed = pd.read_csv(sample_paths["discharge"], dtype={"gauge_id": str})
+    fresh = demo_region.discharge
+    assert list(committed["gauge_id"]) == list(fresh["gauge_id"])
+    np.testing.assert_allclose(
+        committed["discharge"].to_numpy(), fresh["discharge"].to_numpy(), rtol=1e-5
+    )
+    truth = pd.read_csv(sample_paths["truth_gauges"], dtype={"gauge_id": str})
+    np.testing.assert_allclose(
+        truth["recharge_mm_per_year"], demo_region.truth_gauges["recharge_mm_per_year"], rtol=1e-5
+    )

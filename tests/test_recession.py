@@ -1,0 +1,122 @@
+"""Recession index, critical time, potential groundwater discharge and displacement volume.
+
+Sources: Rorabaugh (1964) for Tc = 0.2144 K, V = QK/ln 10 and R = 2(Q2 − Q1)K/2.3026;
+Linsley, Kohler & Paulhus (Hydrology for Engineers) for N = A^0.2 (A in mi²);
+scipy.integrate.quad and scipy.stats.linregress as independent reference libraries.
+"""
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy.integrate import quad
+from scipy.stats import linregress
+
+from recharge_atlas.algorithms.recession import (
+    critical_time_days,
+    displacement_recharge_m3,
+    estimate_recession_index,
+    potential_groundwater_discharge_m3,
+    recession_segments,
+    recession_warnings,
+    runoff_end_lag_days,
+)
+from recharge_atlas.algorithms.rises import find_rises, log_flow
+
+
+def test_critical_time_is_rorabaughs_0_2144_k():
+    assert critical_time_days(1.0) == 0.2144  # Rorabaugh (1964)
+    # Rule of thumb (common practice, no published source): about 0.2 of the time to drop one
+    # log cycle, so K = 45 days gives about 9–10 days.
+    assert 9.0 <= critical_time_days(45.0) <= 10.0
+
+
+def test_runoff_end_lag_from_area():
+    # Linsley, Kohler & Paulhus: N = A^0.2 days with A in mi²; 1 mi² = 2.589988110336 km² (NIST).
+    assert runoff_end_lag_days(2.589988110336) == pytest.approx(1.0)
+    assert runoff_end_lag_days(2.589988110336 * 32.0) == pytest.approx(2.0)
+    # The brief's km² form: N ≈ 0.827 A^0.2.
+    for area in (5.0, 100.0, 1300.0):
+        assert runoff_end_lag_days(area) == pytest.approx(0.827 * area**0.2, rel=1e-3)
+
+
+def test_potential_groundwater_discharge_equals_the_integral_of_the_recession():
+    k, q = 37.0, 2.5  # days, m³/s
+    integral, _ = quad(lambda t: q * 86400.0 * 10.0 ** (-t / k), 0.0, np.inf)
+    assert potential_groundwater_discharge_m3(q, k) == pytest.approx(integral, rel=1e-9)
+
+
+def test_displacement_volume_is_twice_the_change_in_potential_discharge():
+    # Rorabaugh (1964): R = 2 (Q2 − Q1) K / 2.3026, i.e. twice the change in V at Tc.
+    k, q1, q2 = 60.0, 1.0, 1.8
+    expected = 2.0 * (
+        potential_groundwater_discharge_m3(q2, k) - potential_groundwater_discharge_m3(q1, k)
+    )
+    assert displacement_recharge_m3(q1, q2, k) == pytest.approx(expected, rel=1e-12)
+    assert displacement_recharge_m3(q1, q2, k) == pytest.approx(
+        2 * 0.8 * 86400 * 60 / 2.3026, rel=1e-4
+    )
+
+
+def _sawtooth(k=40.0, days=1500, spacing=60, seed=3, noise=0.0):
+    """Exponential recessions with K, restarted by a jump every ``spacing`` days."""
+    rng = np.random.default_rng(seed)
+    q = np.empty(days)
+    level = 1.0
+    for i in range(days):
+        if i % spacing == 0:
+            level *= 4.0
+        q[i] = level
+        level *= 10.0 ** (-1.0 / k)
+    if noise:
+        q *= rng.lognormal(0.0, noise, days)
+    return pd.Series(q, index=pd.date_range("2001-01-01", periods=days, freq="D"))
+
+
+def test_segment_slopes_match_scipy_linregress():
+    flow = _sawtooth(noise=0.02)
+    x = log_flow(flow)
+    rises = find_rises(x, 2.0, 0.05)
+    segs = recession_segments(x, rises, 2.0, min_days=7)
+    assert len(segs) >= 20
+    for _, row in segs.head(5).iterrows():
+        days = np.arange(int(row["first"]), int(row["last"]) + 1)
+        ref = linregress(days, x[days])
+        assert row["slope"] == pytest.approx(ref.slope, rel=1e-9)
+        assert row["r2"] == pytest.approx(ref.rvalue**2, rel=1e-9)
+
+
+@pytest.mark.parametrize("k", [15.0, 40.0, 150.0])
+def test_recession_index_recovered_from_exact_recessions(k):
+    flow = _sawtooth(k=k, days=4000, spacing=int(max(2 * k, 30)))
+    x = log_flow(flow)
+    rises = find_rises(x, 2.0, 0.05)
+    est = estimate_recession_index(x, rises, 2.0)
+    assert est.days == pytest.approx(k, rel=1e-6)
+    assert est.segments_used == len(est.segments)
+
+
+def test_recession_index_with_noise_has_an_interval_around_it():
+    flow = _sawtooth(k=40.0, days=6000, noise=0.02)
+    x = log_flow(flow)
+    rises = find_rises(x, 2.0, 0.05)
+    est = estimate_recession_index(x, rises, 2.0)
+    assert est.days == pytest.approx(40.0, rel=0.05)
+    assert est.low <= est.days <= est.high
+    assert est.high - est.low < 0.2 * est.days
+
+
+def test_segments_never_cross_a_gap():
+    flow = _sawtooth(k=40.0)
+    flow.iloc[100:103] = np.nan
+    x = log_flow(flow)
+    rises = find_rises(x, 2.0, 0.05)
+    segs = recession_segments(x, rises, 2.0, min_days=3)
+    for _, row in segs.iterrows():
+        assert np.isfinite(x[int(row["first"]) : int(row["last"]) + 1]).all()
+
+
+def test_warnings_for_few_segments_and_unusual_k():
+    assert any("fewer than 10" in w for w in recession_warnings(40.0, 4))
+    assert any("outside the usual" in w for w in recession_warnings(500.0, 40))
+    assert recession_warnings(40.0, 40) == []
+    assert recession_warnings(40.0) == []  # a K the user gave has no segment count
