@@ -68,7 +68,13 @@ def gauge_id_text(values) -> np.ndarray:
         text = str(value).strip()
         return text or None
 
-    return np.array([one(v) for v in np.asarray(values, dtype=object)], dtype=object)
+    values = np.asarray(values, dtype=object)
+    if values.size == 0:
+        return values
+    # Ids repeat (one per day in a discharge table): clean each distinct value once.
+    codes, uniques = pd.factorize(pd.Series(values, dtype=object), use_na_sentinel=True)
+    cleaned = np.array([one(v) for v in uniques] + [None], dtype=object)
+    return cleaned[codes]
 
 
 def require_columns(table: pd.DataFrame, columns, what: str):

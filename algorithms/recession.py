@@ -194,19 +194,20 @@ def combine_segments(segments: pd.DataFrame, quantile=0.5, n_boot=400, seed=0):
     """Combine segment slopes into one K with a bootstrap interval.
 
     The combined slope is the length-weighted ``quantile`` of the segment slopes; K = −1/slope.
-    The interval is the 5–95 % range of that estimate over segments resampled with replacement.
+    The interval is the 5–95 % range of that estimate over segments resampled with replacement
+    (``n_boot`` resamples; 0 skips the interval).
     """
     seg = segments[np.isfinite(segments["slope"])]
     if seg.empty:
         return np.nan, np.nan, np.nan
     slopes = seg["slope"].to_numpy()
     weights = seg["days"].to_numpy(dtype=float)
-    k = _k_from(slopes, weights, quantile)
-    if slopes.size < 2:
+    k = float(_k_from(slopes[None, :], weights[None, :], quantile)[0])
+    if slopes.size < 2 or n_boot <= 0:
         return k, np.nan, np.nan
     rng = np.random.default_rng(seed)
     picks = rng.integers(0, slopes.size, size=(n_boot, slopes.size))
-    boot = np.array([_k_from(slopes[p], weights[p], quantile) for p in picks])
+    boot = _k_from(slopes[picks], weights[picks], quantile)
     boot = boot[np.isfinite(boot)]
     if boot.size == 0:
         return k, np.nan, np.nan
@@ -215,12 +216,16 @@ def combine_segments(segments: pd.DataFrame, quantile=0.5, n_boot=400, seed=0):
 
 
 def _k_from(slopes, weights, quantile):
-    order = np.argsort(slopes)
-    s, w = slopes[order], weights[order]
-    cum = np.cumsum(w) / w.sum()
+    """K from the weighted ``quantile`` of each row of ``slopes`` (rows are resamples)."""
+    order = np.argsort(slopes, axis=1)
+    s = np.take_along_axis(slopes, order, axis=1)
+    w = np.take_along_axis(weights, order, axis=1)
+    cum = np.cumsum(w, axis=1)
     # Slopes are negative; the slow end (large K) has the slopes nearest zero, at the top.
-    slope = s[min(np.searchsorted(cum, quantile), s.size - 1)]
-    return float(-1.0 / slope) if slope < 0 else np.nan
+    idx = (cum < quantile * cum[:, -1:]).sum(axis=1)
+    slope = s[np.arange(s.shape[0]), np.minimum(idx, s.shape[1] - 1)]
+    with np.errstate(divide="ignore"):
+        return np.where(slope < 0, -1.0 / slope, np.nan)
 
 
 def estimate_recession_index(
@@ -236,13 +241,13 @@ def estimate_recession_index(
     See :func:`recession_segments` and :func:`combine_segments`.
     """
     segs = recession_segments(logq, rises, lag_days, min_days)
-    k, low, high = combine_segments(segs, quantile, seed=seed)
+    k, low, high = combine_segments(segs, quantile, n_boot=0)
     if np.isfinite(k):
         later = max(float(lag_days), float(critical_time_days(k)))
         segs2 = recession_segments(logq, rises, later, min_days)
         if len(segs2) >= 2:
             segs = segs2
-            k, low, high = combine_segments(segs, quantile, seed=seed)
+    k, low, high = combine_segments(segs, quantile, seed=seed)
     used = int(np.isfinite(segs["slope"]).sum()) if len(segs) else 0
     return RecessionIndex(
         days=k,
