@@ -1,0 +1,276 @@
+"""Between QGIS feature sources and sinks and the pandas/geopandas objects the core works on.
+
+Reading: a ``QgsFeatureSource`` becomes a ``pandas.DataFrame`` (tables) or a
+``geopandas.GeoDataFrame`` (shapely geometries from WKB, the CRS from the source). Attribute
+values become plain Python: NULL becomes None, QDate a ``datetime.date``, QDateTime a
+``datetime.datetime``.
+
+Writing: a DataFrame becomes ``QgsFields`` (types from the column dtypes) and attribute rows
+(NaN and NaT become NULL).
+
+pandas, geopandas and shapely are imported inside the functions, so importing this module
+costs nothing when they are missing.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import math
+from dataclasses import dataclass, field
+
+from qgis.core import QgsFeature, QgsFeatureRequest, QgsField, QgsFields, QgsGeometry
+from qgis.PyQt.QtCore import QDate, QDateTime, QTime
+
+from . import compat
+
+#: Check the cancel button every this many features while reading.
+CHECK_EVERY = 5000
+
+
+@dataclass
+class LayerTable:
+    """One source read into memory.
+
+    Attributes
+    ----------
+    frame : pandas.DataFrame or geopandas.GeoDataFrame
+        One row per feature, in the source's order, index 0..n-1.
+    fields : QgsFields
+        The fields read, as the source defines them.
+    rows : list of list
+        The raw attribute values of each feature (QVariant and all), for writing them back as
+        they were.
+    geometries : list of QgsGeometry
+        The geometry of each feature when read with geometry, else empty.
+    """
+
+    frame: object
+    fields: QgsFields
+    rows: list = field(default_factory=list, repr=False)
+    geometries: list = field(default_factory=list, repr=False)
+
+
+def python_value(value):
+    """A QGIS attribute value as a plain Python value (NULL → None, QDate → date, ...)."""
+    if compat.is_null(value):
+        return None
+    if isinstance(value, QDateTime):
+        return value.toPyDateTime() if value.isValid() else None
+    if isinstance(value, QDate):
+        return value.toPyDate() if value.isValid() else None
+    if isinstance(value, QTime):
+        return value.toPyTime() if value.isValid() else None
+    return value
+
+
+def crs_text(source) -> str | None:
+    """The source's CRS for pyproj: the authority id when there is one, else WKT; None if unset."""
+    crs = source.sourceCrs()
+    if not crs.isValid():
+        return None
+    authid = crs.authid()
+    if authid.upper().startswith("EPSG:"):
+        return authid
+    return crs.toWkt(compat.CRS_WKT_PREFERRED)
+
+
+def _shapely(geometry):
+    from shapely import wkb
+
+    if geometry is None or geometry.isNull() or geometry.isEmpty():
+        return None
+    kind = geometry.wkbType()
+    if compat.is_curved(kind) or compat.has_m(kind):
+        geometry = QgsGeometry(geometry)
+        if compat.is_curved(kind):
+            geometry = QgsGeometry(geometry.constGet().segmentize())
+        if compat.has_m(geometry.wkbType()):
+            geometry.get().dropMValue()
+    return wkb.loads(bytes(geometry.asWkb()))
+
+
+def read_source(source, *, field_names=None, with_geometry=True, feedback=None, what="layer"):
+    """Read a feature source into a :class:`LayerTable`.
+
+    Parameters
+    ----------
+    source : QgsFeatureSource
+    field_names : list of str, optional
+        Read only these fields (all when None). Names the source lacks are ignored; check for
+        them first so the message can name them.
+    with_geometry : bool
+        Read geometries into a GeoDataFrame with the source's CRS; else a plain DataFrame.
+    feedback : QgsProcessingFeedback, optional
+        Checked for cancel while reading; returns None when cancelled.
+    what : str
+        Name of the layer in progress messages.
+    """
+    import pandas as pd
+
+    all_fields = source.fields()
+    if field_names is None:
+        indices = list(range(all_fields.count()))
+    else:
+        indices = [all_fields.lookupField(n) for n in field_names]
+        indices = [i for i in indices if i >= 0]
+    fields = QgsFields()
+    for i in indices:
+        fields.append(all_fields.at(i))
+    names = [all_fields.at(i).name() for i in indices]
+
+    request = QgsFeatureRequest()
+    if field_names is not None:
+        request.setSubsetOfAttributes(indices)
+    if not with_geometry:
+        request.setFlags(compat.REQUEST_NO_GEOMETRY)
+
+    columns = [[] for _ in indices]
+    rows, geometries = [], []
+    for n, feature in enumerate(source.getFeatures(request)):
+        if feedback is not None and n % CHECK_EVERY == 0 and feedback.isCanceled():
+            return None
+        attributes = feature.attributes()
+        values = [attributes[i] for i in indices]
+        rows.append(values)
+        for column, value in zip(columns, values):
+            column.append(python_value(value))
+        if with_geometry:
+            geometries.append(QgsGeometry(feature.geometry()))
+
+    data = {name: column for name, column in zip(names, columns)}
+    if not with_geometry:
+        return LayerTable(pd.DataFrame(data, columns=names), fields, rows)
+
+    import geopandas as gpd
+
+    geometry_name = "geometry"
+    while geometry_name in names:  # an attribute already has that name
+        geometry_name = "_" + geometry_name
+    frame = pd.DataFrame(data, columns=names)
+    frame[geometry_name] = gpd.GeoSeries([_shapely(g) for g in geometries], index=frame.index)
+    frame = gpd.GeoDataFrame(frame, geometry=geometry_name, crs=crs_text(source))
+    if feedback is not None:
+        feedback.pushDebugInfo(f"{what}: {len(frame)} features read")
+    return LayerTable(frame, fields, rows, geometries)
+
+
+# --------------------------------------------------------------------------- writing
+
+
+def _kind(series) -> str:
+    import pandas as pd
+
+    if pd.api.types.is_bool_dtype(series):
+        return "bool"
+    if pd.api.types.is_integer_dtype(series):
+        return "int64"
+    if pd.api.types.is_float_dtype(series):
+        return "double"
+    if pd.api.types.is_datetime64_any_dtype(series):
+        values = series.dropna()
+        if len(values) and not (values == values.dt.normalize()).all():
+            return "datetime"
+        return "date"
+    values = [v for v in series.tolist() if v is not None]
+    if values and all(isinstance(v, _dt.datetime) for v in values):
+        return "datetime"
+    if values and all(isinstance(v, _dt.date) for v in values):
+        return "date"
+    return "string"
+
+
+def qgs_field(name: str, kind: str) -> QgsField:
+    """A QgsField of one of the kinds in :data:`compat.FIELD_TYPES`."""
+    return QgsField(name, compat.FIELD_TYPES[kind])
+
+
+def _cell(value, kind):
+    if value is None:
+        return None
+    if kind == "double":
+        value = float(value)
+        return value if math.isfinite(value) else None
+    if isinstance(value, float) and math.isnan(value):
+        return None
+    if kind == "int64":
+        return int(value)
+    if kind == "bool":
+        return bool(value)
+    if kind in ("date", "datetime"):
+        import pandas as pd
+
+        if value is pd.NaT:
+            return None
+        stamp = pd.Timestamp(value)
+        date = QDate(stamp.year, stamp.month, stamp.day)
+        if kind == "date":
+            return date
+        return QDateTime(
+            date, QTime(stamp.hour, stamp.minute, stamp.second, stamp.microsecond // 1000)
+        )
+    return str(value)
+
+
+def _column_values(series, kind):
+    import pandas as pd
+
+    if kind in ("date", "datetime") and pd.api.types.is_datetime64_any_dtype(series):
+        values = [None if pd.isna(v) else v for v in series.tolist()]
+    else:
+        values = series.astype(object).where(series.notna(), None).tolist()
+    return [_cell(v, kind) for v in values]
+
+
+def frame_fields(frame, keep: LayerTable | None = None, keep_names=()):
+    """Fields and attribute rows for writing ``frame`` (its geometry column left out).
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame or geopandas.GeoDataFrame
+    keep : LayerTable, optional
+        The source the frame's rows came from, row for row. Columns named in ``keep_names`` that
+        the source has are written with the source's own field definition and raw values.
+    keep_names : iterable of str
+
+    Returns
+    -------
+    (QgsFields, list of list)
+    """
+    geometry_name = getattr(getattr(frame, "geometry", None), "name", None)
+    names = [c for c in frame.columns if c != geometry_name]
+    keep_names = set(keep_names)
+    fields = QgsFields()
+    columns = []
+    for name in names:
+        source_index = (
+            keep.fields.lookupField(name) if keep is not None and name in keep_names else -1
+        )
+        if source_index >= 0:
+            fields.append(keep.fields.at(source_index))
+            columns.append([row[source_index] for row in keep.rows])
+        else:
+            kind = _kind(frame[name])
+            fields.append(qgs_field(str(name), kind))
+            columns.append(_column_values(frame[name], kind))
+    rows = (
+        [list(values) for values in zip(*columns)] if columns else [[] for _ in range(len(frame))]
+    )
+    return fields, rows
+
+
+def write_rows(sink, fields, rows, geometries=None, batch=1000) -> bool:
+    """Add the rows (and geometries) to ``sink`` in batches; False if the sink refused any."""
+    features = []
+    for i, values in enumerate(rows):
+        feature = QgsFeature(fields)
+        feature.setAttributes(values)
+        if geometries is not None:
+            feature.setGeometry(geometries[i])
+        features.append(feature)
+        if len(features) >= batch:
+            if not sink.addFeatures(features, compat.SINK_FAST_INSERT):
+                return False
+            features = []
+    if features and not sink.addFeatures(features, compat.SINK_FAST_INSERT):
+        return False
+    return True
