@@ -1,0 +1,170 @@
+"""The plugin loads headless, registers its provider, and still loads when the scientific
+packages are missing, saying what to install."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import textwrap
+
+import pytest
+
+pytest.importorskip("qgis.core")
+
+from qgis.core import QgsApplication  # noqa: E402
+from support_qgis import PROCESSING_PLUGINS, QGIS_PYTHON, SAMPLE, subprocess_env  # noqa: E402
+
+
+def test_class_factory_without_iface_registers_and_unloads(qgis_app):
+    from recharge_atlas import classFactory
+
+    registry = QgsApplication.processingRegistry()
+    assert registry.providerById("recharge_atlas") is not None  # from the session fixture
+    plugin = classFactory(None)
+    plugin.initGui()  # a second registration of the same id is refused, not duplicated
+    assert plugin.provider is None
+    assert sum(p.id() == "recharge_atlas" for p in registry.providers()) == 1
+    plugin.unload()
+    assert registry.providerById("recharge_atlas") is not None
+
+
+def test_provider_lists_the_algorithm_with_its_icon(qgis_app):
+    provider = QgsApplication.processingRegistry().providerById("recharge_atlas")
+    assert provider.name() == "Recharge Atlas"
+    assert not provider.icon().isNull()
+    ids = [a.id() for a in provider.algorithms()]
+    assert ids == ["recharge_atlas:catchmentrecharge"]
+    alg = provider.algorithms()[0]
+    assert alg.displayName() == "Catchment recharge"
+    assert (alg.group(), alg.groupId()) == ("Recharge", "recharge")
+    assert alg.canExecute() == (True, "")
+
+
+def test_parameters_are_the_briefs(algorithm):
+    names = [p.name() for p in algorithm.parameterDefinitions()]
+    assert names == [
+        "GAUGES",
+        "GAUGE_ID_FIELD",
+        "DISCHARGE",
+        "DISCHARGE_GAUGE_FIELD",
+        "DATE_FIELD",
+        "VALUE_FIELD",
+        "CATCHMENTS",
+        "CATCHMENT_GAUGE_FIELD",
+        "UNITS",
+        "WATER_YEAR_START",
+        "OUTPUT",
+        "ANNUAL",
+        "EVENTS",
+    ]
+    units = algorithm.parameterDefinition("UNITS")
+    assert units.usesStaticStrings()
+    assert units.options() == ["m3/s", "L/s", "ft3/s", "ML/d"]
+    assert algorithm.parameterDefinition("WATER_YEAR_START").defaultValue() == 10
+    assert algorithm.parameterDefinition("GAUGE_ID_FIELD").defaultValue() == "gauge_id"
+    assert algorithm.parameterDefinition("GAUGE_ID_FIELD").parentLayerParameterName() == "GAUGES"
+    assert (
+        algorithm.parameterDefinition("CATCHMENT_GAUGE_FIELD").parentLayerParameterName()
+        == "CATCHMENTS"
+    )
+
+
+def test_fallback_unit_labels_equal_the_core():
+    from recharge_atlas.algorithms.units import DISCHARGE_UNITS, UNIT_ALIASES
+    from recharge_atlas.plugin import catchment_recharge
+
+    assert list(catchment_recharge._UNIT_LABELS) == list(DISCHARGE_UNITS)
+    assert catchment_recharge._UNIT_ALIASES == UNIT_ALIASES
+
+
+def test_compat_constants_are_enums_not_ints():
+    from recharge_atlas.plugin import compat
+
+    names = [n for n in dir(compat) if n.isupper() and not n.startswith("_") and n != "FIELD_TYPES"]
+    assert names
+    for name in names:
+        assert type(getattr(compat, name)) is not int, name
+    for kind, value in compat.FIELD_TYPES.items():
+        assert type(value) is not int, kind
+
+
+def test_dependency_message_names_packages_and_commands():
+    from recharge_atlas.plugin import dependencies
+
+    message = dependencies.install_message(["pandas", "pyproj"])
+    assert "pandas, pyproj" in message
+    assert (
+        "sudo apt install python3-pandas python3-geopandas python3-scipy python3-matplotlib python3-pyproj"
+        in message
+    )
+    assert "python -m pip install pandas geopandas scipy matplotlib pyproj" in message
+    assert dependencies.check() == (True, "")
+
+
+HIDDEN_PANDAS = textwrap.dedent(
+    """
+    import json, sys
+    sys.modules["pandas"] = None  # as if pandas were not installed
+    sys.path.append({processing!r})
+    from qgis.core import QgsApplication, QgsProcessingException
+    QgsApplication.setPrefixPath("/usr", True)
+    app = QgsApplication([], False, {profile!r})
+    app.initQgis()
+    import recharge_atlas
+    plugin = recharge_atlas.classFactory(None)
+    plugin.initProcessing()
+    registry = QgsApplication.processingRegistry()
+    alg = registry.algorithmById("recharge_atlas:catchmentrecharge")
+    ok, message = alg.canExecute()
+    from processing.core.Processing import Processing
+    Processing.initialize()
+    import processing
+    try:
+        processing.run("recharge_atlas:catchmentrecharge", {parameters!r})
+        run_error = None
+    except QgsProcessingException as exc:
+        run_error = str(exc)
+    print(json.dumps({{
+        "provider": registry.providerById("recharge_atlas") is not None,
+        "algorithm": alg is not None,
+        "ok": ok,
+        "message": message,
+        "run_error": run_error,
+    }}))
+    """
+)
+
+
+def test_plugin_loads_without_pandas_and_says_what_to_install(tmp_path):
+    """With pandas hidden the provider and algorithm still register; canExecute and a
+    headless run both give the install message."""
+    home = tmp_path / "home"
+    home.mkdir()
+    parameters = {
+        "GAUGES": str(SAMPLE / "gauges.gpkg"),
+        "DISCHARGE": str(SAMPLE / "discharge.csv"),
+        "CATCHMENTS": str(SAMPLE / "catchments.gpkg"),
+        "OUTPUT": str(tmp_path / "never.gpkg"),
+    }
+    script = tmp_path / "hidden_pandas.py"
+    script.write_text(
+        HIDDEN_PANDAS.format(
+            processing=str(PROCESSING_PLUGINS), profile=str(home / "profile"), parameters=parameters
+        )
+    )
+    done = subprocess.run(
+        [str(QGIS_PYTHON), str(script)],
+        env=subprocess_env(home, pythonpath=True),
+        capture_output=True,
+        text=True,
+        timeout=300,
+    )
+    assert done.returncode == 0, done.stderr[-3000:]
+    report = json.loads(done.stdout.strip().splitlines()[-1])
+    assert report["provider"] and report["algorithm"]
+    assert report["ok"] is False
+    assert "pandas" in report["message"] and "geopandas" in report["message"]
+    assert "sudo apt install python3-pandas" in report["message"]
+    assert "OSGeo4W" in report["message"]
+    assert report["run_error"] == report["message"]
+    assert not (tmp_path / "never.gpkg").exists()
