@@ -157,6 +157,25 @@ def test_catchments_without_a_gauge_are_kept_and_say_so(processing_run):
     assert all(math.isnan(_number(r["recharge_mm_per_year"])) for r in ungauged)
 
 
+def test_typed_table_layer_gives_the_same_numbers(qgis_app, core_result):
+    """DISCHARGE as a delimited-text layer with detected types (QDate dates, double values,
+    NULL for empty cells) gives the numbers of the text-only read."""
+    import processing
+
+    uri = f"file://{SAMPLE / 'discharge.csv'}?delimiter=,&detectTypes=yes&geomType=none"
+    table = QgsVectorLayer(uri, "discharge", "delimitedtext")
+    assert table.isValid()
+    assert table.fields().field("date").typeName().lower() == "date"
+    results = processing.run(
+        ALGORITHM, sample_parameters(DISCHARGE=table, OUTPUT="TEMPORARY_OUTPUT")
+    )
+    expected = core_result.catchments.set_index("name")
+    for row in _rows(results["OUTPUT"]):
+        want = expected.loc[row["name"]]
+        assert _same(_number(row["recharge_mm_per_year"]), float(want["recharge_mm_per_year"]))
+        assert _same(_number(row["recession_index_days"]), float(want["recession_index_days"]))
+
+
 # --------------------------------------------------------------------------- parameters
 
 CHECKS = [
@@ -271,6 +290,10 @@ def test_style_is_a_graduated_map_of_recharge(processing_run):
     assert all("mm/yr" in r.label() for r in ranges)
     lows = [r.lowerValue() for r in ranges]
     assert lows == sorted(lows)
+    values = [_number(f["recharge_mm_per_year"]) for f in layer.getFeatures()]
+    values = [v for v in values if not math.isnan(v)]
+    assert lows[0] == pytest.approx(min(values)), "catchments without an estimate are not class 0"
+    assert ranges[-1].upperValue() == pytest.approx(max(values))
     colours = [r.symbol().color().lightness() for r in ranges]
     assert colours[0] > colours[-1], "little recharge light, much recharge dark"
 
