@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 from functools import cache
 from pathlib import Path
 
@@ -15,12 +16,17 @@ HELP_DIR = Path(__file__).resolve().parent / "help"
 
 @cache
 def help_text(name: str) -> str:
-    """The HTML help of algorithm ``name`` from ``plugin/help/<name>.html`` ("" when absent)."""
+    """The HTML help of algorithm ``name`` from ``plugin/help/<name>.html`` ("" when absent).
+
+    Line breaks are folded into spaces: the Processing dialog shows each one as a new line,
+    while the file keeps short lines for reading and review.
+    """
     path = HELP_DIR / f"{name}.html"
     try:
-        return path.read_text(encoding="utf-8")
+        text = path.read_text(encoding="utf-8")
     except OSError:
         return ""
+    return re.sub(r"\s*\n\s*", " ", text).strip()
 
 
 class RechargeAtlasAlgorithm(QgsProcessingAlgorithm):

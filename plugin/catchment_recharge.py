@@ -92,7 +92,7 @@ class CatchmentRecharge(RechargeAtlasAlgorithm):
         self.addParameter(
             QgsProcessingParameterField(
                 self.GAUGE_ID_FIELD,
-                self.tr("Gauge id field (empty: gauge_id)"),
+                self.tr("Gauge id field"),
                 defaultValue="gauge_id",
                 parentLayerParameterName=self.GAUGES,
                 type=compat.FIELD_ANY,
@@ -102,16 +102,14 @@ class CatchmentRecharge(RechargeAtlasAlgorithm):
         self.addParameter(
             QgsProcessingParameterFeatureSource(
                 self.DISCHARGE,
-                self.tr("Daily discharge table (one row per gauge and day)"),
+                self.tr("Daily discharge table"),
                 [compat.SOURCE_VECTOR],
             )
         )
         self.addParameter(
             QgsProcessingParameterField(
                 self.DISCHARGE_GAUGE_FIELD,
-                self.tr(
-                    "Gauge id field of the discharge table (empty: same name as the gauge id field)"
-                ),
+                self.tr("Gauge id field in the discharge table"),
                 defaultValue="gauge_id",
                 parentLayerParameterName=self.DISCHARGE,
                 type=compat.FIELD_ANY,
@@ -121,7 +119,7 @@ class CatchmentRecharge(RechargeAtlasAlgorithm):
         self.addParameter(
             QgsProcessingParameterField(
                 self.DATE_FIELD,
-                self.tr("Date field (empty: date)"),
+                self.tr("Date field"),
                 defaultValue="date",
                 parentLayerParameterName=self.DISCHARGE,
                 type=compat.FIELD_ANY,
@@ -131,7 +129,7 @@ class CatchmentRecharge(RechargeAtlasAlgorithm):
         self.addParameter(
             QgsProcessingParameterField(
                 self.VALUE_FIELD,
-                self.tr("Discharge field (empty: discharge)"),
+                self.tr("Discharge field"),
                 defaultValue="discharge",
                 parentLayerParameterName=self.DISCHARGE,
                 type=compat.FIELD_ANY,
@@ -141,16 +139,14 @@ class CatchmentRecharge(RechargeAtlasAlgorithm):
         self.addParameter(
             QgsProcessingParameterFeatureSource(
                 self.CATCHMENTS,
-                self.tr("Catchments (drainage area of each gauge)"),
+                self.tr("Catchments"),
                 [compat.SOURCE_POLYGON],
             )
         )
         self.addParameter(
             QgsProcessingParameterField(
                 self.CATCHMENT_GAUGE_FIELD,
-                self.tr(
-                    "Gauge id field of the catchments (empty: same name as the gauge id field)"
-                ),
+                self.tr("Gauge id field in the catchments"),
                 parentLayerParameterName=self.CATCHMENTS,
                 type=compat.FIELD_ANY,
                 optional=True,
@@ -168,7 +164,7 @@ class CatchmentRecharge(RechargeAtlasAlgorithm):
         self.addParameter(
             QgsProcessingParameterNumber(
                 self.WATER_YEAR_START,
-                self.tr("First month of the water year (1-12)"),
+                self.tr("Water year starts in month"),
                 type=compat.NUMBER_INTEGER,
                 defaultValue=10,
                 minValue=1,
