@@ -349,15 +349,20 @@ class CatchmentRecharge(RechargeAtlasAlgorithm):
         check(discharge, wanted, "discharge table")
 
         tables = {}
-        steps = (
-            ("gauges", gauges, None, True),
-            ("catchments", catchments, None, True),
-            ("discharge", discharge, wanted, False),
+        steps = (  # what, source, fields (None: all), with geometry, keep raw rows
+            ("gauges", gauges, None, True, False),
+            ("catchments", catchments, None, True, True),
+            ("discharge", discharge, wanted, False, False),
         )
-        for n, (what, source, names, with_geometry) in enumerate(steps):
+        for n, (what, source, names, with_geometry, keep_rows) in enumerate(steps):
             feedback.setProgressText(self.tr("Reading the {}").format(what))
             table = conversion.read_source(
-                source, field_names=names, with_geometry=with_geometry, feedback=feedback, what=what
+                source,
+                field_names=names,
+                with_geometry=with_geometry,
+                keep_rows=keep_rows,
+                feedback=feedback,
+                what=what,
             )
             if table is None or feedback.isCanceled():
                 from ..algorithms.errors import Cancelled

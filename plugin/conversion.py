@@ -36,10 +36,10 @@ class LayerTable:
     frame : pandas.DataFrame or geopandas.GeoDataFrame
         One row per feature, in the source's order, index 0..n-1.
     fields : QgsFields
-        The fields read, as the source defines them.
+        All the source's fields, as it defines them (``frame`` may hold only some).
     rows : list of list
-        The raw attribute values of each feature (QVariant and all), for writing them back as
-        they were.
+        When asked for, the raw attribute values of each feature (QVariant and all, one per
+        field of ``fields``), for writing them back as they were.
     geometries : list of QgsGeometry
         The geometry of each feature when read with geometry, else empty.
     """
@@ -50,8 +50,14 @@ class LayerTable:
     geometries: list = field(default_factory=list, repr=False)
 
 
+#: Attribute types that need no conversion (the common case, checked first for speed).
+_PLAIN_TYPES = frozenset({str, float, int, bool})
+
+
 def python_value(value):
     """A QGIS attribute value as a plain Python value (NULL → None, QDate → date, ...)."""
+    if type(value) in _PLAIN_TYPES:
+        return value
     if compat.is_null(value):
         return None
     if isinstance(value, QDateTime):
@@ -89,7 +95,9 @@ def _shapely(geometry):
     return wkb.loads(bytes(geometry.asWkb()))
 
 
-def read_source(source, *, field_names=None, with_geometry=True, feedback=None, what="layer"):
+def read_source(
+    source, *, field_names=None, with_geometry=True, keep_rows=False, feedback=None, what="layer"
+):
     """Read a feature source into a :class:`LayerTable`.
 
     Parameters
@@ -100,23 +108,21 @@ def read_source(source, *, field_names=None, with_geometry=True, feedback=None, 
         them first so the message can name them.
     with_geometry : bool
         Read geometries into a GeoDataFrame with the source's CRS; else a plain DataFrame.
+    keep_rows : bool
+        Keep each feature's raw attribute values (``LayerTable.rows``) for writing them back.
     feedback : QgsProcessingFeedback, optional
         Checked for cancel while reading; returns None when cancelled.
     what : str
-        Name of the layer in progress messages.
+        Name of the layer in debug messages.
     """
     import pandas as pd
 
-    all_fields = source.fields()
+    fields = source.fields()
     if field_names is None:
-        indices = list(range(all_fields.count()))
+        indices = list(range(fields.count()))
     else:
-        indices = [all_fields.lookupField(n) for n in field_names]
-        indices = [i for i in indices if i >= 0]
-    fields = QgsFields()
-    for i in indices:
-        fields.append(all_fields.at(i))
-    names = [all_fields.at(i).name() for i in indices]
+        indices = [i for i in (fields.lookupField(n) for n in field_names) if i >= 0]
+    names = [fields.at(i).name() for i in indices]
 
     request = QgsFeatureRequest()
     if field_names is not None:
@@ -124,33 +130,30 @@ def read_source(source, *, field_names=None, with_geometry=True, feedback=None, 
     if not with_geometry:
         request.setFlags(compat.REQUEST_NO_GEOMETRY)
 
-    columns = [[] for _ in indices]
-    rows, geometries = [], []
+    records, geometries = [], []
     for n, feature in enumerate(source.getFeatures(request)):
         if feedback is not None and n % CHECK_EVERY == 0 and feedback.isCanceled():
             return None
-        attributes = feature.attributes()
-        values = [attributes[i] for i in indices]
-        rows.append(values)
-        for column, value in zip(columns, values):
-            column.append(python_value(value))
+        records.append(feature.attributes())
         if with_geometry:
             geometries.append(QgsGeometry(feature.geometry()))
 
-    data = {name: column for name, column in zip(names, columns)}
+    columns = list(zip(*records)) if records else [()] * fields.count()
+    data = {name: [python_value(v) for v in columns[i]] for name, i in zip(names, indices)}
+    frame = pd.DataFrame(data, columns=names)
+    rows = records if keep_rows else []
+    if feedback is not None:
+        feedback.pushDebugInfo(f"{what}: {len(frame)} features read")
     if not with_geometry:
-        return LayerTable(pd.DataFrame(data, columns=names), fields, rows)
+        return LayerTable(frame, fields, rows)
 
     import geopandas as gpd
 
     geometry_name = "geometry"
     while geometry_name in names:  # an attribute already has that name
         geometry_name = "_" + geometry_name
-    frame = pd.DataFrame(data, columns=names)
     frame[geometry_name] = gpd.GeoSeries([_shapely(g) for g in geometries], index=frame.index)
     frame = gpd.GeoDataFrame(frame, geometry=geometry_name, crs=crs_text(source))
-    if feedback is not None:
-        feedback.pushDebugInfo(f"{what}: {len(frame)} features read")
     return LayerTable(frame, fields, rows, geometries)
 
 
