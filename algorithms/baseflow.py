@@ -107,7 +107,8 @@ def eckhardt(flow, recession_index_days, bfi_max=0.80):
     Notes
     -----
     ``b_t = [(1 − BFImax) a b_{t−1} + (1 − a) BFImax Q_t] / (1 − a BFImax)`` with ``b_t ≤ Q_t``,
-    and ``a = 10^(−1/K)`` from the recession index. The filter starts with ``b_0 = Q_0``.
+    and ``a = 10^(−1/K)`` from the recession index. The filter starts from the lowest flow of
+    the first five days.
 
     Examples
     --------
@@ -125,9 +126,20 @@ def eckhardt(flow, recession_index_days, bfi_max=0.80):
     def one(q):
         # With b_{t} = Q_t, b_{t+1} passes Q_{t+1} exactly when c1 Q_t + c0 Q_{t+1} > Q_{t+1}.
         keeps = np.r_[c1 * q[:-1] > (1.0 - c0) * q[1:], False]
-        return _recursion_with_limit(c0, c1, q, q[0], q, lambda y, lim: y > lim, keeps)
+        return _recursion_with_limit(
+            c0, c1, q, _starting_baseflow(q), q, lambda y, lim: y > lim, keeps
+        )
 
     return _by_block(flow, one)
+
+
+#: The filters start from the lowest flow of the first days (our own rule): a record that
+#: begins during a storm would otherwise start with all of the storm counted as baseflow.
+START_DAYS = 5
+
+
+def _starting_baseflow(q):
+    return float(np.min(q[:START_DAYS]))
 
 
 def _lyne_hollick_pass(q, alpha):
@@ -140,8 +152,9 @@ def _lyne_hollick_pass(q, alpha):
     zero = np.zeros(n)
     # Lower limit f ≥ 0 (baseflow ≤ flow): with f_t = 0, f_{t+1} < 0 while the flow falls.
     keeps_low = np.r_[dq[1:] < 0, False]
+    f_first = q[0] - _starting_baseflow(q)
     f = _recursion_with_limit(
-        (1.0 + alpha) / 2.0, alpha, x, 0.0, zero, lambda y, lim: y < lim, keeps_low
+        (1.0 + alpha) / 2.0, alpha, x, f_first, zero, lambda y, lim: y < lim, keeps_low
     )
     # Upper limit f ≤ Q (baseflow ≥ 0) rarely binds; clip it where it does.
     f = np.minimum(f, q)
@@ -155,7 +168,8 @@ def lyne_hollick(flow, alpha=LYNE_HOLLICK_ALPHA, passes=3):
     -----
     Each pass: ``f_t = α f_{t−1} + (1 + α)/2 (Q_t − Q_{t−1})``, baseflow ``b_t = Q_t − f_t`` with
     ``0 ≤ b_t ≤ Q_t``; the next pass filters the previous pass's baseflow in the other direction.
-    Each pass starts with ``f_0 = 0``.
+    Each pass starts with its quickflow at the first day's flow minus the lowest flow of the
+    first five days.
     """
 
     def one(q):

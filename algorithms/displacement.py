@@ -119,7 +119,10 @@ def event_displacements(
         note[fresh] = text
         used[fresh] = False
 
-    refuse(rises.start_in_gap, "rise begins in or just after a gap: pre-event anchor unknown")
+    refuse(
+        rises.start_in_gap,
+        "rise begins less than N days after a gap or the record start: pre-event anchor unsure",
+    )
     refuse(rises.peak_at_gap, "record stops during the rise: peak unknown")
     refuse(~has_post, "no clean day on the recession after the peak")
     refuse(pre_span > max_extrapolation_days, "pre-event extrapolation longer than the limit")

@@ -117,19 +117,39 @@ def atomic_path(target):
                 os.unlink(leftover)
 
 
-def write_geopackage(result, path):
-    """Write a run's results as one GeoPackage: layer ``catchments``, tables ``annual``, ``events``."""
+#: Tables of a run's GeoPackage: name, result attribute, description.
+RESULT_TABLES = (
+    ("annual", "annual", "Recharge, baseflow and storage change by gauge and water year"),
+    ("events", "events", "Recharge of each event by recession-curve displacement"),
+    ("periods", "periods", "Recharge by gauge and month or season"),
+    ("segments", "segments", "Recession segments behind each recession index"),
+    (
+        "master_recession",
+        "master_recession",
+        "Recession index by flow level (master recession curve)",
+    ),
+)
+
+
+def write_geopackage(result, path, daily=False):
+    """Write a run's results as one GeoPackage.
+
+    Layer ``catchments``; tables ``annual``, ``events``, ``periods``, ``segments`` and
+    ``master_recession``; with ``daily=True`` also ``daily`` (flow and baseflow of every day).
+    """
     with atomic_path(path) as temp:
         result.catchments.to_file(temp, layer="catchments", driver="GPKG")
-        with sqlite3.connect(temp) as db:
-            add_attribute_table(db, "annual", result.annual, "Recharge by gauge and water year")
-            add_attribute_table(
-                db,
-                "events",
-                result.events,
-                "Recharge of each event by recession-curve displacement",
-            )
-        db.close()
+        db = sqlite3.connect(temp)
+        try:
+            with db:
+                for name, attribute, description in RESULT_TABLES:
+                    add_attribute_table(db, name, getattr(result, attribute), description)
+                if daily:
+                    add_attribute_table(
+                        db, "daily", result.daily(), "Daily flow and baseflow by gauge"
+                    )
+        finally:
+            db.close()
     return Path(path)
 
 

@@ -1,9 +1,9 @@
 """The one pipeline behind the command line and every Processing algorithm.
 
 ``run_atlas`` takes the gauges, the catchments and the long discharge table as pandas/geopandas
-objects, and returns an :class:`AtlasResult` with the catchments layer, the annual table and
-the event table. The CLI and the QGIS plugin are thin shells around it, so both give the same
-numbers.
+objects, and returns an :class:`AtlasResult` with the catchments layer and the tables. The CLI
+and the QGIS plugin are thin shells around it, so both give the same numbers. The work for one
+gauge is :func:`gauge_hydrology`.
 """
 
 from __future__ import annotations
@@ -15,21 +15,23 @@ import numpy as np
 import pandas as pd
 
 from . import annual as annual_mod
+from .baseflow import BFIMAX_TYPICAL, METHODS, baseflow_index, separate_baseflow
 from .basins import geodesic_area_km2, link_by_id
-from .discharge import GaugeRecord, gauge_id_text, require_columns, tidy_discharge
+from .discharge import MIN_DAY_COVERAGE, GaugeRecord, gauge_id_text, require_columns, tidy_discharge
 from .displacement import event_displacements
 from .errors import Cancelled, InputError
 from .recession import (
     RecessionIndex,
     critical_time_days,
     estimate_recession_index,
+    master_recession,
     recession_warnings,
     runoff_end_lag_days,
 )
 from .rises import find_rises, log_flow, rise_threshold
 from .units import canonical_units
 
-#: Fields added to the catchments layer, in order.
+#: Fields added to the catchments layer, in order. Later versions add; they never rename.
 CATCHMENT_FIELDS = [
     "gauge_id",
     "area_km2",
@@ -40,11 +42,23 @@ CATCHMENT_FIELDS = [
     "critical_time_days",
     "runoff_end_lag_days",
     "recharge_mm_per_year",
+    "recharge_mm_per_year_low",
+    "recharge_mm_per_year_high",
     "recharge_m3_per_year",
+    "baseflow_index",
+    "baseflow_mm_per_year",
+    "seasonal_recharge_mm_per_year",
     "complete_years",
     "events",
     "quality",
 ]
+
+#: Drainage areas the method is commonly applied to, km² (common practice, not a published limit).
+USUAL_AREA_KM2 = (3.0, 1300.0)
+#: Below this baseflow index a stream is too flashy for the method (common practice).
+FLASHY_BASEFLOW_INDEX = 0.4
+#: Fewer measured events than this in the whole record is flagged (our own rule).
+FEW_EVENTS = 10
 
 
 @dataclass
@@ -63,10 +77,27 @@ class Settings:
         Fields of the discharge table (the gauge field defaults to ``gauge_id_field``).
     catchment_gauge_field : str
         Field of the catchments layer holding the gauge id (defaults to ``gauge_id_field``).
+    flag_field : str or None
+        Quality-code field of the discharge table; flagged days are not used by the method.
+    flag_values : list of str or None
+        Codes that flag a day (None: any non-empty code).
+    min_day_coverage : float
+        Share of a day's sub-daily values needed for its daily mean.
+    runoff_end_lag_days : float or None
+        Days after a peak when surface runoff has ended; None derives it from the area.
     min_segment_days : int
         Shortest recession segment used for the recession index.
     recession_index_days : float or None
         Use this K for every gauge instead of estimating it.
+    recession_index_field : str or None
+        Field of the gauges layer giving K per gauge (empty values: estimate).
+    baseflow_method : str
+        ``eckhardt`` (default), ``lyne_hollick`` or ``smoothed_minima``.
+    bfi_max : float
+        BFImax of the Eckhardt filter (0.80 perennial/porous, 0.50 ephemeral/porous,
+        0.25 perennial/hard rock; Eckhardt 2005).
+    period : str
+        Sub-annual sums: ``month`` or ``season``.
     min_complete_years : int
         Fewer complete water years than this is flagged in ``quality``.
     """
@@ -78,34 +109,75 @@ class Settings:
     date_field: str = "date"
     value_field: str = "discharge"
     catchment_gauge_field: str | None = None
+    flag_field: str | None = None
+    flag_values: list | None = None
+    min_day_coverage: float = MIN_DAY_COVERAGE
+    runoff_end_lag_days: float | None = None
     min_segment_days: int = 7
     recession_index_days: float | None = None
+    recession_index_field: str | None = None
+    baseflow_method: str = "eckhardt"
+    bfi_max: float = BFIMAX_TYPICAL["perennial stream, porous aquifer"]
+    period: str = "month"
     min_complete_years: int = 5
 
     def resolved(self) -> Settings:
-        """A copy with defaults filled in and values checked."""
+        """A copy with defaults filled in and values checked (raises :class:`InputError`)."""
         units = canonical_units(self.units)
-        try:
-            month = int(self.water_year_start)
-        except (TypeError, ValueError):
-            month = 0
-        if not 1 <= month <= 12 or float(self.water_year_start) != month:
+        month = _whole_number(self.water_year_start)
+        if month is None or not 1 <= month <= 12:
             raise InputError(
                 f"water year start was {self.water_year_start!r}; expected a month number 1 to 12"
             )
-        if self.recession_index_days is not None and not (
-            math.isfinite(float(self.recession_index_days)) and float(self.recession_index_days) > 0
-        ):
+        for name in ("recession_index_days", "runoff_end_lag_days"):
+            value = getattr(self, name)
+            if value is not None and not _positive(value):
+                raise InputError(
+                    f"{name.replace('_', ' ')} was {value!r}; expected a positive number of days"
+                )
+        min_days = _whole_number(self.min_segment_days)
+        if min_days is None or min_days < 2:
             raise InputError(
-                f"recession index was {self.recession_index_days!r}; expected a positive number of days"
+                f"minimum segment length was {self.min_segment_days!r}; expected a whole number of days, 2 or more"
             )
+        if self.baseflow_method not in METHODS:
+            raise InputError(
+                f"baseflow method was {self.baseflow_method!r}; expected one of {list(METHODS)}"
+            )
+        if not (_positive(self.bfi_max) and float(self.bfi_max) < 1.0):
+            raise InputError(f"BFImax was {self.bfi_max!r}; expected a number between 0 and 1")
+        if self.period not in ("month", "season"):
+            raise InputError(f"period was {self.period!r}; expected 'month' or 'season'")
+        flags = self.flag_values
+        if isinstance(flags, str):
+            flags = [v.strip() for v in flags.split(",") if v.strip()] or None
         return replace(
             self,
             units=units,
             water_year_start=month,
+            min_segment_days=min_days,
             discharge_gauge_field=self.discharge_gauge_field or self.gauge_id_field,
             catchment_gauge_field=self.catchment_gauge_field or self.gauge_id_field,
+            flag_field=self.flag_field or None,
+            flag_values=flags,
+            recession_index_field=self.recession_index_field or None,
         )
+
+
+def _whole_number(value):
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        return None
+    return int(number) if math.isfinite(number) and number == int(number) else None
+
+
+def _positive(value):
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        return False
+    return math.isfinite(number) and number > 0
 
 
 class Reporter:
@@ -143,12 +215,21 @@ class GaugeResult:
     rise_threshold : float
         Smallest rise treated as an event, log10 units.
     recession : RecessionIndex
+        K with its interval, segments and warnings.
     events : pandas.DataFrame
         One row per event (see :mod:`displacement`), with ``recharge_mm``.
     annual : pandas.DataFrame
-        One row per water year.
+        One row per water year (see :data:`annual.ANNUAL_COLUMNS`).
+    periods : pandas.DataFrame
+        Recharge by month or season.
+    master_recession : pandas.DataFrame
+        K by flow level.
+    baseflow : pandas.Series
+        Daily baseflow (m³/s) by the chosen method.
+    baseflow_index : float
     recharge_mm_per_year, recharge_m3_per_year : float
-        Means over complete water years.
+        Means over complete water years; ``recharge_mm_per_year_low``/``_high`` from the K
+        interval.
     complete_years : int
     quality : list of str
         Problems in words; empty when all is well.
@@ -161,14 +242,34 @@ class GaugeResult:
     recession: RecessionIndex | None = None
     events: pd.DataFrame = field(default_factory=pd.DataFrame, repr=False)
     annual: pd.DataFrame = field(default_factory=pd.DataFrame, repr=False)
+    periods: pd.DataFrame = field(default_factory=pd.DataFrame, repr=False)
+    master_recession: pd.DataFrame = field(default_factory=pd.DataFrame, repr=False)
+    baseflow: pd.Series | None = field(default=None, repr=False)
+    flow: pd.Series | None = field(default=None, repr=False)
+    baseflow_index: float = np.nan
     recharge_mm_per_year: float = np.nan
+    recharge_mm_per_year_low: float = np.nan
+    recharge_mm_per_year_high: float = np.nan
     recharge_m3_per_year: float = np.nan
+    baseflow_mm_per_year: float = np.nan
+    seasonal_recharge_mm_per_year: float = np.nan
     complete_years: int = 0
     quality: list = field(default_factory=list)
 
     @property
     def quality_text(self) -> str:
         return "; ".join(self.quality) if self.quality else "ok"
+
+    @property
+    def segments(self) -> pd.DataFrame:
+        """Recession segments with dates, for diagnostics."""
+        if self.recession is None or self.flow is None or not len(self.recession.segments):
+            return pd.DataFrame()
+        seg = self.recession.segments.copy()
+        index = self.flow.index
+        seg.insert(0, "first_date", index[seg["first"].to_numpy(int)])
+        seg.insert(1, "last_date", index[seg["last"].to_numpy(int)])
+        return seg.drop(columns=["first", "last"])
 
 
 @dataclass
@@ -183,6 +284,12 @@ class AtlasResult:
         One row per gauge and water year.
     events : pandas.DataFrame
         One row per gauge and event.
+    periods : pandas.DataFrame
+        One row per gauge and month (or season).
+    segments : pandas.DataFrame
+        One row per gauge and recession segment.
+    master_recession : pandas.DataFrame
+        One row per gauge and flow class.
     gauges : dict of str to GaugeResult
     summary : dict
         Counts of gauges computed, flagged and failed.
@@ -193,6 +300,31 @@ class AtlasResult:
     events: pd.DataFrame
     gauges: dict
     summary: dict
+    periods: pd.DataFrame = field(default_factory=pd.DataFrame)
+    segments: pd.DataFrame = field(default_factory=pd.DataFrame)
+    master_recession: pd.DataFrame = field(default_factory=pd.DataFrame)
+
+    def daily(self) -> pd.DataFrame:
+        """Daily flow and baseflow of every gauge: ``gauge_id, date, discharge_m3s, baseflow_m3s``."""
+        frames = []
+        for gid, result in self.gauges.items():
+            if result.flow is None or result.baseflow is None:
+                continue
+            frames.append(
+                pd.DataFrame(
+                    {
+                        "gauge_id": gid,
+                        "date": result.flow.index,
+                        "discharge_m3s": result.flow.to_numpy(),
+                        "baseflow_m3s": result.baseflow.to_numpy(),
+                    }
+                )
+            )
+        if not frames:
+            return pd.DataFrame(
+                {c: [] for c in ("gauge_id", "date", "discharge_m3s", "baseflow_m3s")}
+            )
+        return pd.concat(frames, ignore_index=True)
 
     def __repr__(self):
         s = self.summary
@@ -203,54 +335,111 @@ class AtlasResult:
         )
 
 
-def gauge_hydrology(record: GaugeRecord, area_km2: float, settings: Settings) -> GaugeResult:
-    """Recession index, events, displacement and water-year sums for one gauge.
+def gauge_hydrology(
+    record: GaugeRecord, area_km2: float, settings: Settings, recession_index_days=None
+) -> GaugeResult:
+    """Recession index, events, displacement, baseflow and water-year terms for one gauge.
 
-    ``area_km2`` sets the runoff-end lag and turns volumes into depths; with NaN the volumes
-    are still computed (the lag then defaults to that of a 100 km² basin and is flagged).
+    Parameters
+    ----------
+    record : GaugeRecord
+        The gauge's daily record.
+    area_km2 : float
+        Drainage area: sets the runoff-end lag and turns volumes into depths. With NaN the
+        volumes are still computed (the lag then defaults to that of a 100 km² basin).
+    settings : Settings
+    recession_index_days : float, optional
+        K for this gauge (overrides ``settings.recession_index_days``).
     """
     settings = settings.resolved()
     result = GaugeResult(record.gauge_id, float(area_km2))
     flow = record.flow
+    result.flow = flow
     quality = result.quality
     if flow.empty or record.days_with_value == 0:
         quality.append("no usable discharge values")
         return result
-    has_area = np.isfinite(area_km2) and area_km2 > 0
-    lag = float(runoff_end_lag_days(area_km2 if has_area else 100.0))
-    x = log_flow(flow.to_numpy())
+    has_area = bool(np.isfinite(area_km2) and area_km2 > 0)
+    area = float(area_km2) if has_area else np.nan
+    if settings.runoff_end_lag_days is not None:
+        lag = float(settings.runoff_end_lag_days)
+    else:
+        lag = float(runoff_end_lag_days(area if has_area else 100.0))
+    # Flagged days stay in the flow (and the baseflow) but the method does not use them.
+    usable = flow.where(~record.flagged.to_numpy())
+    x = log_flow(usable.to_numpy())
     threshold = rise_threshold(x)
     rises = find_rises(x, lag, threshold)
     result.lag_days, result.rise_threshold = lag, threshold
 
-    if settings.recession_index_days is not None:
-        k = float(settings.recession_index_days)
+    given = (
+        recession_index_days if recession_index_days is not None else settings.recession_index_days
+    )
+    if given is not None:
+        k = float(given)
         recession = RecessionIndex(
             k, np.nan, np.nan, 0, source="given", warnings=recession_warnings(k)
         )
     else:
         recession = estimate_recession_index(x, rises, lag, settings.min_segment_days)
     result.recession = recession
+    result.master_recession = (
+        master_recession(recession.segments) if len(recession.segments) else pd.DataFrame()
+    )
     quality.extend(recession.warnings)
+    k = recession.days
 
-    events = event_displacements(flow, x, rises, recession.days, lag)
+    def events_at(k_days):
+        if not np.isfinite(k_days):
+            return None
+        return event_displacements(usable, x, rises, k_days, lag)
+
+    events = event_displacements(usable, x, rises, k, lag)
     events.insert(0, "event", np.arange(1, len(events) + 1))
-    events["recharge_mm"] = events["recharge_m3"] / (area_km2 * 1e3) if has_area else np.nan
+    events["recharge_mm"] = events["recharge_m3"] / (area * 1e3) if has_area else np.nan
     result.events = events
+
+    if np.isfinite(k):
+        baseflow = separate_baseflow(flow.to_numpy(), settings.baseflow_method, k, settings.bfi_max)
+    elif settings.baseflow_method != "eckhardt":
+        baseflow = separate_baseflow(flow.to_numpy(), settings.baseflow_method)
+    else:
+        baseflow = np.full(flow.size, np.nan)
+    result.baseflow = pd.Series(baseflow, index=flow.index, name="baseflow_m3s")
+    result.baseflow_index = baseflow_index(flow.to_numpy(), baseflow)
+
     annual = annual_mod.annual_recharge(
-        flow, events, area_km2 if has_area else np.nan, settings.water_year_start
+        flow,
+        events,
+        area,
+        settings.water_year_start,
+        baseflow=baseflow,
+        recession_index_days=k if np.isfinite(k) else None,
+        events_low=events_at(recession.low),
+        events_high=events_at(recession.high),
     )
     result.annual = annual
-    result.complete_years = int(annual["complete"].sum()) if len(annual) else 0
-    result.recharge_m3_per_year = annual_mod.mean_annual(annual, "recharge_m3")
-    result.recharge_mm_per_year = (
-        annual_mod.mean_annual(annual, "recharge_mm") if has_area else np.nan
+    result.periods = annual_mod.period_recharge(
+        flow, events, area, settings.period, settings.water_year_start
     )
+    result.complete_years = int(annual["complete"].sum()) if len(annual) else 0
+    mean = annual_mod.mean_annual
+    result.recharge_m3_per_year = mean(annual, "recharge_m3")
+    result.recharge_mm_per_year = mean(annual, "recharge_mm")
+    # Recharge from the two ends of the K interval, smaller first (either end may give either).
+    ends = sorted(
+        [mean(annual, "recharge_low_mm"), mean(annual, "recharge_high_mm")],
+        key=lambda v: (np.isnan(v), v),
+    )
+    result.recharge_mm_per_year_low, result.recharge_mm_per_year_high = ends
+    result.baseflow_mm_per_year = mean(annual, "baseflow_mm")
+    result.seasonal_recharge_mm_per_year = mean(annual, "seasonal_recharge_mm")
     quality.extend(_record_quality(record, result, settings))
     return result
 
 
 def _record_quality(record: GaugeRecord, result: GaugeResult, settings: Settings):
+    """Plain-language cautions about a gauge's record and the method's fit to it."""
     notes = []
     missing_share = 1.0 - record.days_with_value / max(record.days, 1)
     if missing_share > 0.05:
@@ -262,11 +451,46 @@ def _record_quality(record: GaugeRecord, result: GaugeResult, settings: Settings
             f"only {result.complete_years} complete water years (fewer than {settings.min_complete_years})"
         )
     events = result.events
+    used = int(events["used"].sum()) if len(events) else 0
     if len(events):
-        skipped = int((~events["used"].astype(bool)).sum())
+        skipped = len(events) - used
         if skipped > 0.1 * len(events):
             notes.append(f"{skipped} of {len(events)} events could not be measured")
+    if used < FEW_EVENTS:
+        notes.append(f"only {used} events measured (fewer than {FEW_EVENTS})")
+    lo, hi = USUAL_AREA_KM2
+    if np.isfinite(result.area_km2) and not lo <= result.area_km2 <= hi:
+        notes.append(
+            f"drainage area {result.area_km2:,.0f} km² is outside the {lo:,.0f}–{hi:,.0f} km² the method is usually applied to"
+        )
+    if np.isfinite(result.baseflow_index) and result.baseflow_index < FLASHY_BASEFLOW_INDEX:
+        notes.append(
+            f"flashy stream (baseflow index {result.baseflow_index:.2f}): the method suits baseflow-dominated streams"
+        )
     return notes
+
+
+def _given_recession_index(gauges, settings):
+    """K per gauge from the gauges layer's field, when the settings name one."""
+    if not settings.recession_index_field:
+        return {}
+    require_columns(gauges, [settings.recession_index_field], "gauges layer")
+    ids = gauge_id_text(gauges[settings.gauge_id_field].to_numpy())
+    values = pd.to_numeric(
+        pd.Series(gauges[settings.recession_index_field].to_numpy(), dtype=object), errors="coerce"
+    ).to_numpy(float)
+    given = {}
+    for gid, value in zip(ids, values):
+        if gid is None or not np.isfinite(value):
+            continue
+        if value <= 0:
+            raise InputError(
+                f"recession index {value!r} is not a positive number of days",
+                field=settings.recession_index_field,
+                gauge=gid,
+            )
+        given[gid] = float(value)
+    return given
 
 
 def run_atlas(
@@ -310,12 +534,16 @@ def run_atlas(
     ]
     if not gauge_ids:
         raise InputError("the gauges layer holds no gauge ids", field=settings.gauge_id_field)
+    given_k = _given_recession_index(gauges, settings)
     records = tidy_discharge(
         discharge,
         gauge_field=settings.discharge_gauge_field,
         date_field=settings.date_field,
         value_field=settings.value_field,
         units=settings.units,
+        flag_field=settings.flag_field,
+        flag_values=settings.flag_values,
+        min_day_coverage=settings.min_day_coverage,
     )
     areas = geodesic_area_km2(catchments.geometry)
     links = link_by_id(gauge_ids, catchments, settings.catchment_gauge_field)
@@ -340,7 +568,7 @@ def run_atlas(
             result = GaugeResult(gid, area, quality=["no discharge record for this gauge"])
         else:
             try:
-                result = gauge_hydrology(record, area, settings)
+                result = gauge_hydrology(record, area, settings, given_k.get(gid))
             except Exception as exc:  # one bad gauge never spoils the run
                 failed += 1
                 reporter.warning(f"gauge {gid}: could not be computed ({exc})")
@@ -357,8 +585,6 @@ def run_atlas(
         reporter.warning(f"{len(unknown)} gauge ids in the discharge table match no gauge: {shown}")
 
     out = _catchment_layer(catchments, areas, links, results, settings)
-    annual = _stack(results, "annual")
-    events = _stack(results, "events")
     flagged = sum(1 for r in results.values() if r.quality)
     summary = {
         "gauges": total,
@@ -372,7 +598,44 @@ def run_atlas(
         f"{total} gauges: {total - failed} computed ({flagged} flagged), {failed} failed; "
         f"{len(links.without_gauge)} catchments without a gauge"
     )
-    return AtlasResult(out, annual, events, results, summary)
+    return AtlasResult(
+        catchments=out,
+        annual=_stack(results, lambda r: r.annual),
+        events=_stack(results, lambda r: r.events),
+        gauges=results,
+        summary=summary,
+        periods=_stack(results, lambda r: r.periods),
+        segments=_stack(results, lambda r: r.segments),
+        master_recession=_stack(results, lambda r: r.master_recession),
+    )
+
+
+def _catchment_values(result: GaugeResult | None, area):
+    """The recharge fields of one catchment row (without gauge id and quality)."""
+    k = result.recession if result is not None else None
+    has_k = k is not None
+    return {
+        "area_km2": float(area),
+        "recession_index_days": k.days if has_k else np.nan,
+        "recession_index_low": k.low if has_k else np.nan,
+        "recession_index_high": k.high if has_k else np.nan,
+        "recession_segments": k.segments_used if has_k else 0,
+        "critical_time_days": float(critical_time_days(k.days)) if has_k else np.nan,
+        "runoff_end_lag_days": result.lag_days
+        if result is not None and np.isfinite(result.lag_days)
+        else (float(runoff_end_lag_days(area)) if np.isfinite(area) else np.nan),
+        "recharge_mm_per_year": result.recharge_mm_per_year if result else np.nan,
+        "recharge_mm_per_year_low": result.recharge_mm_per_year_low if result else np.nan,
+        "recharge_mm_per_year_high": result.recharge_mm_per_year_high if result else np.nan,
+        "recharge_m3_per_year": result.recharge_m3_per_year if result else np.nan,
+        "baseflow_index": result.baseflow_index if result else np.nan,
+        "baseflow_mm_per_year": result.baseflow_mm_per_year if result else np.nan,
+        "seasonal_recharge_mm_per_year": result.seasonal_recharge_mm_per_year if result else np.nan,
+        "complete_years": result.complete_years if result else 0,
+        "events": int(result.events["used"].sum())
+        if result is not None and len(result.events)
+        else 0,
+    }
 
 
 def _catchment_layer(catchments, areas, links, results, settings):
@@ -382,55 +645,36 @@ def _catchment_layer(catchments, areas, links, results, settings):
     for gid, rows in links.several.items():
         for row in rows:
             gauge_of_row[row] = gid
-    columns = {name: [] for name in CATCHMENT_FIELDS}
+    rows = []
     for row in range(len(out)):
         gid = gauge_of_row.get(row)
-        r = results.get(gid) if gid is not None else None
-        k = r.recession if r is not None and r.recession is not None else None
-        columns["gauge_id"].append(gid if gid is not None else ids[row])
-        columns["area_km2"].append(float(areas[row]))
-        columns["recession_index_days"].append(k.days if k else np.nan)
-        columns["recession_index_low"].append(k.low if k else np.nan)
-        columns["recession_index_high"].append(k.high if k else np.nan)
-        columns["recession_segments"].append(k.segments_used if k else 0)
-        columns["critical_time_days"].append(float(critical_time_days(k.days)) if k else np.nan)
-        columns["runoff_end_lag_days"].append(
-            float(runoff_end_lag_days(areas[row])) if np.isfinite(areas[row]) else np.nan
-        )
-        columns["recharge_mm_per_year"].append(r.recharge_mm_per_year if r else np.nan)
-        columns["recharge_m3_per_year"].append(r.recharge_m3_per_year if r else np.nan)
-        columns["complete_years"].append(r.complete_years if r else 0)
-        columns["events"].append(
-            int(r.events["used"].sum()) if r is not None and len(r.events) else 0
-        )
-        if r is not None:
-            quality = r.quality_text
+        result = results.get(gid) if gid is not None else None
+        values = {"gauge_id": gid if gid is not None else ids[row]}
+        values.update(_catchment_values(result, areas[row]))
+        if result is not None:
+            quality = result.quality_text
             if gid in links.several:
                 quality = f"{len(links.several[gid])} catchments carry gauge {gid}; " + quality
         elif gid is None and ids[row] is not None:
             quality = f"gauge {ids[row]} is not in the gauges layer"
         else:
             quality = "no gauge linked to this catchment"
-        columns["quality"].append(quality)
-    for name in CATCHMENT_FIELDS:
-        if name in out.columns and name != "gauge_id":
-            out = out.drop(columns=name)
-        out[name] = columns[name]
+        values["quality"] = quality
+        rows.append(values)
+    added = pd.DataFrame(rows, columns=CATCHMENT_FIELDS, index=out.index)
+    for name in ("recession_segments", "complete_years", "events"):
+        added[name] = added[name].astype("int64")
     geometry_name = out.geometry.name
-    order = [
-        c for c in out.columns if c != geometry_name and c not in CATCHMENT_FIELDS
-    ] + CATCHMENT_FIELDS
-    out = out[order + [geometry_name]]
-    out["recession_segments"] = out["recession_segments"].astype("int64")
-    out["complete_years"] = out["complete_years"].astype("int64")
-    out["events"] = out["events"].astype("int64")
-    return out
+    kept = [c for c in out.columns if c != geometry_name and c not in CATCHMENT_FIELDS]
+    for name in CATCHMENT_FIELDS:
+        out[name] = added[name]
+    return out[kept + CATCHMENT_FIELDS + [geometry_name]]
 
 
-def _stack(results, attribute):
+def _stack(results, table_of):
     frames = []
     for gid, result in results.items():
-        frame = getattr(result, attribute)
+        frame = table_of(result)
         if frame is not None and len(frame):
             frame = frame.copy()
             frame.insert(0, "gauge_id", gid)

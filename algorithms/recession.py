@@ -136,7 +136,8 @@ def recession_segments(logq, rises: Rises, lag_days, min_days=7) -> pd.DataFrame
     -------
     pandas.DataFrame
         Columns ``first``, ``last`` (day positions), ``days``, ``slope`` (log10 per day, from
-        least squares), ``recession_index_days`` (−1/slope) and ``r2``.
+        least squares), ``recession_index_days`` (−1/slope), ``r2`` and ``mean_flow_m3s`` (the
+        geometric mean flow of the segment).
     """
     x = np.asarray(logq, dtype=float)
     first = rises.peak + int(np.ceil(lag_days))
@@ -148,7 +149,7 @@ def recession_segments(logq, rises: Rises, lag_days, min_days=7) -> pd.DataFrame
     length = last - first + 1
     keep = (length >= min_days) & (first < x.size)
     first, last, length = first[keep], last[keep], length[keep]
-    slope, r2 = _segment_fits(x, first, last)
+    slope, r2, mean = _segment_fits(x, first, last)
     with np.errstate(divide="ignore"):
         k = np.where(slope < 0, -1.0 / slope, np.nan)
     return pd.DataFrame(
@@ -159,6 +160,7 @@ def recession_segments(logq, rises: Rises, lag_days, min_days=7) -> pd.DataFrame
             "slope": slope,
             "recession_index_days": k,
             "r2": r2,
+            "mean_flow_m3s": 10.0**mean,
         }
     )
 
@@ -171,9 +173,9 @@ def _next_true(mask):
 
 
 def _segment_fits(x, first, last):
-    """Least-squares slope and r² of x against day number on each [first, last] span."""
+    """Least-squares slope, r² and mean of x against day number on each [first, last] span."""
     if first.size == 0:
-        return np.empty(0), np.empty(0)
+        return np.empty(0), np.empty(0), np.empty(0)
     t = np.arange(x.size, dtype=float)
     xf = np.where(np.isfinite(x), x, 0.0)
     c = lambda v: np.concatenate([[0.0], np.cumsum(v)])  # noqa: E731
@@ -187,7 +189,7 @@ def _segment_fits(x, first, last):
     slope = ctx / ctt
     with np.errstate(invalid="ignore", divide="ignore"):
         r2 = np.where(cxx > 0, ctx**2 / (ctt * cxx), 1.0)
-    return slope, r2
+    return slope, r2, sum_x / n
 
 
 def combine_segments(segments: pd.DataFrame, quantile=0.5, n_boot=400, seed=0):
@@ -257,6 +259,49 @@ def estimate_recession_index(
         segments=segs,
         warnings=recession_warnings(k, used),
     )
+
+
+def master_recession(segments: pd.DataFrame, bins=6) -> pd.DataFrame:
+    """The master recession curve as a table: the recession index at each flow level.
+
+    Segments are grouped by their geometric mean flow into ``bins`` classes of equal count; each
+    class gives the length-weighted median K and the quartiles of its segments' K. A linear
+    aquifer gives the same K at every level; K growing with falling flow points to several
+    aquifers, or to evapotranspiration at low flow, and deserves a look.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``flow_low_m3s, flow_high_m3s, segments, recession_index_days, recession_index_q25,
+        recession_index_q75``, from low to high flow.
+    """
+    columns = [
+        "flow_low_m3s",
+        "flow_high_m3s",
+        "segments",
+        "recession_index_days",
+        "recession_index_q25",
+        "recession_index_q75",
+    ]
+    seg = segments[np.isfinite(segments["slope"]) & (segments["slope"] < 0)]
+    if len(seg) < 2:
+        return pd.DataFrame({c: [] for c in columns})
+    level = np.log10(seg["mean_flow_m3s"].to_numpy())
+    edges = np.unique(np.quantile(level, np.linspace(0.0, 1.0, min(bins, len(seg)) + 1)))
+    which = np.clip(np.searchsorted(edges, level, side="right") - 1, 0, edges.size - 2)
+    rows = []
+    for b in range(edges.size - 1):
+        part = seg[which == b]
+        if part.empty:
+            continue
+        k = float(
+            _k_from(part["slope"].to_numpy()[None, :], part["days"].to_numpy(float)[None, :], 0.5)[
+                0
+            ]
+        )
+        q25, q75 = np.percentile(part["recession_index_days"].to_numpy(), [25.0, 75.0])
+        rows.append([10 ** edges[b], 10 ** edges[b + 1], len(part), k, q25, q75])
+    return pd.DataFrame(rows, columns=columns)
 
 
 def recession_warnings(k, segments_used=None):

@@ -131,7 +131,8 @@ class Rises:
         The last day of the recession that follows each event: the next event's rise start, or
         the last day before a gap or the end of the record.
     start_in_gap : ndarray of bool
-        The rise begins in or right after a gap, so the true lowest day before it is unknown.
+        The rise begins in a gap or less than N days after one (or after the record's start),
+        so the lowest day before it may still carry runoff from an unseen event.
     peak_at_gap : ndarray of bool
         The record stops (gap or end) while the flow is still rising, so the peak is unknown.
     threshold : float
@@ -208,7 +209,9 @@ def find_rises(logq, lag_days, threshold) -> Rises:
     next_rise = np.r_[merged_rise[1:], -1]
     same_block = np.r_[g_block_start[1:] == g_block_start[:-1], False]
     recession_end = np.where(same_block, next_rise, g_block_end)
-    start_in_gap = merged_rise == g_block_start
+    # Within N days of a gap or of the record's start, the flow may still carry runoff from an
+    # event nobody saw, so the lowest day before the rise is no sound anchor.
+    start_in_gap = (merged_rise - g_block_start) < lag_days
     peak_at_gap = (merged_peak == g_block_end) | (peak[last] == g_block_end)
     return Rises(
         rise_start=merged_rise,

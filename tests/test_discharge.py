@@ -39,7 +39,8 @@ def test_bad_values_become_missing_and_are_counted():
     )
     table.loc[1, "discharge"] = None
     record = tidy_discharge(table)["A"]
-    assert record.counts == {"missing": 1, "non_numeric": 1, "negative": 2, "days_averaged": 0}
+    counts = {k: record.counts[k] for k in ("missing", "non_numeric", "negative", "days_averaged")}
+    assert counts == {"missing": 1, "non_numeric": 1, "negative": 2, "days_averaged": 0}
     assert record.days_with_value == 2
 
 
@@ -77,3 +78,29 @@ def test_gauge_ids_compare_as_text():
         None,
         None,
     ]
+
+
+def test_quarter_hourly_days_need_enough_values():
+    stamps = pd.date_range("2020-01-01", periods=3 * 96, freq="15min")
+    table = _table(
+        gauge_id="A", date=stamps.astype(str), discharge=np.arange(stamps.size, dtype=float)
+    )
+    table = table.drop(index=range(96 + 10, 96 + 40))  # day 2 keeps 66 of 96 values (< 75 %)
+    record = tidy_discharge(table)["A"]
+    assert record.counts["sub_daily"] and record.counts["days_incomplete"] == 1
+    assert record.flow.iloc[0] == pytest.approx(np.arange(96).mean())
+    assert np.isnan(record.flow.iloc[1]) and np.isfinite(record.flow.iloc[2])
+
+
+def test_quality_codes_flag_days_without_removing_them():
+    table = _table(
+        gauge_id=["A"] * 4,
+        date=pd.date_range("2020-01-01", periods=4).astype(str),
+        discharge=[1.0, 2.0, 3.0, 4.0],
+        code=["", "E", None, "P"],
+    )
+    any_code = tidy_discharge(table, flag_field="code")["A"]
+    assert list(any_code.flagged) == [False, True, False, True]
+    assert list(any_code.flow) == [1.0, 2.0, 3.0, 4.0]
+    only_e = tidy_discharge(table, flag_field="code", flag_values=["E"])["A"]
+    assert list(only_e.flagged) == [False, True, False, False]
