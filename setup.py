@@ -24,11 +24,13 @@ setup(
         "recharge_atlas",
         "recharge_atlas.algorithms",
         "recharge_atlas.plugin",
+        "recharge_atlas.plugin.help",
         "recharge_atlas.sample_layers",
     ],
     package_data={
         "recharge_atlas": ["metadata.txt", "LICENSE"],
-        "recharge_atlas.plugin": ["help/*.html", "*.svg"],
+        "recharge_atlas.plugin": ["*.svg"],
+        "recharge_atlas.plugin.help": ["*.html"],
         "recharge_atlas.sample_layers": ["*.gpkg", "*.csv", "*.json"],
     },
 )

@@ -39,6 +39,7 @@ EVENT_COLUMNS = [
     "post_extrapolation_days",
     "recharge_m3",
     "used",
+    "anchor_in_gap",
     "note",
 ]
 
@@ -130,9 +131,8 @@ def event_displacements(
         np.abs(np.nan_to_num(post_span)) > max_extrapolation_days,
         "post-event extrapolation longer than the limit",
     )
-    merged_note = np.where(rises.peaks_merged > 1, "peaks merged", "")
-    for i in np.flatnonzero(used & (rises.peaks_merged > 1)):
-        note[i] = merged_note[i]
+    note[used & (rises.peaks_merged > 1)] = "peaks merged"
+    anchor_in_gap = rises.start_in_gap | rises.peak_at_gap | ~has_post
 
     recharge = np.where(used, displacement_recharge_m3(q1, q2, k), np.nan)
     critical = dates[peak] + pd.to_timedelta(tc, unit="D")
@@ -153,6 +153,7 @@ def event_displacements(
             "post_extrapolation_days": post_span,
             "recharge_m3": recharge,
             "used": used,
+            "anchor_in_gap": anchor_in_gap,
             "note": note,
         }
     )
@@ -184,7 +185,7 @@ def _dtype(column):
         return "datetime64[ns]"
     if column in ("peaks_merged",):
         return "int64"
-    if column == "used":
+    if column in ("used", "anchor_in_gap"):
         return "bool"
     if column == "note":
         return "object"

@@ -25,6 +25,7 @@ from .recession import (
     critical_time_days,
     estimate_recession_index,
     master_recession,
+    master_recession_warnings,
     recession_warnings,
     runoff_end_lag_days,
 )
@@ -387,6 +388,7 @@ def gauge_hydrology(
         master_recession(recession.segments) if len(recession.segments) else pd.DataFrame()
     )
     quality.extend(recession.warnings)
+    quality.extend(master_recession_warnings(result.master_recession))
     k = recession.days
 
     def events_at(k_days):

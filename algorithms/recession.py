@@ -304,6 +304,36 @@ def master_recession(segments: pd.DataFrame, bins=6) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=columns)
 
 
+#: Low-flow K over high-flow K beyond which the master recession curve is flagged (our own rule).
+LEVEL_RATIO = 1.5
+
+
+def master_recession_warnings(table: pd.DataFrame):
+    """Caution when K changes with flow level on the master recession curve.
+
+    A single homogeneous aquifer recedes at one K at every level. When the lowest-flow class
+    recedes more than 1.5 times slower (or faster) than the highest, several aquifers drain to
+    the stream or evapotranspiration acts at low flow; one K then biases recharge (in tests with
+    two aquifers in parallel, low by 10–20 %).
+    """
+    usable = table[table["segments"] >= 5] if len(table) else table
+    if len(usable) < 3:
+        return []
+    low, high = (
+        float(usable["recession_index_days"].iloc[0]),
+        float(usable["recession_index_days"].iloc[-1]),
+    )
+    if not (np.isfinite(low) and np.isfinite(high)) or high <= 0:
+        return []
+    ratio = low / high
+    if ratio > LEVEL_RATIO or ratio < 1.0 / LEVEL_RATIO:
+        return [
+            f"recession index changes with flow level ({low:.0f} days at low flow, {high:.0f} at high): "
+            "several aquifers or evapotranspiration may bias recharge"
+        ]
+    return []
+
+
 def recession_warnings(k, segments_used=None):
     """Plain-language cautions about a recession index (``segments_used`` None: K was given)."""
     notes = []
