@@ -14,8 +14,15 @@ from pathlib import Path
 from recharge_atlas.algorithms.units import DISCHARGE_UNITS, UNIT_ALIASES
 
 EXIT_OK = 0
-EXIT_BAD_INPUT = 2
 EXIT_INTERNAL = 1
+EXIT_BAD_INPUT = 2
+
+#: Baseflow methods as the command line spells them, with the core's names.
+BASEFLOW_METHODS = {
+    "eckhardt": "eckhardt",
+    "lyne-hollick": "lyne_hollick",
+    "smoothed-minima": "smoothed_minima",
+}
 
 
 def _parser():
@@ -31,34 +38,41 @@ def _parser():
         help="estimate recharge for gauges and catchments",
         description="Estimate recharge for every gauge by recession-curve displacement and write a GeoPackage.",
     )
-    run.add_argument(
+    files = run.add_argument_group("inputs and outputs")
+    files.add_argument(
         "--gauges",
         required=True,
         metavar="PATH",
         help="gauge points (any vector format; 'file.gpkg|layername=NAME' picks a layer)",
     )
-    run.add_argument(
+    files.add_argument(
         "--catchments",
         required=True,
         metavar="PATH",
         help="catchment polygons, each carrying its gauge id",
     )
-    run.add_argument(
+    files.add_argument(
         "--discharge",
         required=True,
         metavar="PATH",
         help="daily discharge table: CSV, Parquet or a vector table (one row per gauge and day)",
     )
-    run.add_argument(
+    files.add_argument(
         "--out",
         required=True,
         metavar="OUT.gpkg",
-        help="GeoPackage to write (layer catchments; tables annual, events)",
+        help="GeoPackage to write (layer catchments; tables annual, events, periods, segments, master_recession)",
     )
-    _add_options(run)
-    run.add_argument(
+    files.add_argument(
         "--map", metavar="OUT.png", help="also draw a choropleth map of mean annual recharge"
     )
+    files.add_argument(
+        "--daily",
+        action="store_true",
+        help="also write table daily (flow and baseflow of every day; large)",
+    )
+    _add_field_options(run)
+    _add_method_options(run)
 
     demo = sub.add_parser(
         "demo",
@@ -74,54 +88,113 @@ def _parser():
     return parser
 
 
-def _add_options(run):
+def _add_field_options(run):
+    group = run.add_argument_group("fields and units")
     units = sorted(DISCHARGE_UNITS) + sorted(UNIT_ALIASES)
-    run.add_argument(
+    group.add_argument(
         "--units",
         default="m3/s",
         choices=units,
         help="units of the discharge values (default m3/s)",
     )
-    run.add_argument(
+    group.add_argument(
+        "--gauge-id-field",
+        default="gauge_id",
+        metavar="FIELD",
+        help="gauge id field of the gauges layer (default gauge_id)",
+    )
+    group.add_argument(
+        "--discharge-gauge-field",
+        metavar="FIELD",
+        help="gauge id field of the discharge table (default: the gauge id field)",
+    )
+    group.add_argument(
+        "--date-field",
+        default="date",
+        metavar="FIELD",
+        help="date field of the discharge table (default date)",
+    )
+    group.add_argument(
+        "--value-field",
+        default="discharge",
+        metavar="FIELD",
+        help="discharge field of the discharge table (default discharge)",
+    )
+    group.add_argument(
+        "--catchment-gauge-field",
+        metavar="FIELD",
+        help="gauge id field of the catchments (default: the gauge id field)",
+    )
+    group.add_argument(
+        "--flag-field",
+        metavar="FIELD",
+        help="quality-code field of the discharge table; flagged days are not used by the method",
+    )
+    group.add_argument(
+        "--flag-values",
+        metavar="CODES",
+        help="comma-separated codes that flag a day (default: any code)",
+    )
+    group.add_argument(
+        "--min-day-coverage",
+        type=float,
+        default=0.75,
+        metavar="SHARE",
+        help="sub-daily records: share of a day's values needed for its mean (default 0.75)",
+    )
+
+
+def _add_method_options(run):
+    group = run.add_argument_group("method")
+    group.add_argument(
         "--water-year-start",
         type=int,
         default=10,
         metavar="MONTH",
         help="first month of the water year, 1-12 (default 10, October)",
     )
-    run.add_argument(
-        "--gauge-id-field",
-        default="gauge_id",
-        metavar="FIELD",
-        help="gauge id field of the gauges layer (default gauge_id)",
-    )
-    run.add_argument(
-        "--discharge-gauge-field",
-        metavar="FIELD",
-        help="gauge id field of the discharge table (default: the gauge id field)",
-    )
-    run.add_argument(
-        "--date-field",
-        default="date",
-        metavar="FIELD",
-        help="date field of the discharge table (default date)",
-    )
-    run.add_argument(
-        "--value-field",
-        default="discharge",
-        metavar="FIELD",
-        help="discharge field of the discharge table (default discharge)",
-    )
-    run.add_argument(
-        "--catchment-gauge-field",
-        metavar="FIELD",
-        help="gauge id field of the catchments (default: the gauge id field)",
-    )
-    run.add_argument(
+    group.add_argument(
         "--recession-index",
         type=float,
         metavar="DAYS",
         help="use this recession index K (days per log cycle) for every gauge instead of estimating it",
+    )
+    group.add_argument(
+        "--recession-index-field",
+        metavar="FIELD",
+        help="field of the gauges layer giving K per gauge (empty values: estimate)",
+    )
+    group.add_argument(
+        "--runoff-end-lag",
+        type=float,
+        metavar="DAYS",
+        help="days after a peak when surface runoff has ended (default: A^0.2 with A in mi²)",
+    )
+    group.add_argument(
+        "--min-segment-days",
+        type=int,
+        default=7,
+        metavar="DAYS",
+        help="shortest recession segment used for K (default 7)",
+    )
+    group.add_argument(
+        "--baseflow-method",
+        default="eckhardt",
+        choices=sorted(BASEFLOW_METHODS),
+        help="baseflow separation (default eckhardt)",
+    )
+    group.add_argument(
+        "--bfi-max",
+        type=float,
+        default=0.80,
+        metavar="X",
+        help="BFImax of the Eckhardt filter (default 0.80; 0.50 ephemeral, 0.25 hard rock)",
+    )
+    group.add_argument(
+        "--period",
+        default="month",
+        choices=["month", "season"],
+        help="sub-annual sums in table periods (default month)",
     )
 
 
@@ -144,7 +217,9 @@ class _StderrReporter:
         print(f"caution: {text}", file=self.stream)
 
 
-def run_files(gauges, catchments, discharge, out, settings, map_path=None, reporter=None):
+def run_files(
+    gauges, catchments, discharge, out, settings, map_path=None, reporter=None, daily=False
+):
     """Read the inputs, run the pipeline and write the outputs. Returns the AtlasResult."""
     from recharge_atlas.algorithms import files
     from recharge_atlas.algorithms.errors import InputError
@@ -157,11 +232,12 @@ def run_files(gauges, catchments, discharge, out, settings, map_path=None, repor
             raise InputError("the output path is one of the input files", file=str(target))
     if out.suffix.lower() != ".gpkg":
         raise InputError("the output must be a GeoPackage ending in .gpkg", file=str(out))
+    settings = settings.resolved()  # bad settings fail before any file is read
     gauge_layer = files.read_layer(gauges, "gauges")
     catchment_layer = files.read_layer(catchments, "catchments")
     table = files.read_table(discharge, "discharge table")
     result = run_atlas(gauge_layer, catchment_layer, table, settings, reporter)
-    files.write_geopackage(result, out)
+    files.write_geopackage(result, out, daily=daily)
     if map_path:
         from recharge_atlas.algorithms.maps import recharge_map
 
@@ -187,11 +263,21 @@ def _settings(args):
         date_field=args.date_field,
         value_field=args.value_field,
         catchment_gauge_field=args.catchment_gauge_field,
+        flag_field=args.flag_field,
+        flag_values=args.flag_values,
+        min_day_coverage=args.min_day_coverage,
+        runoff_end_lag_days=args.runoff_end_lag,
+        min_segment_days=args.min_segment_days,
         recession_index_days=args.recession_index,
+        recession_index_field=args.recession_index_field,
+        baseflow_method=BASEFLOW_METHODS[args.baseflow_method],
+        bfi_max=args.bfi_max,
+        period=args.period,
     )
 
 
 def _demo(args):
+    from recharge_atlas.algorithms.pipeline import Settings
     from recharge_atlas.sample_layers import generate
 
     folder = Path(generate.HERE)
@@ -205,22 +291,13 @@ def _demo(args):
         folder / "catchments.gpkg",
         folder / "discharge.csv",
         gpkg,
-        _settings(
-            argparse.Namespace(
-                units="m3/s",
-                water_year_start=10,
-                gauge_id_field="gauge_id",
-                discharge_gauge_field=None,
-                date_field="date",
-                value_field="discharge",
-                catchment_gauge_field=None,
-                recession_index=None,
-            )
-        ),
+        Settings(),
         map_path=png,
         reporter=_StderrReporter(),
     )
-    print(f"Results: {gpkg} (layer catchments; tables annual, events)")
+    print(
+        f"Results: {gpkg} (layer catchments; tables annual, events, periods, segments, master_recession)"
+    )
     print(f"Map:     {png}")
     print(
         "Open the GeoPackage in QGIS, or compare with the known truth in sample_layers/truth_*.csv."
@@ -238,7 +315,7 @@ def main(argv=None):
         if args.command == "demo":
             _demo(args)
             return EXIT_OK
-        result = run_files(
+        run_files(
             args.gauges,
             args.catchments,
             args.discharge,
@@ -246,9 +323,9 @@ def main(argv=None):
             _settings(args),
             args.map,
             _StderrReporter(),
+            args.daily,
         )
         print(f"wrote {args.out}" + (f" and {args.map}" if args.map else ""))
-        del result
         return EXIT_OK
     except InputError as exc:
         print(f"recharge-atlas: error: {exc}", file=sys.stderr)

@@ -10,8 +10,10 @@ For each event:
 
 Events chain: the lowest day before one event's rise lies on the recession that follows the
 event before, so that recession is both the post-event curve of one event and the pre-event
-curve of the next. Extrapolations longer than ``max_extrapolation_days`` are refused: an error in
-K grows exponentially with the span.
+curve of the next. Long extrapolations are refused, because an error in K grows exponentially
+with the span: the post-event value may be moved at most ``max_extrapolation_days`` (K/2) along
+K, and the pre-event recession at most that far beyond the critical time (it always spans the
+rise and Tc).
 """
 
 from __future__ import annotations
@@ -75,7 +77,8 @@ def event_displacements(
     lag_days : float
         Runoff-end lag N: the post-event anchor is at least this many days after the peak.
     max_extrapolation_days : float, optional
-        Longest span (days) to extrapolate along K; default K/2.
+        Longest span (days) to move the post-event value along K, and to carry the pre-event
+        recession beyond the critical time; default K/2.
 
     Returns
     -------
@@ -126,7 +129,7 @@ def event_displacements(
     )
     refuse(rises.peak_at_gap, "record stops during the rise: peak unknown")
     refuse(~has_post, "no clean day on the recession after the peak")
-    refuse(pre_span > max_extrapolation_days, "pre-event extrapolation longer than the limit")
+    refuse(pre_span - tc > max_extrapolation_days, "pre-event extrapolation longer than the limit")
     refuse(
         np.abs(np.nan_to_num(post_span)) > max_extrapolation_days,
         "post-event extrapolation longer than the limit",

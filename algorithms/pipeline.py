@@ -56,8 +56,10 @@ CATCHMENT_FIELDS = [
 
 #: Drainage areas the method is commonly applied to, km² (common practice, not a published limit).
 USUAL_AREA_KM2 = (3.0, 1300.0)
-#: Below this baseflow index a stream is too flashy for the method (common practice).
-FLASHY_BASEFLOW_INDEX = 0.4
+#: Below this Lyne–Hollick baseflow index a stream is too flashy for the method (our own rule).
+#: A parameter-free filter is used, whatever the chosen method, so the check does not move
+#: with BFImax.
+FLASHY_BASEFLOW_INDEX = 0.25
 #: Fewer measured events than this in the whole record is flagged (our own rule).
 FEW_EVENTS = 10
 
@@ -147,6 +149,14 @@ class Settings:
             )
         if not (_positive(self.bfi_max) and float(self.bfi_max) < 1.0):
             raise InputError(f"BFImax was {self.bfi_max!r}; expected a number between 0 and 1")
+        try:
+            coverage = float(self.min_day_coverage)
+        except (TypeError, ValueError):
+            coverage = math.nan
+        if not 0.0 <= coverage <= 1.0:
+            raise InputError(
+                f"minimum day coverage was {self.min_day_coverage!r}; expected a share between 0 and 1"
+            )
         if self.period not in ("month", "season"):
             raise InputError(f"period was {self.period!r}; expected 'month' or 'season'")
         flags = self.flag_values
@@ -376,13 +386,25 @@ def gauge_hydrology(
     given = (
         recession_index_days if recession_index_days is not None else settings.recession_index_days
     )
+    # The record's own estimate is made even when K is given: its segments and master
+    # recession curve are diagnostics, and a given K far from it deserves a word.
+    recession = estimate_recession_index(x, rises, lag, settings.min_segment_days)
     if given is not None:
         k = float(given)
+        notes = recession_warnings(k)
+        if np.isfinite(recession.days) and not 1 / 1.5 <= k / recession.days <= 1.5:
+            notes.append(
+                f"given recession index {k:.0f} days; the record suggests {recession.days:.0f} days"
+            )
         recession = RecessionIndex(
-            k, np.nan, np.nan, 0, source="given", warnings=recession_warnings(k)
+            k,
+            np.nan,
+            np.nan,
+            recession.segments_used,
+            source="given",
+            segments=recession.segments,
+            warnings=notes,
         )
-    else:
-        recession = estimate_recession_index(x, rises, lag, settings.min_segment_days)
     result.recession = recession
     result.master_recession = (
         master_recession(recession.segments) if len(recession.segments) else pd.DataFrame()
@@ -465,9 +487,12 @@ def _record_quality(record: GaugeRecord, result: GaugeResult, settings: Settings
         notes.append(
             f"drainage area {result.area_km2:,.0f} km² is outside the {lo:,.0f}–{hi:,.0f} km² the method is usually applied to"
         )
-    if np.isfinite(result.baseflow_index) and result.baseflow_index < FLASHY_BASEFLOW_INDEX:
+    flow = record.flow.to_numpy()
+    reference = baseflow_index(flow, separate_baseflow(flow, "lyne_hollick"))
+    if np.isfinite(reference) and reference < FLASHY_BASEFLOW_INDEX:
         notes.append(
-            f"flashy stream (baseflow index {result.baseflow_index:.2f}): the method suits baseflow-dominated streams"
+            f"flashy stream (Lyne-Hollick baseflow index {reference:.2f}, under {FLASHY_BASEFLOW_INDEX}): "
+            "the method suits baseflow-dominated streams"
         )
     return notes
 

@@ -24,7 +24,8 @@ def main(argv=None):
 
     region = make_region()
     gauge_years = sum(
-        len(g) / 365.25 for _, g in region.discharge.dropna(subset=["discharge"]).groupby("gauge_id")
+        len(g) / 365.25
+        for _, g in region.discharge.dropna(subset=["discharge"]).groupby("gauge_id")
     )
     times = []
     for _ in range(args.repeat):

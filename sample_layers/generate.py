@@ -396,6 +396,50 @@ def make_region(
     )
 
 
+def truth_errors(region: SyntheticRegion, result) -> pd.DataFrame:
+    """Compare a pipeline result with a region's truth, one row per gauge.
+
+    Mean annual recharge is compared over the water years the run found complete, against the
+    truth of the same years. Columns: ``gauge_id, poor_record, complete_years, recharge_mm,
+    true_recharge_mm, recharge_error, k_days, true_k_days, k_error, baseflow_index,
+    true_groundwater_share, bfi_error, quality``; errors are relative except ``bfi_error``.
+    """
+    rows = []
+    truth_annual = region.truth_annual
+    for _, truth in region.truth_gauges.iterrows():
+        gid = truth["gauge_id"]
+        gauge = result.gauges[gid]
+        annual = gauge.annual
+        complete = (
+            annual.loc[annual["complete"].astype(bool), "water_year"]
+            if len(annual)
+            else pd.Series(dtype=int)
+        )
+        same_years = truth_annual[
+            (truth_annual["gauge_id"] == gid) & truth_annual["water_year"].isin(complete)
+        ]
+        true_mean = same_years["recharge_mm"].mean() if len(same_years) else np.nan
+        k = gauge.recession.days if gauge.recession is not None else np.nan
+        rows.append(
+            {
+                "gauge_id": gid,
+                "poor_record": bool(truth["poor_record"]),
+                "complete_years": len(complete),
+                "recharge_mm": gauge.recharge_mm_per_year,
+                "true_recharge_mm": true_mean,
+                "recharge_error": gauge.recharge_mm_per_year / true_mean - 1.0,
+                "k_days": k,
+                "true_k_days": truth["recession_index_days"],
+                "k_error": k / truth["recession_index_days"] - 1.0,
+                "baseflow_index": gauge.baseflow_index,
+                "true_groundwater_share": truth["baseflow_share"],
+                "bfi_error": gauge.baseflow_index - truth["baseflow_share"],
+                "quality": gauge.quality_text,
+            }
+        )
+    return pd.DataFrame(rows)
+
+
 def _gw_kernel(recession_index_days, n_days):
     from recharge_atlas.algorithms.analytic import strip_aquifer_daily_response
 

@@ -186,3 +186,67 @@ def test_generator_reproduces_the_committed_demo_data(demo_region, sample_paths)
     np.testing.assert_allclose(
         truth["recharge_mm_per_year"], demo_region.truth_gauges["recharge_mm_per_year"], rtol=1e-5
     )
+
+
+def test_method_options_reach_the_outputs(tmp_path, sample_paths):
+    out = tmp_path / "options.gpkg"
+    code = main(
+        [
+            "run",
+            "--gauges",
+            str(sample_paths["gauges"]),
+            "--catchments",
+            str(sample_paths["catchments"]),
+            "--discharge",
+            str(sample_paths["discharge"]),
+            "--out",
+            str(out),
+            "--period",
+            "season",
+            "--baseflow-method",
+            "lyne-hollick",
+            "--recession-index",
+            "45",
+            "--daily",
+        ]
+    )
+    assert code == 0
+    periods = read_attribute_table(out, "periods")
+    assert set(periods["period"]) == {"Dec-Feb", "Mar-May", "Jun-Aug", "Sep-Nov"}
+    daily = read_attribute_table(out, "daily")
+    assert {"gauge_id", "date", "discharge_m3s", "baseflow_m3s"} <= set(daily.columns)
+    catchments = gpd.read_file(out, layer="catchments").dropna(subset=["gauge_id"])
+    assert (catchments["recession_index_days"].dropna() == 45.0).all()
+    for table in ("annual", "events", "segments", "master_recession"):
+        assert len(read_attribute_table(out, table)) > 0 or table == "segments"
+
+
+@pytest.mark.parametrize(
+    ("option", "value", "message"),
+    [
+        ("--bfi-max", "1.5", "BFImax was 1.5"),
+        ("--min-segment-days", "1", "minimum segment length"),
+        ("--recession-index", "-3", "recession index days was -3.0"),
+        ("--min-day-coverage", "2", "minimum day coverage was 2.0"),
+        ("--flag-field", "quality_code", "no field 'quality_code'"),
+    ],
+)
+def test_bad_method_options_exit_2(tmp_path, sample_paths, option, value, message, capsys):
+    code = main(
+        [
+            "run",
+            "--gauges",
+            str(sample_paths["gauges"]),
+            "--catchments",
+            str(sample_paths["catchments"]),
+            "--discharge",
+            str(sample_paths["discharge"]),
+            "--out",
+            str(tmp_path / "out.gpkg"),
+            option,
+            value,
+        ]
+    )
+    assert code == 2
+    assert message in capsys.readouterr().err
+    assert not (tmp_path / "out.gpkg").exists()

@@ -1,0 +1,46 @@
+"""The README describes every output field and states the method's cautions."""
+
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+README = (ROOT / "README.md").read_text(encoding="utf-8")
+
+
+@pytest.fixture(scope="module")
+def demo_result(demo_region):
+    from recharge_atlas.algorithms.pipeline import run_atlas
+
+    return run_atlas(demo_region.gauges, demo_region.catchments, demo_region.discharge)
+
+
+@pytest.mark.parametrize(
+    "table", ["catchments", "annual", "events", "periods", "segments", "master_recession"]
+)
+def test_readme_describes_every_output_field(demo_result, table):
+    frame = getattr(demo_result, table)
+    columns = [c for c in frame.columns if c not in ("geometry", "name")]
+    missing = [c for c in columns if f"`{c}`" not in README]
+    assert not missing, f"README does not describe {table} fields {missing}"
+
+
+def test_readme_daily_table_fields(demo_result):
+    assert all(f"`{c}`" in README for c in demo_result.daily().columns)
+
+
+@pytest.mark.parametrize(
+    "words",
+    [
+        "homogeneous aquifer",
+        "no regulation, diversions, pumping or return flows",
+        "3–1,300 km²",
+        "Halford & Mayer 2000",
+        "not regional",
+        "qualified hydrogeologists",
+        "make demo",
+        "make test",
+    ],
+)
+def test_readme_states_the_cautions_and_the_quick_start(words):
+    assert words in README.replace("\n", " ")
