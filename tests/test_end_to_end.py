@@ -13,6 +13,19 @@ import pytest
 from recharge_atlas.algorithms.files import read_attribute_table
 from recharge_atlas.cli import main
 
+
+def run_args(paths, out, *extra, discharge=None):
+    """Arguments of ``recharge-atlas run`` on the demo layers."""
+    return [
+        "run",
+        "--gauges", str(paths["gauges"]),
+        "--catchments", str(paths["catchments"]),
+        "--discharge", str(discharge or paths["discharge"]),
+        "--out", str(out),
+        *extra,
+    ]  # fmt: skip
+
+
 # The issue's acceptance bound is ±15 %; the method does better on this region, so hold it to
 # ±10 % to catch regressions early.
 TOLERANCE = 0.10
@@ -22,21 +35,7 @@ TOLERANCE = 0.10
 def demo_run(tmp_path_factory, sample_paths):
     out = tmp_path_factory.mktemp("e2e")
     gpkg, png = out / "recharge.gpkg", out / "map.png"
-    code = main(
-        [
-            "run",
-            "--gauges",
-            str(sample_paths["gauges"]),
-            "--catchments",
-            str(sample_paths["catchments"]),
-            "--discharge",
-            str(sample_paths["discharge"]),
-            "--out",
-            str(gpkg),
-            "--map",
-            str(png),
-        ]
-    )
+    code = main(run_args(sample_paths, gpkg, "--map", str(png)))
     assert code == 0
     return {
         "gpkg": gpkg,
@@ -158,19 +157,7 @@ def test_output_over_an_input_is_refused(tmp_path, sample_paths):
     copy = tmp_path / "discharge.csv"
     copy.write_bytes(sample_paths["discharge"].read_bytes())
     before = copy.read_bytes()
-    code = main(
-        [
-            "run",
-            "--gauges",
-            str(sample_paths["gauges"]),
-            "--catchments",
-            str(sample_paths["catchments"]),
-            "--discharge",
-            str(copy),
-            "--out",
-            str(copy),
-        ]
-    )
+    code = main(run_args(sample_paths, copy, discharge=copy))
     assert code == 2
     assert copy.read_bytes() == before
 
@@ -191,16 +178,9 @@ def test_generator_reproduces_the_committed_demo_data(demo_region, sample_paths)
 def test_method_options_reach_the_outputs(tmp_path, sample_paths):
     out = tmp_path / "options.gpkg"
     code = main(
-        [
-            "run",
-            "--gauges",
-            str(sample_paths["gauges"]),
-            "--catchments",
-            str(sample_paths["catchments"]),
-            "--discharge",
-            str(sample_paths["discharge"]),
-            "--out",
-            str(out),
+        run_args(
+            sample_paths,
+            out,
             "--period",
             "season",
             "--baseflow-method",
@@ -208,7 +188,7 @@ def test_method_options_reach_the_outputs(tmp_path, sample_paths):
             "--recession-index",
             "45",
             "--daily",
-        ]
+        )
     )
     assert code == 0
     periods = read_attribute_table(out, "periods")
@@ -232,21 +212,7 @@ def test_method_options_reach_the_outputs(tmp_path, sample_paths):
     ],
 )
 def test_bad_method_options_exit_2(tmp_path, sample_paths, option, value, message, capsys):
-    code = main(
-        [
-            "run",
-            "--gauges",
-            str(sample_paths["gauges"]),
-            "--catchments",
-            str(sample_paths["catchments"]),
-            "--discharge",
-            str(sample_paths["discharge"]),
-            "--out",
-            str(tmp_path / "out.gpkg"),
-            option,
-            value,
-        ]
-    )
+    code = main(run_args(sample_paths, tmp_path / "out.gpkg", option, value))
     assert code == 2
     assert message in capsys.readouterr().err
     assert not (tmp_path / "out.gpkg").exists()
