@@ -7,7 +7,7 @@ QGIS_PYTHON ?= /usr/bin/python3
 QGIS_PATH   := $(CURDIR)/.qgis-path
 PYTEST_ARGS ?=
 
-.PHONY: all venv demo test test-core test-qgis qgis qgis-path lint format plugin-zip clean
+.PHONY: all venv demo test test-core test-qgis system qgis-path lint format plugin-zip clean
 
 all: test
 
@@ -23,23 +23,23 @@ $(VENV)/.installed: pyproject.toml setup.py metadata.txt
 demo: venv
 	$(VENV)/bin/recharge-atlas demo --out demo_output
 
-test: test-core test-qgis
+test: system test-core test-qgis
 
 test-core: venv
 	@echo "== Tests on the newest libraries from PyPI"
 	$(VENV)/bin/python -c "import numpy, pandas, shapely, geopandas; print('numpy', numpy.__version__, '| pandas', pandas.__version__, '| shapely', shapely.__version__, '| geopandas', geopandas.__version__)"
 	$(VENV)/bin/python -m pytest -q $(PYTEST_ARGS)
 
-# QGIS from Debian's packages: installed with apt when missing and run as root (tools/ensure-qgis).
-qgis:
-	@tools/ensure-qgis
+# QGIS, Debian's Python libraries and Chromium: installed with apt when missing and run as root.
+system:
+	@tools/ensure-system
 
 # QGIS loads plugins from folders named after the plugin; a link gives the clone that name.
 qgis-path:
 	@mkdir -p $(QGIS_PATH)
 	@ln -sfn $(CURDIR) $(QGIS_PATH)/recharge_atlas
 
-test-qgis: qgis qgis-path
+test-qgis: system qgis-path
 	@if [ -f .qgis-missing ]; then rm -f .qgis-missing; echo "== QGIS tests skipped: QGIS is not installed (see above)"; exit 0; fi; \
 	echo "== Tests inside QGIS's Python with Debian's libraries"; \
 	$(QGIS_PYTHON) -c "import numpy, pandas, shapely, geopandas; from qgis.core import Qgis; print('QGIS', Qgis.QGIS_VERSION, '| numpy', numpy.__version__, '| pandas', pandas.__version__, '| shapely', shapely.__version__, '| geopandas', geopandas.__version__)" && \
