@@ -9,7 +9,7 @@ from pathlib import Path
 from qgis.core import QgsProcessingAlgorithm, QgsProcessingException
 from qgis.PyQt.QtCore import QCoreApplication
 
-from . import dependencies
+from . import compat, dependencies
 
 HELP_DIR = Path(__file__).resolve().parent / "help"
 
@@ -50,6 +50,11 @@ class RechargeAtlasAlgorithm(QgsProcessingAlgorithm):
         ok, message = dependencies.check()
         if not ok:
             raise QgsProcessingException(message)
+
+    def add_advanced(self, parameter):
+        """Add ``parameter`` under the dialog's "Advanced parameters"."""
+        parameter.setFlags(parameter.flags() | compat.PARAMETER_ADVANCED)
+        return self.addParameter(parameter)
 
     def source(self, parameters, name, context):
         """The feature source of parameter ``name``; a clear error when it cannot be opened."""

@@ -86,7 +86,13 @@ SOURCE_ANY_GEOMETRY = first_of(
 NUMBER_INTEGER = first_of(
     "Qgis.ProcessingNumberParameterType.Integer", "QgsProcessingParameterNumber.Integer"
 )
+NUMBER_DOUBLE = first_of(
+    "Qgis.ProcessingNumberParameterType.Double", "QgsProcessingParameterNumber.Double"
+)
 FIELD_ANY = first_of("Qgis.ProcessingFieldParameterDataType.Any", "QgsProcessingParameterField.Any")
+FIELD_NUMERIC = first_of(
+    "Qgis.ProcessingFieldParameterDataType.Numeric", "QgsProcessingParameterField.Numeric"
+)
 
 # Geometry types (Qgis.WkbType since 3.30).
 WKB_NO_GEOMETRY = first_of("Qgis.WkbType.NoGeometry", "QgsWkbTypes.NoGeometry")
@@ -94,6 +100,10 @@ WKB_NO_GEOMETRY = first_of("Qgis.WkbType.NoGeometry", "QgsWkbTypes.NoGeometry")
 # Parameter flags (Qgis.ProcessingParameterFlag since 3.36).
 PARAMETER_OPTIONAL = first_of(
     "Qgis.ProcessingParameterFlag.Optional", "QgsProcessingParameterDefinition.FlagOptional"
+)
+#: Shown under "Advanced parameters" in the dialog.
+PARAMETER_ADVANCED = first_of(
+    "Qgis.ProcessingParameterFlag.Advanced", "QgsProcessingParameterDefinition.FlagAdvanced"
 )
 
 # Feature sink and request flags.

@@ -10,6 +10,7 @@ folder so the user's own QGIS profile is never touched.
 
 from __future__ import annotations
 
+import csv
 import os
 import shutil
 import subprocess
@@ -18,16 +19,19 @@ from pathlib import Path
 
 import pytest
 from support_qgis import (
+    GIVEN_K,
     HERE,
     PROCESSING_PLUGINS,
     QGIS_PLUGIN_PATH,
     QGIS_PROCESS,
+    QUALITY_CODES,
     REQUIRED,
     SAMPLE,
     gpkg_layer,
     private_qt_folders,
     sample_parameters,
     subprocess_env,
+    write_gauges_copy,
 )
 
 try:
@@ -153,6 +157,54 @@ def core_result():
         files.read_layer(SAMPLE / "catchments.gpkg", "catchments"),
         files.read_table(SAMPLE / "discharge.csv"),
         Settings(),
+    )
+
+
+@pytest.fixture(scope="session")
+def core_run():
+    """Run the core pipeline on files, as the CLI does: ``core_run(gauges=..., discharge=...,
+    **settings)`` with paths (the demo files by default) and Settings keywords. Results are
+    kept for the session, so tests of one configuration share one core run."""
+    from recharge_atlas.algorithms import files
+    from recharge_atlas.algorithms.pipeline import Settings, run_atlas
+
+    done = {}
+
+    def run(gauges=None, discharge=None, **settings):
+        gauges = str(gauges or SAMPLE / "gauges.gpkg")
+        discharge = str(discharge or SAMPLE / "discharge.csv")
+        key = (gauges, discharge, tuple(sorted(settings.items())))
+        if key not in done:
+            done[key] = run_atlas(
+                files.read_layer(gauges, "gauges"),
+                files.read_layer(SAMPLE / "catchments.gpkg", "catchments"),
+                files.read_table(discharge),
+                Settings(**settings),
+            )
+        return done[key]
+
+    return run
+
+
+@pytest.fixture(scope="session")
+def flagged_discharge(tmp_path_factory):
+    """The demo discharge table with a ``code`` column (invented codes; most rows empty)."""
+    path = tmp_path_factory.mktemp("flagged") / "discharge_codes.csv"
+    with open(SAMPLE / "discharge.csv", newline="") as src, open(path, "w", newline="") as dst:
+        reader = csv.DictReader(src)
+        writer = csv.DictWriter(dst, fieldnames=[*reader.fieldnames, "code"])
+        writer.writeheader()
+        for i, row in enumerate(reader):
+            row["code"] = next((c for c, every, at in QUALITY_CODES if i % every == at), "")
+            writer.writerow(row)
+    return path
+
+
+@pytest.fixture(scope="session")
+def gauges_with_k(qgis_app, tmp_path_factory):
+    """A GeoPackage copy of the demo gauges with a numeric field ``k_days`` (GIVEN_K)."""
+    return write_gauges_copy(
+        tmp_path_factory.mktemp("gauges-k") / "gauges_k.gpkg", "k_days", GIVEN_K
     )
 
 

@@ -17,6 +17,12 @@ QGIS_PROCESS = Path("/usr/bin/qgis_process.bin")
 #: The Python QGIS runs (Debian's), for subprocess tests.
 QGIS_PYTHON = Path("/usr/bin/python3")
 
+#: Codes of the discharge copy with a quality-code column: (code, every, offset) marks data
+#: row i when i % every == offset (invented codes). "poor" days are the ones tests flag.
+QUALITY_CODES = (("poor", 23, 5), ("fair", 17, 3))
+#: Recession index per gauge in the gauges copy with a K field; other gauges are left empty.
+GIVEN_K = {"QM01": 60.0}
+
 IN_QGIS = os.environ.get("RECHARGE_ATLAS_IN_QGIS") == "1"
 REQUIRED = IN_QGIS and os.environ.get("RECHARGE_ATLAS_QGIS_REQUIRED") == "1"
 
@@ -66,3 +72,38 @@ def sample_parameters(**changes):
 def gpkg_layer(path: Path, table: str, geometry: bool = False) -> str:
     """Processing's destination string for a layer inside a GeoPackage."""
     return f"ogr:dbname='{path}' table=\"{table}\"" + (" (geom)" if geometry else "")
+
+
+def write_gauges_copy(path: Path, field: str, values: dict) -> Path:
+    """Write the demo gauges to GeoPackage ``path`` with a numeric ``field``: ``values`` by
+    gauge id, NULL for the others. Needs a running QGIS."""
+    from qgis.core import (
+        QgsCoordinateTransformContext,
+        QgsFeature,
+        QgsVectorFileWriter,
+        QgsVectorLayer,
+    )
+
+    from recharge_atlas.plugin.conversion import qgs_field
+
+    source = QgsVectorLayer(str(SAMPLE / "gauges.gpkg"), "gauges", "ogr")
+    layer = QgsVectorLayer(f"Point?crs={source.crs().authid()}", "gauges", "memory")
+    provider = layer.dataProvider()
+    kept = [f for f in source.fields() if f.name() != "fid"]
+    provider.addAttributes([*kept, qgs_field(field, "double")])
+    layer.updateFields()
+    features = []
+    for feature in source.getFeatures():
+        copy = QgsFeature(layer.fields())
+        copy.setGeometry(feature.geometry())
+        copy.setAttributes([feature[f.name()] for f in kept] + [values.get(feature["gauge_id"])])
+        features.append(copy)
+    provider.addFeatures(features)
+    options = QgsVectorFileWriter.SaveVectorOptions()
+    options.driverName = "GPKG"
+    options.layerName = "gauges"
+    error = QgsVectorFileWriter.writeAsVectorFormatV3(
+        layer, str(path), QgsCoordinateTransformContext(), options
+    )
+    assert error[0] == QgsVectorFileWriter.NoError, error
+    return path

@@ -53,9 +53,22 @@ def test_parameters_are_the_briefs(algorithm):
         "CATCHMENT_GAUGE_FIELD",
         "UNITS",
         "WATER_YEAR_START",
+        "RECESSION_INDEX",
+        "RECESSION_INDEX_FIELD",
+        "RUNOFF_END_LAG",
+        "MIN_SEGMENT_DAYS",
+        "FLAG_FIELD",
+        "FLAG_VALUES",
+        "BASEFLOW_METHOD",
+        "BFI_MAX",
+        "PERIOD",
         "OUTPUT",
         "ANNUAL",
         "EVENTS",
+        "PERIODS",
+        "SEGMENTS",
+        "MASTER_RECESSION",
+        "DAILY",
     ]
     units = algorithm.parameterDefinition("UNITS")
     assert units.usesStaticStrings()
@@ -67,6 +80,71 @@ def test_parameters_are_the_briefs(algorithm):
         algorithm.parameterDefinition("CATCHMENT_GAUGE_FIELD").parentLayerParameterName()
         == "CATCHMENTS"
     )
+
+
+ADVANCED = [
+    "RECESSION_INDEX",
+    "RECESSION_INDEX_FIELD",
+    "RUNOFF_END_LAG",
+    "MIN_SEGMENT_DAYS",
+    "FLAG_FIELD",
+    "FLAG_VALUES",
+    "BASEFLOW_METHOD",
+    "BFI_MAX",
+    "PERIOD",
+]
+
+
+def test_method_parameters_are_advanced_with_their_defaults(algorithm):
+    from recharge_atlas.plugin import compat
+
+    for parameter in algorithm.parameterDefinitions():
+        advanced = bool(parameter.flags() & compat.PARAMETER_ADVANCED)
+        assert advanced is (parameter.name() in ADVANCED), parameter.name()
+    for name in ADVANCED:
+        assert algorithm.parameterDefinition(name).flags() & compat.PARAMETER_OPTIONAL or (
+            algorithm.parameterDefinition(name).defaultValue() is not None
+        ), f"{name} needs a value or a default"
+    method = algorithm.parameterDefinition("BASEFLOW_METHOD")
+    assert method.usesStaticStrings()
+    assert method.options() == ["Eckhardt filter", "Lyne-Hollick filter", "smoothed minima"]
+    assert method.defaultValue() == "Eckhardt filter"
+    period = algorithm.parameterDefinition("PERIOD")
+    assert period.usesStaticStrings()
+    assert (period.options(), period.defaultValue()) == (["month", "season"], "month")
+    assert algorithm.parameterDefinition("BFI_MAX").defaultValue() == 0.80
+    assert algorithm.parameterDefinition("MIN_SEGMENT_DAYS").defaultValue() == 7
+    assert algorithm.parameterDefinition("MIN_SEGMENT_DAYS").minimum() == 2
+    for name, parent in (
+        ("RECESSION_INDEX_FIELD", "GAUGES"),
+        ("FLAG_FIELD", "DISCHARGE"),
+    ):
+        assert algorithm.parameterDefinition(name).parentLayerParameterName() == parent
+
+
+def test_table_outputs_chain_as_vector_layers(algorithm):
+    """Every sink has a vector-layer output, so the Model Designer can feed it to the next
+    algorithm; the new tables are optional and not created by default."""
+    outputs = {o.name(): o.type() for o in algorithm.outputDefinitions()}
+    for name in ("OUTPUT", "ANNUAL", "EVENTS", "PERIODS", "SEGMENTS", "MASTER_RECESSION", "DAILY"):
+        assert outputs.get(name) == "outputVector", name
+    for name in ("PERIODS", "SEGMENTS", "MASTER_RECESSION", "DAILY"):
+        sink = algorithm.parameterDefinition(name)
+        assert sink.type() == "sink"
+        assert not sink.createByDefault(), name
+
+
+def test_fallback_defaults_equal_the_core():
+    """The dialog's defaults and method ids, kept in the plugin for drawing the dialog without
+    the core, are the core's."""
+    from recharge_atlas.algorithms.baseflow import METHODS
+    from recharge_atlas.algorithms.pipeline import Settings
+    from recharge_atlas.plugin import catchment_recharge
+
+    assert tuple(catchment_recharge.BASEFLOW_METHODS) == tuple(METHODS)
+    assert catchment_recharge._BFI_MAX == Settings().bfi_max
+    assert catchment_recharge._MIN_SEGMENT_DAYS == Settings().min_segment_days
+    assert catchment_recharge.PERIODS[0] == Settings().period
 
 
 def test_fallback_unit_labels_equal_the_core():

@@ -97,3 +97,58 @@ def test_qgis_process_bad_field_is_a_short_error(qgis_process, tmp_path):
     assert "'flow'" in text
     assert "Traceback" not in text
     assert not out.exists()
+
+
+def test_qgis_process_method_parameters_give_the_cores_numbers(
+    qgis_process, gauges_with_k, core_run, tmp_path
+):
+    """The advanced parameters as a script passes them: the baseflow method by its core id,
+    a K for all gauges beside a K field, a fixed lag and seasons (the Settings of
+    test_method_parameters, which passes the method by its label)."""
+    out = tmp_path / "recharge_methods.gpkg"
+    done = qgis_process(
+        *_args(
+            GAUGES=gauges_with_k,
+            DISCHARGE=SAMPLE / "discharge.csv",
+            CATCHMENTS=SAMPLE / "catchments.gpkg",
+            RECESSION_INDEX=45,
+            RECESSION_INDEX_FIELD="k_days",
+            RUNOFF_END_LAG=4,
+            BASEFLOW_METHOD="lyne_hollick",
+            PERIOD="season",
+            OUTPUT=out,
+            PERIODS=tmp_path / "periods.gpkg",
+        )
+    )
+    assert done.returncode == 0, done.stdout[-2000:] + done.stderr[-2000:]
+    assert "Traceback" not in done.stderr + done.stdout
+    core = core_run(
+        gauges=gauges_with_k,
+        recession_index_days=45.0,
+        recession_index_field="k_days",
+        runoff_end_lag_days=4.0,
+        baseflow_method="lyne_hollick",
+        period="season",
+    )
+    expected = core.catchments.set_index("name")
+    layer = QgsVectorLayer(str(out), "out", "ogr")
+    names = layer.fields().names()
+    for feature in layer.getFeatures():
+        row = dict(zip(names, feature.attributes()))
+        want = expected.loc[row["name"]]
+        for field in ("recharge_mm_per_year", "recession_index_days", "baseflow_index"):
+            got = math.nan if _null(row[field]) else float(row[field])
+            if math.isnan(float(want[field])):
+                assert math.isnan(got), (row["name"], field)
+            else:
+                assert got == pytest.approx(float(want[field]), rel=1e-9), (row["name"], field)
+        assert row["quality"] == want["quality"]
+    periods = QgsVectorLayer(str(tmp_path / "periods.gpkg"), "periods", "ogr")
+    assert periods.featureCount() == len(core.periods)
+    assert {f["period"] for f in periods.getFeatures()} == set(core.periods["period"])
+
+
+def _null(value):
+    from recharge_atlas.plugin.compat import is_null
+
+    return is_null(value)
