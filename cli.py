@@ -45,11 +45,16 @@ def _parser():
         metavar="PATH",
         help="gauge points (any vector format; 'file.gpkg|layername=NAME' picks a layer)",
     )
-    files.add_argument(
+    basins = files.add_mutually_exclusive_group(required=True)
+    basins.add_argument(
         "--catchments",
-        required=True,
         metavar="PATH",
-        help="catchment polygons, each carrying its gauge id",
+        help="catchment polygons: the total drainage area of each gauge (nested ones overlap)",
+    )
+    basins.add_argument(
+        "--subbasins",
+        metavar="PATH",
+        help="or non-overlapping subbasins with an id and a downstream-id field; gauges sit at their outlets",
     )
     files.add_argument(
         "--discharge",
@@ -73,6 +78,7 @@ def _parser():
     )
     _add_field_options(run)
     _add_method_options(run)
+    _add_basin_options(run)
 
     demo = sub.add_parser(
         "demo",
@@ -141,6 +147,53 @@ def _add_field_options(run):
         default=0.75,
         metavar="SHARE",
         help="sub-daily records: share of a day's values needed for its mean (default 0.75)",
+    )
+
+
+def _add_basin_options(run):
+    group = run.add_argument_group("linking and basins")
+    group.add_argument(
+        "--link",
+        default="auto",
+        choices=["auto", "id", "spatial"],
+        help="link gauges to catchments by the id field or spatially (default auto: by id when the catchments have the field)",
+    )
+    group.add_argument(
+        "--link-tolerance",
+        type=float,
+        default=100.0,
+        metavar="METRES",
+        help="spatial linking: how far a gauge may lie from its catchment's boundary (default 100)",
+    )
+    group.add_argument(
+        "--overlap-tolerance",
+        type=float,
+        default=0.05,
+        metavar="SHARE",
+        help="nesting: share of a basin that may lie outside a larger one containing it (default 0.05)",
+    )
+    group.add_argument(
+        "--reported-area-field",
+        metavar="FIELD",
+        help="field of the gauges layer with a reported drainage area in km² (a mismatch over 10%% is flagged)",
+    )
+    group.add_argument(
+        "--subbasin-id-field",
+        default="subbasin_id",
+        metavar="FIELD",
+        help="subbasin maps: id field of the subbasins (default subbasin_id)",
+    )
+    group.add_argument(
+        "--downstream-field",
+        default="downstream_id",
+        metavar="FIELD",
+        help="subbasin maps: field naming the subbasin each drains into (default downstream_id)",
+    )
+    group.add_argument(
+        "--ungauged",
+        default="donor",
+        choices=["donor", "empty"],
+        help="subbasin maps: subbasins with no gauge downstream borrow the nearest gauged depth, or stay empty (default donor)",
     )
 
 
@@ -218,15 +271,27 @@ class _StderrReporter:
 
 
 def run_files(
-    gauges, catchments, discharge, out, settings, map_path=None, reporter=None, daily=False
+    gauges,
+    catchments,
+    discharge,
+    out,
+    settings,
+    map_path=None,
+    reporter=None,
+    daily=False,
+    subbasins=None,
 ):
-    """Read the inputs, run the pipeline and write the outputs. Returns the AtlasResult."""
+    """Read the inputs, run the pipeline and write the outputs. Returns the AtlasResult.
+
+    Give either ``catchments`` (total drainage areas) or ``subbasins`` (a subbasin map).
+    """
     from recharge_atlas.algorithms import files
     from recharge_atlas.algorithms.errors import InputError
-    from recharge_atlas.algorithms.pipeline import run_atlas
+    from recharge_atlas.algorithms.pipeline import run_atlas, run_atlas_subbasins
 
     out = Path(out)
-    inputs = [files.split_layer(p)[0] for p in (gauges, catchments, discharge)]
+    basins = subbasins if subbasins is not None else catchments
+    inputs = [files.split_layer(p)[0] for p in (gauges, basins, discharge)]
     for target in [out] + ([Path(map_path)] if map_path else []):
         if any(_same_file(target, p) for p in inputs):
             raise InputError("the output path is one of the input files", file=str(target))
@@ -234,14 +299,19 @@ def run_files(
         raise InputError("the output must be a GeoPackage ending in .gpkg", file=str(out))
     settings = settings.resolved()  # bad settings fail before any file is read
     gauge_layer = files.read_layer(gauges, "gauges")
-    catchment_layer = files.read_layer(catchments, "catchments")
+    what = "subbasins" if subbasins is not None else "catchments"
+    basin_layer = files.read_layer(basins, what)
     table = files.read_table(discharge, "discharge table")
-    result = run_atlas(gauge_layer, catchment_layer, table, settings, reporter)
+    if subbasins is not None:
+        result = run_atlas_subbasins(gauge_layer, basin_layer, table, settings, reporter)
+    else:
+        result = run_atlas(gauge_layer, basin_layer, table, settings, reporter)
     files.write_geopackage(result, out, daily=daily)
     if map_path:
         from recharge_atlas.algorithms.maps import recharge_map
 
-        files.save_figure(recharge_map(result.catchments, gauge_layer), map_path)
+        mapped = result.subbasins if result.subbasins is not None else result.catchments
+        files.save_figure(recharge_map(mapped, gauge_layer), map_path)
     return result
 
 
@@ -273,6 +343,13 @@ def _settings(args):
         baseflow_method=BASEFLOW_METHODS[args.baseflow_method],
         bfi_max=args.bfi_max,
         period=args.period,
+        link=args.link,
+        link_tolerance_m=args.link_tolerance,
+        overlap_tolerance=args.overlap_tolerance,
+        reported_area_field=args.reported_area_field,
+        ungauged=args.ungauged,
+        subbasin_id_field=args.subbasin_id_field,
+        downstream_field=args.downstream_field,
     )
 
 
@@ -324,6 +401,7 @@ def main(argv=None):
             args.map,
             _StderrReporter(),
             args.daily,
+            subbasins=args.subbasins,
         )
         print(f"wrote {args.out}" + (f" and {args.map}" if args.map else ""))
         return EXIT_OK

@@ -128,17 +128,21 @@ RESULT_TABLES = (
         "master_recession",
         "Recession index by flow level (master recession curve)",
     ),
+    ("links", "links", "How each gauge links to a catchment, or why it does not"),
 )
 
 
 def write_geopackage(result, path, daily=False):
     """Write a run's results as one GeoPackage.
 
-    Layer ``catchments``; tables ``annual``, ``events``, ``periods``, ``segments`` and
-    ``master_recession``; with ``daily=True`` also ``daily`` (flow and baseflow of every day).
+    Layer ``catchments`` (and ``subbasins`` with a subbasin map); tables ``annual``,
+    ``events``, ``periods``, ``segments``, ``master_recession`` and ``links``; with
+    ``daily=True`` also ``daily`` (flow and baseflow of every day).
     """
     with atomic_path(path) as temp:
         result.catchments.to_file(temp, layer="catchments", driver="GPKG")
+        if getattr(result, "subbasins", None) is not None:
+            result.subbasins.to_file(temp, layer="subbasins", driver="GPKG")
         db = sqlite3.connect(temp)
         try:
             with db:

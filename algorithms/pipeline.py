@@ -16,10 +16,11 @@ import pandas as pd
 
 from . import annual as annual_mod
 from .baseflow import BFIMAX_TYPICAL, METHODS, baseflow_index, separate_baseflow
-from .basins import geodesic_area_km2, link_by_id
+from .basins import LINK_TOLERANCE_M, geodesic_area_km2, link_by_id, link_spatially, repair_polygons
 from .discharge import MIN_DAY_COVERAGE, GaugeRecord, gauge_id_text, require_columns, tidy_discharge
 from .displacement import event_displacements
 from .errors import Cancelled, InputError
+from .nesting import OVERLAP_TOLERANCE, find_nesting, incremental_recharge
 from .recession import (
     RecessionIndex,
     critical_time_days,
@@ -30,6 +31,7 @@ from .recession import (
     runoff_end_lag_days,
 )
 from .rises import find_rises, log_flow, rise_threshold
+from .subbasins import UNGAUGED_CHOICES
 from .units import canonical_units
 
 #: Fields added to the catchments layer, in order. Later versions add; they never rename.
@@ -49,17 +51,28 @@ CATCHMENT_FIELDS = [
     "baseflow_index",
     "baseflow_mm_per_year",
     "seasonal_recharge_mm_per_year",
+    "incremental_area_km2",
+    "incremental_recharge_mm_per_year",
+    "incremental_recharge_m3_per_year",
+    "incremental_years",
+    "downstream_gauge",
+    "upstream_gauges",
     "complete_years",
     "events",
     "quality",
 ]
+
+#: How gauges link to catchments.
+LINK_METHODS = ("auto", "id", "spatial")
+#: A reported drainage area differing from the computed one by more than this share is flagged.
+AREA_MISMATCH = 0.10
 
 #: Drainage areas the method is commonly applied to, km² (common practice, not a published limit).
 USUAL_AREA_KM2 = (3.0, 1300.0)
 #: Below this Lyne–Hollick baseflow index a stream is too flashy for the method (our own rule).
 #: A parameter-free filter is used, whatever the chosen method, so the check does not move
 #: with BFImax.
-FLASHY_BASEFLOW_INDEX = 0.25
+FLASHY_BASEFLOW_INDEX = 0.2
 #: Fewer measured events than this in the whole record is flagged (our own rule).
 FEW_EVENTS = 10
 
@@ -103,6 +116,21 @@ class Settings:
         Sub-annual sums: ``month`` or ``season``.
     min_complete_years : int
         Fewer complete water years than this is flagged in ``quality``.
+    link : str
+        ``auto`` (by the id field when the catchments have it, else spatially), ``id`` or
+        ``spatial``.
+    link_tolerance_m : float
+        Spatial linking: how far (m) a gauge may lie from its catchment's boundary.
+    overlap_tolerance : float
+        Nesting: share of a basin that may lie outside a larger basin that contains it.
+    reported_area_field : str or None
+        Field of the gauges layer with a reported drainage area (km²); a mismatch of more than
+        10 % with the computed area is flagged.
+    ungauged : str
+        Subbasin maps: ``donor`` (borrow the nearest gauged depth, said in ``estimate_source``)
+        or ``empty``.
+    subbasin_id_field, downstream_field : str
+        Subbasin maps: the subbasins' id field and the field naming the subbasin each drains into.
     """
 
     units: str = "m3/s"
@@ -123,6 +151,14 @@ class Settings:
     bfi_max: float = BFIMAX_TYPICAL["perennial stream, porous aquifer"]
     period: str = "month"
     min_complete_years: int = 5
+    link: str = "auto"
+    link_tolerance_m: float = LINK_TOLERANCE_M
+    overlap_tolerance: float = OVERLAP_TOLERANCE
+    reported_area_field: str | None = None
+    ungauged: str = "donor"
+    subbasin_id_field: str = "subbasin_id"
+    downstream_field: str = "downstream_id"
+    catchment_field_given: bool | None = None
 
     def resolved(self) -> Settings:
         """A copy with defaults filled in and values checked (raises :class:`InputError`)."""
@@ -159,6 +195,28 @@ class Settings:
             )
         if self.period not in ("month", "season"):
             raise InputError(f"period was {self.period!r}; expected 'month' or 'season'")
+        if self.link not in LINK_METHODS:
+            raise InputError(f"link was {self.link!r}; expected one of {list(LINK_METHODS)}")
+        try:
+            tolerance = float(self.link_tolerance_m)
+        except (TypeError, ValueError):
+            tolerance = math.nan
+        if not (math.isfinite(tolerance) and tolerance >= 0):
+            raise InputError(
+                f"link tolerance was {self.link_tolerance_m!r}; expected a distance in metres, 0 or more"
+            )
+        try:
+            overlap = float(self.overlap_tolerance)
+        except (TypeError, ValueError):
+            overlap = math.nan
+        if not 0.0 <= overlap < 0.5:
+            raise InputError(
+                f"overlap tolerance was {self.overlap_tolerance!r}; expected a share from 0 to 0.5"
+            )
+        if self.ungauged not in UNGAUGED_CHOICES:
+            raise InputError(
+                f"ungauged was {self.ungauged!r}; expected one of {list(UNGAUGED_CHOICES)}"
+            )
         flags = self.flag_values
         if isinstance(flags, str):
             flags = [v.strip() for v in flags.split(",") if v.strip()] or None
@@ -169,10 +227,29 @@ class Settings:
             min_segment_days=min_days,
             discharge_gauge_field=self.discharge_gauge_field or self.gauge_id_field,
             catchment_gauge_field=self.catchment_gauge_field or self.gauge_id_field,
+            catchment_field_given=(
+                self.catchment_field_given
+                if self.catchment_field_given is not None
+                else bool(self.catchment_gauge_field)
+            ),
+            link_tolerance_m=tolerance,
+            overlap_tolerance=overlap,
+            reported_area_field=self.reported_area_field or None,
             flag_field=self.flag_field or None,
             flag_values=flags,
             recession_index_field=self.recession_index_field or None,
         )
+
+    def link_method(self, catchment_columns) -> str:
+        """``id`` or ``spatial`` for these catchments (``auto`` decides by the columns)."""
+        if self.link != "auto":
+            return self.link
+        if (
+            self.catchment_field_given
+            or (self.catchment_gauge_field or self.gauge_id_field) in catchment_columns
+        ):
+            return "id"
+        return "spatial"
 
 
 def _whole_number(value):
@@ -301,6 +378,12 @@ class AtlasResult:
         One row per gauge and recession segment.
     master_recession : pandas.DataFrame
         One row per gauge and flow class.
+    links : pandas.DataFrame
+        One row per gauge: how it linked to a catchment, or why it did not.
+    nesting : nesting.Nesting
+        Which gauged basins lie inside which, and their incremental areas.
+    subbasins : geopandas.GeoDataFrame or None
+        With a subbasin map: the subbasins with the recharge depth of the gauge downstream.
     gauges : dict of str to GaugeResult
     summary : dict
         Counts of gauges computed, flagged and failed.
@@ -314,6 +397,9 @@ class AtlasResult:
     periods: pd.DataFrame = field(default_factory=pd.DataFrame)
     segments: pd.DataFrame = field(default_factory=pd.DataFrame)
     master_recession: pd.DataFrame = field(default_factory=pd.DataFrame)
+    links: pd.DataFrame = field(default_factory=pd.DataFrame)
+    nesting: object = None
+    subbasins: object = None
 
     def daily(self) -> pd.DataFrame:
         """Daily flow and baseflow of every gauge: ``gauge_id, date, discharge_m3s, baseflow_m3s``."""
@@ -520,6 +606,38 @@ def _given_recession_index(gauges, settings):
     return given
 
 
+def _gauge_points(gauges, what="gauges"):
+    """The gauges' geometry, or a clear error when spatial work needs it and there is none."""
+    geometry = getattr(gauges, "geometry", None)
+    if geometry is None or not hasattr(gauges, "crs"):
+        raise InputError(
+            f"the {what} layer has no point geometry, so gauges cannot be located spatially"
+        )
+    return geometry
+
+
+def _reported_area_notes(gauges, settings, areas_by_gauge):
+    """Quality notes for gauges whose reported area differs from the computed one."""
+    if not settings.reported_area_field:
+        return {}
+    require_columns(gauges, [settings.reported_area_field], "gauges layer")
+    ids = gauge_id_text(gauges[settings.gauge_id_field].to_numpy())
+    reported = pd.to_numeric(
+        pd.Series(gauges[settings.reported_area_field].to_numpy(), dtype=object), errors="coerce"
+    ).to_numpy(float)
+    notes = {}
+    for gid, value in zip(ids, reported):
+        area = areas_by_gauge.get(gid, np.nan)
+        if gid is None or not (np.isfinite(value) and value > 0 and np.isfinite(area)):
+            continue
+        share = area / value - 1.0
+        if abs(share) > AREA_MISMATCH:
+            notes[gid] = (
+                f"computed area {area:,.1f} km² differs from the reported {value:,.1f} km² by {100 * share:+.0f}%"
+            )
+    return notes
+
+
 def run_atlas(
     gauges,
     catchments,
@@ -532,9 +650,9 @@ def run_atlas(
     Parameters
     ----------
     gauges : pandas.DataFrame or geopandas.GeoDataFrame
-        One row per gauge with the gauge id field.
+        One row per gauge with the gauge id field (points are needed for spatial linking).
     catchments : geopandas.GeoDataFrame
-        Catchment polygons with a gauge id field (total drainage area of each gauge).
+        Catchment polygons, the total drainage area of each gauge (nested ones overlap).
     discharge : pandas.DataFrame
         Long table of gauge id, date and value.
     settings : Settings, optional
@@ -548,12 +666,15 @@ def run_atlas(
     Notes
     -----
     One gauge that fails never stops the run: it is reported, flagged in ``quality`` and
-    counted as failed.
+    counted as failed. Invalid polygons are repaired (and said so in ``quality``); nested
+    gauged basins give incremental areas and recharge.
     """
     settings = (settings or Settings()).resolved()
     reporter = reporter or Reporter()
     require_columns(gauges, [settings.gauge_id_field], "gauges layer")
-    require_columns(catchments, [settings.catchment_gauge_field], "catchments layer")
+    method = settings.link_method(list(catchments.columns))
+    if method == "id":
+        require_columns(catchments, [settings.catchment_gauge_field], "catchments layer")
     gauge_ids = [
         g
         for g in dict.fromkeys(gauge_id_text(gauges[settings.gauge_id_field].to_numpy()))
@@ -572,14 +693,23 @@ def run_atlas(
         flag_values=settings.flag_values,
         min_day_coverage=settings.min_day_coverage,
     )
-    areas = geodesic_area_km2(catchments.geometry)
-    links = link_by_id(gauge_ids, catchments, settings.catchment_gauge_field)
-    for gid in links.unlinked:
-        reporter.warning(f"gauge {gid}: no catchment carries this gauge id")
-    for gid, rows in links.several.items():
-        reporter.warning(
-            f"gauge {gid}: {len(rows)} catchments carry this gauge id; depths not computed"
+    geometry, repairs = repair_polygons(catchments.geometry)
+    for row, note in repairs.items():
+        reporter.warning(f"catchment in row {row}: {note}")
+    areas = geodesic_area_km2(geometry)
+    if method == "id":
+        links = link_by_id(gauge_ids, catchments, settings.catchment_gauge_field)
+    else:
+        ids = list(gauge_id_text(gauges[settings.gauge_id_field].to_numpy()))
+        links = link_spatially(
+            ids,
+            _gauge_points(gauges),
+            geometry,
+            settings.link_tolerance_m,
+            settings.overlap_tolerance,
         )
+    for gid in links.unlinked + list(links.several) + list(links.ambiguous):
+        reporter.warning(f"gauge {gid}: {links.notes.get(gid, 'not linked to a catchment')}")
 
     results: dict[str, GaugeResult] = {}
     failed = 0
@@ -601,17 +731,54 @@ def run_atlas(
                 reporter.warning(f"gauge {gid}: could not be computed ({exc})")
                 result = GaugeResult(gid, area, quality=[f"could not be computed: {exc}"])
         if row is None:
-            result.quality.insert(0, "no single catchment linked: depths not computed")
+            result.quality.insert(
+                0,
+                f"no single catchment linked ({links.notes.get(gid, 'not linked')}): depths not computed",
+            )
         results[gid] = result
-        if result.quality:
-            reporter.warning(f"gauge {gid}: {result.quality_text}")
     reporter.progress(total, total, None)
     unknown = sorted(set(records) - set(gauge_ids))
     if unknown:
         shown = ", ".join(unknown[:5]) + (" …" if len(unknown) > 5 else "")
         reporter.warning(f"{len(unknown)} gauge ids in the discharge table match no gauge: {shown}")
 
-    out = _catchment_layer(catchments, areas, links, results, settings)
+    # Basins: reported areas, nesting and incremental recharge of the linked gauges.
+    area_of = {gid: float(areas[row]) for gid, row in links.catchment_of.items()}
+    for gid, note in _reported_area_notes(gauges, settings, area_of).items():
+        results[gid].quality.append(note)
+    import geopandas as gpd
+
+    linked = [
+        gid
+        for gid in gauge_ids
+        if gid in links.catchment_of and geometry.iloc[links.catchment_of[gid]] is not None
+    ]
+    basins = gpd.GeoSeries(
+        [geometry.iloc[links.catchment_of[g]] for g in linked], index=linked, crs=geometry.crs
+    )
+    nesting = find_nesting(basins, settings.overlap_tolerance)
+    annual = _stack(results, lambda r: r.annual)
+    by_year, incremental = incremental_recharge(nesting, annual)
+    for gid, (m3, mm, _years) in incremental.items():
+        if np.isfinite(m3) and m3 < 0 and nesting.upstream.get(gid):
+            results[gid].quality.append(
+                f"negative incremental recharge ({mm:,.0f} mm/yr): a losing reach or inconsistent data"
+            )
+    if len(by_year) and len(annual):
+        annual = annual.merge(
+            by_year[["gauge_id", "water_year", "incremental_recharge_mm"]],
+            on=["gauge_id", "water_year"],
+            how="left",
+        )
+    elif len(annual):
+        annual["incremental_recharge_mm"] = np.nan
+    for gid, result in results.items():
+        if result.quality:
+            reporter.warning(f"gauge {gid}: {result.quality_text}")
+
+    out = _catchment_layer(
+        catchments, geometry, areas, links, results, settings, repairs, nesting, incremental
+    )
     flagged = sum(1 for r in results.values() if r.quality)
     summary = {
         "gauges": total,
@@ -620,21 +787,98 @@ def run_atlas(
         "failed": failed,
         "catchments": len(catchments),
         "catchments_without_gauge": len(links.without_gauge),
+        "link": links.method,
+        "linked": len(links.catchment_of),
     }
     reporter.info(
         f"{total} gauges: {total - failed} computed ({flagged} flagged), {failed} failed; "
+        f"{len(links.catchment_of)} linked to catchments ({links.method}); "
         f"{len(links.without_gauge)} catchments without a gauge"
     )
+    names = catchments["name"].tolist() if "name" in catchments.columns else None
     return AtlasResult(
         catchments=out,
-        annual=_stack(results, lambda r: r.annual),
+        annual=annual,
         events=_stack(results, lambda r: r.events),
         gauges=results,
         summary=summary,
         periods=_stack(results, lambda r: r.periods),
         segments=_stack(results, lambda r: r.segments),
         master_recession=_stack(results, lambda r: r.master_recession),
+        links=links.table(gauge_ids, names),
+        nesting=nesting,
     )
+
+
+def run_atlas_subbasins(
+    gauges,
+    subbasins,
+    discharge: pd.DataFrame,
+    settings: Settings | None = None,
+    reporter: Reporter | None = None,
+) -> AtlasResult:
+    """Estimate recharge with basins described as a subbasin map.
+
+    Parameters
+    ----------
+    gauges : geopandas.GeoDataFrame
+        Gauge points; each sits at the outlet of the subbasin it lies in.
+    subbasins : geopandas.GeoDataFrame
+        Non-overlapping subbasins with an id field and a downstream-id field
+        (``settings.subbasin_id_field``, ``settings.downstream_field``).
+    discharge : pandas.DataFrame
+    settings, reporter : optional
+
+    Returns
+    -------
+    AtlasResult
+        ``catchments`` holds each gauge's total drainage area built from the subbasins, and
+        ``subbasins`` the input subbasins with the incremental recharge depth of the nearest
+        gauge downstream (or a donor's, as ``estimate_source`` says).
+    """
+    from .subbasins import gauge_basins, locate_gauges, read_network, subbasin_estimates
+
+    settings = (settings or Settings()).resolved()
+    reporter = reporter or Reporter()
+    require_columns(gauges, [settings.gauge_id_field], "gauges layer")
+    network = read_network(subbasins, settings.subbasin_id_field, settings.downstream_field)
+    for note in network.notes:
+        reporter.warning(note)
+    geometry, repairs = repair_polygons(subbasins.geometry)
+    for row, note in repairs.items():
+        reporter.warning(f"subbasin {network.ids[row]}: {note}")
+    clean = subbasins.set_geometry(geometry) if len(repairs) else subbasins
+    ids = list(gauge_id_text(gauges[settings.gauge_id_field].to_numpy()))
+    located, notes = locate_gauges(
+        network, clean, ids, _gauge_points(gauges), settings.link_tolerance_m
+    )
+    located = {gid: located[gid] for gid in ids if gid in located}  # in the gauges' order
+    for gid, note in notes.items():
+        reporter.warning(f"gauge {gid}: {note}")
+    basins = gauge_basins(network, clean, located, settings.subbasin_id_field)
+    basin_settings = replace(
+        settings, link="id", catchment_gauge_field="gauge_id", catchment_field_given=True
+    )
+    result = run_atlas(gauges, basins, discharge, basin_settings, reporter)
+    # Say in the links table why a gauge found no subbasin.
+    for gid, note in notes.items():
+        result.links.loc[result.links["gauge_id"] == gid, "note"] = note
+    depth = {
+        gid: result.catchments.loc[
+            result.catchments["gauge_id"] == gid, "incremental_recharge_mm_per_year"
+        ].iloc[0]
+        for gid in located
+    }
+    estimates = subbasin_estimates(network, clean, located, depth, settings.ungauged)
+    layer = clean.copy()
+    for name in estimates.columns:
+        layer[name] = estimates[name].to_numpy()
+    geometry_name = layer.geometry.name
+    layer = layer[[c for c in layer.columns if c != geometry_name] + [geometry_name]]
+    result.subbasins = layer
+    result.summary["subbasins"] = len(layer)
+    result.summary["subbasins_without_estimate"] = int(layer["recharge_mm_per_year"].isna().sum())
+    return result
 
 
 def _catchment_values(result: GaugeResult | None, area):
@@ -665,9 +909,20 @@ def _catchment_values(result: GaugeResult | None, area):
     }
 
 
-def _catchment_layer(catchments, areas, links, results, settings):
+def _catchment_layer(
+    catchments, geometry, areas, links, results, settings, repairs, nesting, incremental
+):
     out = catchments.copy()
-    ids = list(gauge_id_text(catchments[settings.catchment_gauge_field].to_numpy()))
+    if repairs:
+        out = (
+            out.set_geometry(geometry.to_numpy(), crs=catchments.crs)
+            if out.geometry.name == "geometry"
+            else out.set_geometry(geometry)
+        )
+    if links.method == "id":
+        ids = list(gauge_id_text(catchments[settings.catchment_gauge_field].to_numpy()))
+    else:
+        ids = [None] * len(catchments)
     gauge_of_row = {row: gid for gid, row in links.catchment_of.items()}
     for gid, rows in links.several.items():
         for row in rows:
@@ -678,18 +933,32 @@ def _catchment_layer(catchments, areas, links, results, settings):
         result = results.get(gid) if gid is not None else None
         values = {"gauge_id": gid if gid is not None else ids[row]}
         values.update(_catchment_values(result, areas[row]))
+        linked = gid is not None and links.catchment_of.get(gid) == row
+        m3, mm, years = incremental.get(gid, (np.nan, np.nan, 0)) if linked else (np.nan, np.nan, 0)
+        values["incremental_area_km2"] = (
+            nesting.incremental_area_km2.get(gid, np.nan) if linked else np.nan
+        )
+        values["incremental_recharge_mm_per_year"] = mm
+        values["incremental_recharge_m3_per_year"] = m3
+        values["incremental_years"] = years
+        values["downstream_gauge"] = nesting.downstream.get(gid) if linked else None
+        values["upstream_gauges"] = ", ".join(nesting.upstream.get(gid, [])) if linked else ""
+        notes = []
+        if row in repairs:
+            notes.append(repairs[row])
         if result is not None:
-            quality = result.quality_text
             if gid in links.several:
-                quality = f"{len(links.several[gid])} catchments carry gauge {gid}; " + quality
+                notes.append(f"{len(links.several[gid])} catchments carry gauge {gid}")
+            if result.quality:
+                notes.append(result.quality_text)
         elif gid is None and ids[row] is not None:
-            quality = f"gauge {ids[row]} is not in the gauges layer"
+            notes.append(f"gauge {ids[row]} is not in the gauges layer")
         else:
-            quality = "no gauge linked to this catchment"
-        values["quality"] = quality
+            notes.append("no gauge linked to this catchment")
+        values["quality"] = "; ".join(notes) if notes else "ok"
         rows.append(values)
     added = pd.DataFrame(rows, columns=CATCHMENT_FIELDS, index=out.index)
-    for name in ("recession_segments", "complete_years", "events"):
+    for name in ("recession_segments", "complete_years", "events", "incremental_years"):
         added[name] = added[name].astype("int64")
     geometry_name = out.geometry.name
     kept = [c for c in out.columns if c != geometry_name and c not in CATCHMENT_FIELDS]

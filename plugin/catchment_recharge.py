@@ -80,7 +80,7 @@ _TABLE_FIELDS = {
         complete:bool recharge_low_mm:double recharge_high_mm:double baseflow_mm:double
         baseflow_m3:double storage_change_mm:double storage_change_m3:double residual_mm:double
         seasonal_recharge_mm:double flow_mm:double baseflow_index:double days:int64
-        days_missing:int64 events:int64 events_skipped:int64""",
+        days_missing:int64 events:int64 events_skipped:int64 incremental_recharge_mm:double""",
     "EVENTS": """gauge_id:string event:int64 peak_date:date rise_start_date:date
         peaks_merged:int64 critical_time_days:double critical_date:date q_before_m3s:double
         q_after_m3s:double pre_anchor_date:date pre_anchor_m3s:double

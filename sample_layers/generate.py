@@ -79,20 +79,22 @@ class Unit:
     aquifer: str
     recharge_factor: float
     gauge: str | None  # the nearest gauge downstream, or None when ungauged
+    downstream: str | None  # the unit it drains into, or None at the sea
+    name: str
 
 
 # Main river (the Quen): G4 ⊂ G2 ⊂ G1, and G3 ⊂ G1 on a tributary. Two more gauged basins and
-# three ungauged ones. Units nest into gauged basins through GAUGE_UPSTREAM below.
+# three ungauged ones. The units are also the demo's subbasin map (subbasins.gpkg).
 UNITS = (
-    Unit("U1", (0, 5, 6, 15), "Quen sands", 1.25, "QM04"),
-    Unit("U2", (0, 0, 15, 20), "Quen sands", 1.05, "QM02"),  # minus U1
-    Unit("U3", (15, 10, 27, 20), "Quen sands", 0.85, "QT03"),
-    Unit("U4", (0, 0, 40, 20), "Quen sands", 0.90, "QM01"),  # minus U1–U3
-    Unit("U5", (42, 0, 52, 20), "Harl chalk", 0.80, "HB05"),
-    Unit("U6", (42, 22, 51, 32), "Tobble grits", 1.15, "TB06"),
-    Unit("U7", (0, 21, 20, 25), "Quen sands", 1.00, None),
-    Unit("U8", (21, 21, 40, 24), "Quen sands", 0.95, None),
-    Unit("U9", (53, 0, 58, 10), "Harl chalk", 0.85, None),
+    Unit("U1", (0, 5, 6, 15), "Quen sands", 1.25, "QM04", "U2", "Hobble Head"),
+    Unit("U2", (0, 0, 15, 20), "Quen sands", 1.05, "QM02", "U4", "Dappling"),  # minus U1
+    Unit("U3", (15, 10, 27, 20), "Quen sands", 0.85, "QT03", "U4", "Tansy Water"),
+    Unit("U4", (0, 0, 40, 20), "Quen sands", 0.90, "QM01", None, "Lower Quen"),  # minus U1–U3
+    Unit("U5", (42, 0, 52, 20), "Harl chalk", 0.80, "HB05", None, "Harlbeck"),
+    Unit("U6", (42, 22, 51, 32), "Tobble grits", 1.15, "TB06", None, "Tobble"),
+    Unit("U7", (0, 21, 20, 25), "Quen sands", 1.00, None, None, "North Quen slopes"),
+    Unit("U8", (21, 21, 40, 24), "Quen sands", 0.95, None, None, "Marrow Flats"),
+    Unit("U9", (53, 0, 58, 10), "Harl chalk", 0.85, None, None, "Cray Point"),
 )
 
 #: Gauges: id, name, outlet on the local km grid, and the units that drain through it.
@@ -118,6 +120,9 @@ class SyntheticRegion:
     ----------
     gauges, catchments : geopandas.GeoDataFrame
         Gauge points and total-drainage catchment polygons (nested ones overlap).
+    subbasins : geopandas.GeoDataFrame
+        The same region as a subbasin map: non-overlapping units with ``subbasin_id`` and
+        ``downstream_id``.
     discharge : pandas.DataFrame
         Long table ``gauge_id, date, discharge`` in m³/s.
     truth_gauges : pandas.DataFrame
@@ -137,6 +142,7 @@ class SyntheticRegion:
     truth_annual: pd.DataFrame
     truth_units: pd.DataFrame
     settings: dict = field(default_factory=dict)
+    subbasins: object = None
 
 
 # --------------------------------------------------------------------------- geometry
@@ -197,7 +203,20 @@ def _layers(polygons):
         basin_rows.append({"gauge_id": None, "name": name, "geometry": polygons[unit_id]})
     gauges = gpd.GeoDataFrame(gauge_rows, geometry="geometry", crs=DEMO_CRS)
     catchments = gpd.GeoDataFrame(basin_rows, geometry="geometry", crs=DEMO_CRS)
-    return gauges, catchments
+    subbasins = gpd.GeoDataFrame(
+        [
+            {
+                "subbasin_id": u.unit_id,
+                "downstream_id": u.downstream,
+                "name": u.name,
+                "geometry": polygons[u.unit_id],
+            }
+            for u in UNITS
+        ],
+        geometry="geometry",
+        crs=DEMO_CRS,
+    )
+    return gauges, catchments, subbasins
 
 
 def _geodesic_km2(geometries, crs):
@@ -295,7 +314,7 @@ def make_region(
     dates = dates_all[keep]
 
     polygons = _unit_polygons()
-    gauges, catchments = _layers(polygons)
+    gauges, catchments, subbasins = _layers(polygons)
     unit_ids = [u.unit_id for u in UNITS]
     unit_area = dict(zip(unit_ids, _geodesic_km2([polygons[u] for u in unit_ids], DEMO_CRS)))
 
@@ -393,6 +412,7 @@ def make_region(
         truth_annual=pd.DataFrame(annual_rows),
         truth_units=pd.DataFrame(unit_rows),
         settings=settings,
+        subbasins=subbasins,
     )
 
 
@@ -468,17 +488,19 @@ def write_region(region: SyntheticRegion, folder) -> dict:
     paths = {
         "gauges": folder / "gauges.gpkg",
         "catchments": folder / "catchments.gpkg",
+        "subbasins": folder / "subbasins.gpkg",
         "discharge": folder / "discharge.csv",
         "truth_gauges": folder / "truth_gauges.csv",
         "truth_annual": folder / "truth_annual.csv",
         "truth_units": folder / "truth_units.csv",
         "settings": folder / "truth_settings.json",
     }
-    for key in ("gauges", "catchments"):
+    for key in ("gauges", "catchments", "subbasins"):
         if paths[key].exists():
             paths[key].unlink()
     region.gauges.to_file(paths["gauges"], layer="gauges", driver="GPKG")
     region.catchments.to_file(paths["catchments"], layer="catchments", driver="GPKG")
+    region.subbasins.to_file(paths["subbasins"], layer="subbasins", driver="GPKG")
     region.discharge.to_csv(paths["discharge"], index=False, float_format="%.6g", na_rep="")
     region.truth_gauges.to_csv(paths["truth_gauges"], index=False, float_format="%.6g")
     region.truth_annual.to_csv(paths["truth_annual"], index=False, float_format="%.6g")

@@ -16,7 +16,7 @@ def demo_result(demo_region):
 
 
 @pytest.mark.parametrize(
-    "table", ["catchments", "annual", "events", "periods", "segments", "master_recession"]
+    "table", ["catchments", "annual", "events", "periods", "segments", "master_recession", "links"]
 )
 def test_readme_describes_every_output_field(demo_result, table):
     frame = getattr(demo_result, table)
@@ -27,6 +27,14 @@ def test_readme_describes_every_output_field(demo_result, table):
 
 def test_readme_daily_table_fields(demo_result):
     assert all(f"`{c}`" in README for c in demo_result.daily().columns)
+
+
+def test_readme_subbasin_layer_fields(demo_region):
+    from recharge_atlas.algorithms.pipeline import run_atlas_subbasins
+
+    result = run_atlas_subbasins(demo_region.gauges, demo_region.subbasins, demo_region.discharge)
+    own = [c for c in result.subbasins.columns if c not in demo_region.subbasins.columns]
+    assert own and all(f"`{c}`" in README for c in own)
 
 
 @pytest.mark.parametrize(

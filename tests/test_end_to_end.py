@@ -216,3 +216,43 @@ def test_bad_method_options_exit_2(tmp_path, sample_paths, option, value, messag
     assert code == 2
     assert message in capsys.readouterr().err
     assert not (tmp_path / "out.gpkg").exists()
+
+
+def test_subbasin_map_from_the_command_line(tmp_path, sample_paths):
+    out, png = tmp_path / "sub.gpkg", tmp_path / "sub.png"
+    args = [
+        "run",
+        "--gauges",
+        str(sample_paths["gauges"]),
+        "--subbasins",
+        str(sample_paths["catchments"].parent / "subbasins.gpkg"),
+    ]
+    args += [
+        "--discharge",
+        str(sample_paths["discharge"]),
+        "--out",
+        str(out),
+        "--map",
+        str(png),
+        "--ungauged",
+        "empty",
+    ]
+    assert main(args) == 0
+    subbasins = gpd.read_file(out, layer="subbasins")
+    assert len(subbasins) == 9
+    assert set(subbasins.loc[subbasins["downstream_gauge"].isna(), "estimate_source"]) == {
+        "no gauge downstream"
+    }
+    links = read_attribute_table(out, "links")
+    assert (links["link"] == "linked").all()
+    assert png.exists()
+
+
+def test_catchments_and_subbasins_are_exclusive(tmp_path, sample_paths, capsys):
+    args = run_args(
+        sample_paths, tmp_path / "x.gpkg", "--subbasins", str(sample_paths["catchments"])
+    )
+    with pytest.raises(SystemExit) as stop:
+        main(args)
+    assert stop.value.code == 2
+    assert "not allowed with argument" in capsys.readouterr().err
