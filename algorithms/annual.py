@@ -25,6 +25,7 @@ import numpy as np
 import pandas as pd
 
 from .recession import potential_groundwater_discharge_m3
+from .tables import empty_table
 
 #: A period is complete when at most this share of its days lacks a value (our own rule).
 MAX_MISSING_SHARE = 0.02
@@ -46,6 +47,20 @@ ANNUAL_COLUMNS = [
     "flow_mm",
     "baseflow_index",
     "days",
+    "days_missing",
+    "events",
+    "events_skipped",
+]
+
+#: Columns of the table of months or seasons.
+PERIOD_COLUMNS = [
+    "water_year",
+    "period",
+    "first_date",
+    "last_date",
+    "recharge_mm",
+    "recharge_m3",
+    "complete",
     "days_missing",
     "events",
     "events_skipped",
@@ -141,7 +156,7 @@ def annual_recharge(
         Terms that could not be computed are NaN.
     """
     if flow.empty:
-        return pd.DataFrame({c: [] for c in ANNUAL_COLUMNS})
+        return empty_table(ANNUAL_COLUMNS)
     years_of_days = water_year(flow.index, start_month)
     years = np.arange(years_of_days.min(), years_of_days.max() + 1)
     q = flow.to_numpy(dtype=float)
@@ -295,22 +310,11 @@ def period_recharge(
         ``water_year, period, first_date, last_date, recharge_mm, recharge_m3, complete,
         days_missing, events, events_skipped``.
     """
-    columns = [
-        "water_year",
-        "period",
-        "first_date",
-        "last_date",
-        "recharge_mm",
-        "recharge_m3",
-        "complete",
-        "days_missing",
-        "events",
-        "events_skipped",
-    ]
+    columns = PERIOD_COLUMNS
     if kind not in ("month", "season"):
         raise ValueError(f"period kind was {kind!r}; expected 'month' or 'season'")
     if flow.empty:
-        return pd.DataFrame({c: [] for c in columns})
+        return empty_table(columns)
     freq = "M" if kind == "month" else "Q-NOV"
     day_period = flow.index.to_period(freq)
     periods = pd.period_range(day_period.min(), day_period.max(), freq=freq)

@@ -23,6 +23,7 @@ import pandas as pd
 
 from .recession import critical_time_days, displacement_recharge_m3
 from .rises import Rises
+from .tables import empty_table
 
 #: Columns of the event table, in order.
 EVENT_COLUMNS = [
@@ -94,7 +95,7 @@ def event_displacements(
     dates = pd.DatetimeIndex(flow.index)
     n_events = len(rises)
     if n_events == 0 or not np.isfinite(k) or k <= 0:
-        return pd.DataFrame({c: pd.Series(dtype=_dtype(c)) for c in EVENT_COLUMNS})
+        return empty_table(EVENT_COLUMNS)
 
     tc = float(critical_time_days(k))
     peak = rises.peak
@@ -181,15 +182,3 @@ def _nearest_clean(x, wanted, lo, hi):
         np.where(ok_before, before, np.where(ok_after, after, -1)),
     )
     return pick
-
-
-def _dtype(column):
-    if column.endswith("_date"):
-        return "datetime64[ns]"
-    if column in ("peaks_merged",):
-        return "int64"
-    if column in ("used", "anchor_in_gap"):
-        return "bool"
-    if column == "note":
-        return "object"
-    return "float64"

@@ -15,6 +15,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from .tables import empty_table
+
 #: Share of a smaller basin that may lie outside a larger one that still contains it.
 OVERLAP_TOLERANCE = 0.05
 
@@ -167,8 +169,6 @@ def incremental_recharge(nesting: Nesting, annual: pd.DataFrame):
             summary[gid] = (m3, mm, len(values))
         else:
             summary[gid] = (np.nan, np.nan, 0)
-    by_year = pd.DataFrame(
-        rows,
-        columns=["gauge_id", "water_year", "incremental_recharge_m3", "incremental_recharge_mm"],
-    )
+    columns = ["gauge_id", "water_year", "incremental_recharge_m3", "incremental_recharge_mm"]
+    by_year = pd.DataFrame(rows, columns=columns) if rows else empty_table(columns)
     return by_year, summary

@@ -18,10 +18,12 @@ from . import annual as annual_mod
 from .baseflow import BFIMAX_TYPICAL, METHODS, baseflow_index, separate_baseflow
 from .basins import LINK_TOLERANCE_M, geodesic_area_km2, link_by_id, link_spatially, repair_polygons
 from .discharge import MIN_DAY_COVERAGE, GaugeRecord, gauge_id_text, require_columns, tidy_discharge
-from .displacement import event_displacements
+from .displacement import EVENT_COLUMNS, event_displacements
 from .errors import Cancelled, InputError
 from .nesting import OVERLAP_TOLERANCE, find_nesting, incremental_recharge
 from .recession import (
+    MASTER_RECESSION_COLUMNS,
+    SEGMENT_COLUMNS,
     RecessionIndex,
     critical_time_days,
     estimate_recession_index,
@@ -32,6 +34,7 @@ from .recession import (
 )
 from .rises import find_rises, log_flow, rise_threshold
 from .subbasins import UNGAUGED_CHOICES
+from .tables import empty_table
 from .units import canonical_units
 
 #: Fields added to the catchments layer, in order. Later versions add; they never rename.
@@ -61,6 +64,11 @@ CATCHMENT_FIELDS = [
     "events",
     "quality",
 ]
+
+#: Columns of the daily table.
+DAILY_COLUMNS = ["gauge_id", "date", "discharge_m3s", "baseflow_m3s"]
+#: Columns of the event table as the run reports it (the event number first, the depth last).
+EVENT_COLUMNS_WITH_DEPTH = ["event", *EVENT_COLUMNS, "recharge_mm"]
 
 #: How gauges link to catchments.
 LINK_METHODS = ("auto", "id", "spatial")
@@ -352,7 +360,7 @@ class GaugeResult:
     def segments(self) -> pd.DataFrame:
         """Recession segments with dates, for diagnostics."""
         if self.recession is None or self.flow is None or not len(self.recession.segments):
-            return pd.DataFrame()
+            return empty_table(SEGMENT_COLUMNS)
         seg = self.recession.segments.copy()
         index = self.flow.index
         seg.insert(0, "first_date", index[seg["first"].to_numpy(int)])
@@ -418,9 +426,7 @@ class AtlasResult:
                 )
             )
         if not frames:
-            return pd.DataFrame(
-                {c: [] for c in ("gauge_id", "date", "discharge_m3s", "baseflow_m3s")}
-            )
+            return empty_table(DAILY_COLUMNS)
         return pd.concat(frames, ignore_index=True)
 
     def __repr__(self):
@@ -493,7 +499,9 @@ def gauge_hydrology(
         )
     result.recession = recession
     result.master_recession = (
-        master_recession(recession.segments) if len(recession.segments) else pd.DataFrame()
+        master_recession(recession.segments)
+        if len(recession.segments)
+        else empty_table(MASTER_RECESSION_COLUMNS)
     )
     quality.extend(recession.warnings)
     quality.extend(master_recession_warnings(result.master_recession))
@@ -757,21 +765,18 @@ def run_atlas(
         [geometry.iloc[links.catchment_of[g]] for g in linked], index=linked, crs=geometry.crs
     )
     nesting = find_nesting(basins, settings.overlap_tolerance)
-    annual = _stack(results, lambda r: r.annual)
+    annual = _stack(results, lambda r: r.annual, annual_mod.ANNUAL_COLUMNS)
     by_year, incremental = incremental_recharge(nesting, annual)
     for gid, (m3, mm, _years) in incremental.items():
         if np.isfinite(m3) and m3 < 0 and nesting.upstream.get(gid):
             results[gid].quality.append(
                 f"negative incremental recharge ({mm:,.0f} mm/yr): a losing reach or inconsistent data"
             )
-    if len(by_year) and len(annual):
-        annual = annual.merge(
-            by_year[["gauge_id", "water_year", "incremental_recharge_mm"]],
-            on=["gauge_id", "water_year"],
-            how="left",
-        )
-    elif len(annual):
-        annual["incremental_recharge_mm"] = np.nan
+    annual = annual.merge(
+        by_year[["gauge_id", "water_year", "incremental_recharge_mm"]],
+        on=["gauge_id", "water_year"],
+        how="left",
+    )
     for gid, result in results.items():
         if result.quality:
             reporter.warning(f"gauge {gid}: {result.quality_text}")
@@ -799,12 +804,12 @@ def run_atlas(
     return AtlasResult(
         catchments=out,
         annual=annual,
-        events=_stack(results, lambda r: r.events),
+        events=_stack(results, lambda r: r.events, EVENT_COLUMNS_WITH_DEPTH),
         gauges=results,
         summary=summary,
-        periods=_stack(results, lambda r: r.periods),
-        segments=_stack(results, lambda r: r.segments),
-        master_recession=_stack(results, lambda r: r.master_recession),
+        periods=_stack(results, lambda r: r.periods, annual_mod.PERIOD_COLUMNS),
+        segments=_stack(results, lambda r: r.segments, SEGMENT_COLUMNS),
+        master_recession=_stack(results, lambda r: r.master_recession, MASTER_RECESSION_COLUMNS),
         links=links.table(gauge_ids, names),
         nesting=nesting,
     )
@@ -967,7 +972,8 @@ def _catchment_layer(
     return out[kept + CATCHMENT_FIELDS + [geometry_name]]
 
 
-def _stack(results, table_of):
+def _stack(results, table_of, columns):
+    """One table of every gauge's rows, led by ``gauge_id``; typed and empty when none has rows."""
     frames = []
     for gid, result in results.items():
         frame = table_of(result)
@@ -976,5 +982,5 @@ def _stack(results, table_of):
             frame.insert(0, "gauge_id", gid)
             frames.append(frame)
     if not frames:
-        return pd.DataFrame({"gauge_id": pd.Series(dtype=object)})
+        return empty_table(["gauge_id", *columns])
     return pd.concat(frames, ignore_index=True)

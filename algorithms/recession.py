@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 
 from .rises import Rises
+from .tables import empty_table
 from .units import SECONDS_PER_DAY, SQUARE_MILE_KM2
 
 LN10 = float(np.log(10.0))
@@ -261,6 +262,27 @@ def estimate_recession_index(
     )
 
 
+#: Columns of the master recession table.
+MASTER_RECESSION_COLUMNS = [
+    "flow_low_m3s",
+    "flow_high_m3s",
+    "segments",
+    "recession_index_days",
+    "recession_index_q25",
+    "recession_index_q75",
+]
+#: Columns of the segment table as reported (with dates instead of day positions).
+SEGMENT_COLUMNS = [
+    "first_date",
+    "last_date",
+    "days",
+    "slope",
+    "recession_index_days",
+    "r2",
+    "mean_flow_m3s",
+]
+
+
 def master_recession(segments: pd.DataFrame, bins=6) -> pd.DataFrame:
     """The master recession curve as a table: the recession index at each flow level.
 
@@ -275,17 +297,10 @@ def master_recession(segments: pd.DataFrame, bins=6) -> pd.DataFrame:
         ``flow_low_m3s, flow_high_m3s, segments, recession_index_days, recession_index_q25,
         recession_index_q75``, from low to high flow.
     """
-    columns = [
-        "flow_low_m3s",
-        "flow_high_m3s",
-        "segments",
-        "recession_index_days",
-        "recession_index_q25",
-        "recession_index_q75",
-    ]
+    columns = MASTER_RECESSION_COLUMNS
     seg = segments[np.isfinite(segments["slope"]) & (segments["slope"] < 0)]
     if len(seg) < 2:
-        return pd.DataFrame({c: [] for c in columns})
+        return empty_table(columns)
     level = np.log10(seg["mean_flow_m3s"].to_numpy())
     edges = np.unique(np.quantile(level, np.linspace(0.0, 1.0, min(bins, len(seg)) + 1)))
     which = np.clip(np.searchsorted(edges, level, side="right") - 1, 0, edges.size - 2)

@@ -256,3 +256,21 @@ def test_catchments_and_subbasins_are_exclusive(tmp_path, sample_paths, capsys):
         main(args)
     assert stop.value.code == 2
     assert "not allowed with argument" in capsys.readouterr().err
+
+
+def test_tables_keep_their_typed_columns_when_empty():
+    from shapely.geometry import Point, box
+
+    from recharge_atlas.algorithms.pipeline import run_atlas
+
+    gauges = gpd.GeoDataFrame({"gauge_id": ["A"]}, geometry=[Point(0, 0)], crs="EPSG:32624")
+    catchments = gpd.GeoDataFrame(
+        {"gauge_id": ["A"]}, geometry=[box(0, 0, 1000, 1000)], crs="EPSG:32624"
+    )
+    discharge = pd.DataFrame({"gauge_id": ["B"], "date": ["2020-01-01"], "discharge": [1.0]})
+    result = run_atlas(gauges, catchments, discharge)
+    assert len(result.annual) == 0 and result.annual["water_year"].dtype == "int64"
+    assert result.events["peak_date"].dtype.kind == "M" and result.events["used"].dtype == bool
+    assert list(result.segments.columns)[:3] == ["gauge_id", "first_date", "last_date"]
+    assert "recession_index_q75" in result.master_recession.columns
+    assert list(result.daily().columns) == ["gauge_id", "date", "discharge_m3s", "baseflow_m3s"]
