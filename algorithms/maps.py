@@ -253,7 +253,10 @@ def class_labels(breaks, units=None):
 
 def legend_title(field, units):
     """The legend title: the field's plain label and the units."""
+    import textwrap
+
     label = FIELD_LABELS.get(field, str(field).replace("_", " ").capitalize())
+    label = "\n".join(textwrap.wrap(label, 26)) or label
     return f"{label}\n({units})" if units else label
 
 

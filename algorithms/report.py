@@ -1,0 +1,1057 @@
+"""One self-contained HTML page per run: the map, the cautions, and every gauge's evidence.
+
+The page has no external references: the style sheet is inline and the figures are PNG images
+embedded as ``data:`` URIs, so it can be mailed, archived or opened offline. It opens with the
+map, the method's cautions and a summary of the run; then one section per gauge with
+
+* the hydrograph on a log axis: the whole record small, and one or two water years (the one
+  with median recharge and the wettest) with each event's displacement drawn: the pre-event
+  recession carried along K to the critical time, the post-event recession, Q1 and Q2;
+* the recession segments behind K, normalised to their start, against the fitted K, and the
+  recession index by flow level (master recession curve);
+* the annual table and the quality flags in words.
+
+:func:`report_html` returns the page as text; :func:`write_report` writes it atomically.
+"""
+
+from __future__ import annotations
+
+import base64
+import dataclasses
+import datetime as _dt
+import html
+import io
+import math
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from . import files
+from .annual import water_year_bounds
+from .errors import InputError
+from .maps import SCHEMES, recharge_map, year_maps
+from .recession import CRITICAL_TIME_FACTOR
+
+#: The method's cautions, shown near the top of every report: (heading, text).
+CAUTIONS = (
+    (
+        "Assumptions",
+        "The recession-curve displacement method assumes a homogeneous aquifer, recharge spread "
+        "evenly in space and quick in time, and a stream with no regulation, diversions, pumping "
+        "or return flows. It is commonly applied to perennial, baseflow-dominated streams "
+        "draining roughly 3–1,300 km² (common practice, not a published limit).",
+    ),
+    (
+        "Biases",
+        "Frequent peaks, bank storage, riparian evapotranspiration and heterogeneous aquifers "
+        "bias the result (Halford & Mayer 2000).",
+    ),
+    (
+        "What the numbers are",
+        "Recharge that returns to the stream above the gauge, not regional underflow that leaves "
+        "the basin beneath it.",
+    ),
+    (
+        "Their use",
+        "These are estimates with stated uncertainty, not measurements. Decisions about water "
+        "allocation rest with qualified hydrogeologists and the local rules.",
+    ),
+)
+
+#: Default page title.
+TITLE = "Groundwater recharge by recession-curve displacement"
+#: Resolution of the embedded figures (dots per inch); small keeps the page light.
+FIGURE_DPI = 100
+
+# Colours of the event construction (ColorBrewer "Dark2"-like, readable by most colour-blind readers).
+FLOW_COLOUR = "#252525"
+BASEFLOW_COLOUR = "#6baed6"
+PRE_COLOUR = "#d95f02"
+POST_COLOUR = "#1b9e77"
+CRITICAL_COLOUR = "#7570b3"
+ZOOM_SHADE = "#fee391"
+
+
+# --------------------------------------------------------------------------- public
+
+
+def report_html(
+    result,
+    gauges=None,
+    title=TITLE,
+    max_gauges=60,
+    scheme="quantiles",
+    classes=5,
+    settings=None,
+    water_year_start=None,
+    include_year_maps=True,
+):
+    """The run's report as one self-contained HTML page.
+
+    Parameters
+    ----------
+    result : AtlasResult
+        What :func:`pipeline.run_atlas` returned.
+    gauges : geopandas.GeoDataFrame, optional
+        The gauge points, for the map and the gauge names (a ``name`` field is shown).
+    title : str
+        Page title.
+    max_gauges : int
+        Gauges drawn in full, in the run's order; the others are listed with their numbers
+        and a note, so the page stays a sane size.
+    scheme, classes
+        Map classes (see :func:`maps.class_breaks`).
+    settings : Settings, optional
+        The run's settings, listed in the summary (default: ``result.settings`` if present).
+    water_year_start : int, optional
+        First month of the water year (default: from the settings, else 10).
+    include_year_maps : bool
+        Add the small-multiple map of recharge by water year.
+
+    Returns
+    -------
+    str
+        The HTML page (UTF-8 text, no external references).
+    """
+    if scheme not in SCHEMES:
+        raise InputError(f"map classes were {scheme!r}; expected one of {list(SCHEMES)}")
+    try:
+        max_gauges = int(max_gauges)
+    except (TypeError, ValueError):
+        max_gauges = -1
+    if max_gauges < 0:
+        raise InputError(f"max gauges was {max_gauges!r}; expected a whole number, 0 or more")
+    if settings is None:
+        settings = getattr(result, "settings", None)
+    if water_year_start is None:
+        water_year_start = getattr(settings, "water_year_start", None) or 10
+
+    catchments = result.catchments
+    names = _gauge_names(gauges, catchments)
+    quality = _catchment_quality(catchments)
+    gauge_ids = list(result.gauges)
+    drawn, left_out = gauge_ids[:max_gauges], gauge_ids[max_gauges:]
+    anchors = {gid: f"gauge-{i + 1}" for i, gid in enumerate(drawn)}
+
+    parts = [_head(title)]
+    parts.append(f"<h1>{_e(title)}</h1>")
+    now = _dt.datetime.now().strftime("%Y-%m-%d %H:%M")
+    parts.append(
+        f'<p class="lead">{_e(_summary_sentence(result))} Made with Recharge Atlas on {now}.</p>'
+    )
+    parts.append(_cautions_html())
+    parts.append(_maps_html(result, gauges, scheme, classes, include_year_maps))
+    parts.append(_summary_html(result, names, quality, anchors, settings))
+    parts.append(_contents_html(drawn, names, quality, anchors, result))
+    for gid in drawn:
+        parts.append(
+            _gauge_html(
+                gid,
+                result.gauges[gid],
+                names.get(gid),
+                quality.get(gid),
+                anchors[gid],
+                water_year_start,
+                catchments,
+            )
+        )
+    if left_out:
+        parts.append(_left_out_html(left_out, result, names, quality, max_gauges))
+    parts.append(_method_html())
+    parts.append("</main></body></html>\n")
+    return "\n".join(parts)
+
+
+def write_report(result, path, **kw):
+    """Write :func:`report_html` to ``path`` (``.html``), atomically; return the path.
+
+    The output folder is checked first; the page is built completely before it is written
+    beside the target and moved into place, so a failure leaves no file.
+    """
+    path = Path(path)
+    if path.suffix.lower() not in (".html", ".htm"):
+        raise InputError("the report must be an HTML file ending in .html", file=str(path))
+    with files.atomic_path(path) as temp:
+        text = report_html(result, **kw)
+        temp.write_text(text, encoding="utf-8")
+    return path
+
+
+def chosen_years(annual):
+    """Water years to draw in detail: the one with median recharge and the wettest.
+
+    Complete years are preferred; depths (mm) are used when known, else volumes.
+
+    Returns
+    -------
+    list of (int, str)
+        ``(water_year, why)``, one or two items (none when no year has recharge).
+    """
+    if annual is None or not len(annual):
+        return []
+    column = "recharge_mm" if np.isfinite(annual["recharge_mm"]).any() else "recharge_m3"
+    table = annual[np.isfinite(annual[column].to_numpy(dtype=float))]
+    if table["complete"].astype(bool).any():
+        table = table[table["complete"].astype(bool)]
+    if table.empty:
+        return []
+    values = table[column].to_numpy(dtype=float)
+    years = table["water_year"].to_numpy(dtype=int)
+    order = np.argsort(values, kind="stable")
+    median = int(years[order[(values.size - 1) // 2]])
+    wettest = int(years[order[-1]])
+    picks = [(median, "median recharge")]
+    if wettest != median:
+        picks.append((wettest, "largest recharge"))
+    return picks
+
+
+def hydrograph_figure(gauge_result, years=None, water_year_start=10):
+    """The gauge's hydrograph: whole record small, then chosen water years with each event's
+    recession-curve displacement drawn (Rorabaugh 1964).
+
+    In each detailed year, for every measured event: the pre-event recession from its anchor
+    (the lowest day before the rise) along K to the critical time Tc = 0.2144 K after the peak,
+    where it gives Q1; the post-event recession through its anchor, giving Q2 at the same time;
+    a dotted line marks the critical time. Events that could not be measured are crossed.
+
+    Parameters
+    ----------
+    gauge_result : GaugeResult
+    years : list of (int, str), optional
+        Water years to draw in detail with a reason (default :func:`chosen_years`).
+    water_year_start : int
+        First month of the water year.
+
+    Returns
+    -------
+    matplotlib.figure.Figure or None
+        None when the gauge has no flow to draw.
+    """
+    from matplotlib.figure import Figure
+
+    flow = gauge_result.flow
+    if flow is None or not np.isfinite(flow.to_numpy(dtype=float)).any():
+        return None
+    if years is None:
+        years = chosen_years(gauge_result.annual)
+    heights = [1.3] + [2.5] * len(years)
+    figure = Figure(figsize=(11.0, 0.9 + sum(heights)))
+    grid = figure.add_gridspec(
+        len(heights),
+        1,
+        height_ratios=heights,
+        hspace=0.55,
+        top=1 - 0.45 / figure.get_figheight(),
+        bottom=0.4 / figure.get_figheight(),
+        left=0.06,
+        right=0.78,
+    )
+    overview = figure.add_subplot(grid[0])
+    _overview(overview, gauge_result, years, water_year_start)
+    for row, (year, why) in enumerate(years, start=1):
+        ax = figure.add_subplot(grid[row])
+        _year_detail(ax, gauge_result, year, why, water_year_start, legend=row == 1)
+    return figure
+
+
+def recession_figure(gauge_result):
+    """The recession segments behind K and the fitted recession.
+
+    Each segment's flow is divided by its fitted value on the segment's first day and drawn
+    against days since that day, on a log axis; straight lines falling one log cycle in K days
+    mean the segments agree with K. The 90 % interval of K is shaded.
+
+    Returns
+    -------
+    matplotlib.figure.Figure or None
+        None when the gauge has no recession segments.
+    """
+    from matplotlib.figure import Figure
+
+    recession = gauge_result.recession
+    flow = gauge_result.flow
+    if recession is None or flow is None or not len(recession.segments):
+        return None
+    segments = recession.segments
+    segments = segments[np.isfinite(segments["slope"].to_numpy(dtype=float))]
+    if segments.empty:
+        return None
+    q = flow.to_numpy(dtype=float)
+    figure = Figure(figsize=(6.0, 3.9))
+    ax = figure.add_subplot(1, 1, 1)
+    xs, ys = [], []
+    longest = 0
+    for first, last, slope, mean in zip(
+        segments["first"].to_numpy(int),
+        segments["last"].to_numpy(int),
+        segments["slope"].to_numpy(float),
+        segments["mean_flow_m3s"].to_numpy(float),
+    ):
+        days = np.arange(last - first + 1, dtype=float)
+        start = math.log10(mean) - slope * (days.size - 1) / 2.0
+        with np.errstate(divide="ignore", invalid="ignore"):
+            rel = 10.0 ** (np.log10(q[first : last + 1]) - start)
+        xs.extend([*days, np.nan])
+        ys.extend([*rel, np.nan])
+        longest = max(longest, days.size - 1)
+    ax.plot(xs, ys, color="#4d4d4d", alpha=0.25, linewidth=0.7, label="segments (one line each)")
+    k = recession.days
+    span = max(float(longest), 1.1 * k if np.isfinite(k) else 0.0, 10.0)
+    t = np.linspace(0.0, span, 100)
+    if np.isfinite(k):
+        source = "given" if recession.source == "given" else "fitted"
+        ax.plot(
+            t, 10.0 ** (-t / k), color=PRE_COLOUR, linewidth=2.0, label=f"K {source}: {k:.1f} days"
+        )
+        if np.isfinite(recession.low) and np.isfinite(recession.high):
+            ax.fill_between(
+                t,
+                10.0 ** (-t / recession.low),
+                10.0 ** (-t / recession.high),
+                color=PRE_COLOUR,
+                alpha=0.25,
+                linewidth=0,
+                label=f"90% interval {recession.low:.1f}–{recession.high:.1f} days",
+            )
+        ax.axhline(0.1, color="#999999", linewidth=0.8, linestyle=":")
+        ax.annotate(
+            "one log cycle: the fitted line crosses here at K days",
+            (0.0, 0.1),
+            xytext=(2, 3),
+            textcoords="offset points",
+            fontsize=7,
+            color="#555555",
+        )
+    ax.set_yscale("log")
+    _plain_log_ticks(ax)
+    ax.set_xlim(0, span)
+    finite = np.asarray(ys, dtype=float)
+    finite = finite[np.isfinite(finite) & (finite > 0)]
+    low = min(0.05, float(np.percentile(finite, 1))) if finite.size else 0.05
+    ax.set_ylim(max(low, 1e-3), 1.6)
+    ax.set_xlabel("days since the segment's first day")
+    ax.set_ylabel("flow ÷ fitted flow on first day")
+    ax.set_title(f"{len(segments)} recession segments behind K", fontsize=10)
+    ax.legend(fontsize=7, loc="lower left", frameon=True)
+    ax.grid(True, which="both", color="#eeeeee", linewidth=0.6)
+    figure.tight_layout()
+    return figure
+
+
+def png_data_uri(figure, dpi=FIGURE_DPI, tight=True):
+    """A matplotlib figure as a compact PNG ``data:`` URI (palette PNG, no metadata).
+
+    ``tight`` trims the white margin (and keeps legends placed outside the axes), at the cost
+    of drawing the figure twice.
+    """
+    from PIL import Image
+
+    buffer = io.BytesIO()
+    figure.savefig(
+        buffer,
+        format="png",
+        dpi=dpi,
+        facecolor="white",
+        bbox_inches="tight" if tight else None,
+        pad_inches=0.1,
+        metadata={"Software": None},
+    )
+    buffer.seek(0)
+    image = Image.open(buffer).convert("RGB")
+    dither = getattr(getattr(Image, "Dither", Image), "NONE", 0)
+    palette = image.quantize(colors=256, dither=dither)
+    out = io.BytesIO()
+    palette.save(out, format="PNG", optimize=True)
+    return "data:image/png;base64," + base64.b64encode(out.getvalue()).decode("ascii")
+
+
+# --------------------------------------------------------------------------- figures (workers)
+
+
+def _days(index):
+    """Matplotlib date numbers of a DatetimeIndex or Timestamps."""
+    from matplotlib import dates as mdates
+
+    return mdates.date2num(pd.DatetimeIndex(index).to_pydatetime())
+
+
+def _date_axis(ax):
+    from matplotlib import dates as mdates
+
+    locator = mdates.AutoDateLocator(minticks=4, maxticks=14)
+    ax.xaxis.set_major_locator(locator)
+    ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator))
+
+
+def _plain_log_ticks(ax):
+    """Ticks such as 0.05, 0.1, 0.2, 0.5, 1 on a log axis (easier to read than powers of ten)."""
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullLocator
+
+    ax.yaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0), numticks=12))
+    ax.yaxis.set_major_formatter(FuncFormatter(_tick_text))
+    ax.yaxis.set_minor_locator(NullLocator())
+
+
+def _decade_ticks(ax):
+    """Ticks at each power of ten only, labelled plainly (a hydrograph spans many decades)."""
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullLocator
+
+    ax.yaxis.set_major_locator(LogLocator(base=10, numticks=8))
+    ax.yaxis.set_major_formatter(FuncFormatter(_tick_text))
+    ax.yaxis.set_minor_locator(NullLocator())
+
+
+def _tick_text(value, _position=None):
+    """0.001, 0.05, 2, 500, 1e+04: short labels for log-axis ticks."""
+    return f"{value:g}"
+
+
+def _positive(values):
+    v = np.asarray(values, dtype=float)
+    return np.where(v > 0, v, np.nan)
+
+
+def _overview(ax, g, years, start_month):
+    flow = g.flow
+    x = _days(flow.index)
+    ax.plot(x, _positive(flow), color=FLOW_COLOUR, linewidth=0.4, label="daily flow")
+    if g.baseflow is not None and np.isfinite(g.baseflow.to_numpy(dtype=float)).any():
+        ax.plot(x, _positive(g.baseflow), color=BASEFLOW_COLOUR, linewidth=0.7, label="baseflow")
+    for year, _why in years:
+        first, last = water_year_bounds(year, start_month)
+        lo, hi = _days([first, last + pd.Timedelta(days=1)])
+        ax.axvspan(lo, hi, color=ZOOM_SHADE, alpha=0.8, zorder=0, linewidth=0)
+        ax.text(
+            (lo + hi) / 2,
+            1.0,
+            str(year),
+            transform=ax.get_xaxis_transform(),
+            ha="center",
+            va="bottom",
+            fontsize=7,
+        )
+    ax.set_yscale("log")
+    _decade_ticks(ax)
+    ax.set_xlim(x[0], x[-1])
+    ax.set_ylabel("m³/s")
+    ax.set_title(
+        "Whole record, daily flow on a log scale (shaded: the water years drawn below)",
+        fontsize=9,
+        loc="left",
+        pad=10,
+    )
+    ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.0, 1.0), frameon=False)
+    _date_axis(ax)
+    ax.tick_params(labelsize=7)
+
+
+def _year_detail(ax, g, year, why, start_month, legend):
+    first, last = water_year_bounds(year, start_month)
+    flow = g.flow.loc[first - pd.Timedelta(days=15) : last + pd.Timedelta(days=15)]
+    x = _days(flow.index)
+    ax.plot(x, _positive(flow), color=FLOW_COLOUR, linewidth=0.9, label="daily flow")
+    k = g.recession.days if g.recession is not None else np.nan
+    events = g.events
+    shown = events.iloc[0:0]
+    if len(events) and np.isfinite(k):
+        peaks = pd.DatetimeIndex(events["peak_date"])
+        shown = events[(peaks >= first) & (peaks <= last)]
+    used = shown[shown["used"].astype(bool)] if len(shown) else shown
+    skipped = shown[~shown["used"].astype(bool)] if len(shown) else shown
+    if len(used):
+        _construction(ax, used, events, k)
+    if len(skipped):
+        peak_q = g.flow.reindex(pd.DatetimeIndex(skipped["peak_date"])).to_numpy(dtype=float)
+        ax.plot(
+            _days(skipped["peak_date"]),
+            _positive(peak_q),
+            linestyle="none",
+            marker="x",
+            color="#cb181d",
+            markersize=6,
+            label="event not measured",
+        )
+    ax.set_yscale("log")
+    _decade_ticks(ax)
+    ax.set_xlim(*_days([first, last + pd.Timedelta(days=1)]))
+    ann = g.annual
+    row = ann[ann["water_year"] == year] if len(ann) else ann
+    value = ""
+    if len(row) and not bool(row["complete"].iloc[0]):
+        why += ", incomplete year"
+    if len(row):
+        mm = float(row["recharge_mm"].iloc[0])
+        if np.isfinite(mm):
+            value = f": {mm:,.0f} mm"
+        else:
+            value = f": {float(row['recharge_m3'].iloc[0]) / 1e6:,.3g} million m³"
+    tc = CRITICAL_TIME_FACTOR * k if np.isfinite(k) else np.nan
+    ax.set_title(
+        f"Water year {year} ({why}{value}; {len(used)} events measured)"
+        + (f"     K = {k:.1f} days, critical time Tc = {tc:.1f} days" if np.isfinite(k) else ""),
+        fontsize=9,
+        loc="left",
+    )
+    ax.set_ylabel("m³/s")
+    _date_axis(ax)
+    ax.tick_params(labelsize=7)
+    ax.grid(True, which="major", color="#eeeeee", linewidth=0.6)
+    if legend:
+        ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.0, 1.0), frameon=False)
+
+
+def _construction(ax, used, all_events, k):
+    """Pre- and post-event recessions, the critical time, Q1 and Q2 of measured events."""
+    peak = pd.DatetimeIndex(used["peak_date"])
+    tc = used["critical_time_days"].to_numpy(dtype=float)
+    critical = _days(peak) + tc
+    pre_t = _days(used["pre_anchor_date"])
+    pre_q = used["pre_anchor_m3s"].to_numpy(dtype=float)
+    post_t = _days(used["post_anchor_date"])
+    q1 = used["q_before_m3s"].to_numpy(dtype=float)
+    q2 = used["q_after_m3s"].to_numpy(dtype=float)
+    # The post-event recession runs on to the next event's rise (where the next pre-event
+    # recession takes over), or half a critical time past the later of its anchor and Tc.
+    starts = np.sort(_days(all_events["rise_start_date"]))
+    ends = np.maximum(post_t, critical) + 0.5 * tc
+    nxt = starts[np.minimum(np.searchsorted(starts, critical, side="right"), starts.size - 1)]
+    ends = np.where((nxt > np.maximum(post_t, critical)) & (nxt < ends), nxt, ends)
+    pre_x, pre_y, post_x, post_y = [], [], [], []
+    for i in range(len(used)):
+        t = np.linspace(pre_t[i], critical[i], 12)
+        pre_x.extend([*t, np.nan])
+        pre_y.extend([*(pre_q[i] * 10.0 ** (-(t - pre_t[i]) / k)), np.nan])
+        lo = min(post_t[i], critical[i])
+        t = np.linspace(lo, ends[i], 12)
+        post_x.extend([*t, np.nan])
+        post_y.extend([*(q2[i] * 10.0 ** (-(t - critical[i]) / k)), np.nan])
+    for c in critical:
+        ax.axvline(c, color=CRITICAL_COLOUR, linewidth=0.6, linestyle=":", zorder=1)
+    ax.plot([], [], color=CRITICAL_COLOUR, linewidth=0.8, linestyle=":", label="critical time")
+    ax.plot(pre_x, pre_y, color=PRE_COLOUR, linewidth=1.3, linestyle="--", zorder=2.5,
+            label="pre-event recession, carried along K")  # fmt: skip
+    # The post-event recession as a broad band under the flow line, which runs along it.
+    ax.plot(post_x, post_y, color=POST_COLOUR, linewidth=3.5, alpha=0.5, solid_capstyle="butt",
+            zorder=1.5, label="post-event recession")  # fmt: skip
+    ax.vlines(critical, q1, q2, color=CRITICAL_COLOUR, linewidth=1.4, zorder=3)
+    ax.plot(critical, q1, linestyle="none", marker="o", markersize=4.5, markerfacecolor="white",
+            markeredgecolor=PRE_COLOUR, zorder=4, label="Q1 (pre-event, at critical time)")  # fmt: skip
+    ax.plot(critical, q2, linestyle="none", marker="o", markersize=4.5, color=POST_COLOUR,
+            zorder=4, label="Q2 (post-event, at critical time)")  # fmt: skip
+
+
+# --------------------------------------------------------------------------- HTML (workers)
+
+_CSS = """
+body{font-family:"DejaVu Sans","Segoe UI",Helvetica,Arial,sans-serif;color:#1a1a1a;margin:0;
+background:#f4f4f2;font-size:15px;line-height:1.45}
+*{box-sizing:border-box}
+main{max-width:1180px;margin:0 auto;padding:18px 28px 40px;background:#fff}
+h1{font-size:26px;margin:8px 0 4px}
+h2{font-size:21px;margin:34px 0 8px;padding-top:10px;border-top:3px solid #08519c}
+h3{font-size:16px;margin:20px 0 6px}
+p.lead{color:#444;margin:0 0 12px}
+.cautions{background:#fff8e1;border:1px solid #e0b000;border-left:6px solid #e0b000;
+padding:8px 16px;margin:12px 0 16px}
+.cautions h2{border:0;margin:4px 0;padding:0;font-size:17px}
+.cautions ul{margin:4px 0 6px;padding-left:20px}
+.cautions li{margin:3px 0}
+figure{margin:10px 0}
+figure img{max-width:100%;height:auto;border:1px solid #e5e5e5}
+figcaption{font-size:13px;color:#555}
+table{border-collapse:collapse;font-size:13px;margin:6px 0 12px}
+th,td{padding:3px 7px;border-bottom:1px solid #e3e3e3;text-align:right;white-space:nowrap}
+th{background:#eef3f8;text-align:center;vertical-align:bottom}
+td.text,th.text{text-align:left;white-space:normal}
+tr.incomplete td{color:#777;font-style:italic}
+tr.mean td{font-weight:bold;border-top:2px solid #999}
+.ok{display:inline-block;background:#e5f5e0;color:#1b5e20;border:1px solid #a1d99b;
+padding:1px 8px;border-radius:3px}
+.flags{background:#fdecea;border:1px solid #d9534f;border-left:6px solid #d9534f;
+padding:6px 14px;margin:8px 0}
+.flags strong{color:#a12622}
+.flags ul{margin:4px 0;padding-left:20px}
+.badge{display:inline-block;padding:0 6px;border-radius:3px;font-size:12px}
+.badge.ok{background:#e5f5e0;color:#1b5e20}
+.badge.flag{background:#fdecea;color:#a12622;border:1px solid #d9534f}
+.facts{display:flex;flex-wrap:wrap;gap:6px 22px;margin:6px 0 4px;font-size:14px}
+.facts div span{color:#666}
+.row{display:flex;flex-wrap:wrap;gap:18px;align-items:flex-start}
+nav ol{columns:3;font-size:14px}
+.note{color:#555;font-size:13px}
+a{color:#08519c}
+.wide{overflow-x:auto;max-width:100%}
+caption{font-size:13px;text-align:left;color:#444}
+"""
+
+
+def _head(title):
+    return (
+        '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
+        '<meta name="viewport" content="width=device-width, initial-scale=1">'
+        f"<title>{_e(title)}</title><style>{_CSS}</style></head><body><main>"
+    )
+
+
+def _e(text):
+    return html.escape(str(text), quote=True)
+
+
+def _fmt(value, digits=0, dash="–"):
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return dash
+    if not math.isfinite(v):
+        return dash
+    text = f"{v:,.{digits}f}"
+    if text.startswith("-") and float(text.replace(",", "")) == 0:
+        text = text[1:]  # no "-0"
+    return text
+
+
+def _sig(value, figures=3):
+    """A number to a few significant figures, without an exponent for everyday sizes."""
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return "–"
+    if not math.isfinite(v):
+        return "–"
+    if v == 0:
+        return "0"
+    digits = max(0, figures - 1 - int(math.floor(math.log10(abs(v)))))
+    return _fmt(round(v, digits), digits)
+
+
+def _range(value, low, high, digits=0):
+    """``" (low–high)"`` after a value, or nothing when all three round alike."""
+    texts = [_fmt(v, digits) for v in (value, low, high)]
+    if "–" in texts[1:] or texts[0] == texts[1] == texts[2]:
+        return ""
+    return f" ({texts[1]}–{texts[2]})"
+
+
+def _img(figure, alt, caption=None, width=None, tight=True):
+    uri = png_data_uri(figure, tight=tight)
+    style = f' style="width:{width}px"' if width else ""
+    cap = f"<figcaption>{_e(caption)}</figcaption>" if caption else ""
+    return f'<figure><img src="{uri}" alt="{_e(alt)}"{style}>{cap}</figure>'
+
+
+def _gauge_names(gauges, catchments):
+    names = {}
+    for layer in (catchments, gauges):
+        if layer is None or "gauge_id" not in getattr(layer, "columns", ()):
+            continue
+        column = next((c for c in layer.columns if str(c).lower() == "name"), None)
+        if column is None:
+            continue
+        for gid, name in zip(layer["gauge_id"], layer[column]):
+            if gid is not None and isinstance(name, str) and name.strip():
+                names[str(gid)] = name.strip()
+    return names
+
+
+def _catchment_quality(catchments):
+    out = {}
+    if "gauge_id" in catchments.columns and "quality" in catchments.columns:
+        for gid, text in zip(catchments["gauge_id"], catchments["quality"]):
+            if isinstance(gid, str) and isinstance(text, str) and gid not in out:
+                out[gid] = text
+    return out
+
+
+def _flags(gid, g, quality):
+    text = quality.get(gid)
+    if text is None:
+        text = g.quality_text
+    if text.strip() == "ok":
+        return []
+    return [t.strip() for t in text.split("; ") if t.strip()]
+
+
+def _summary_sentence(result):
+    s = result.summary
+    text = (
+        f"{s.get('gauges', len(result.gauges))} gauges: {s.get('computed', 0)} computed, "
+        f"{s.get('flagged', 0)} flagged, {s.get('failed', 0)} failed."
+    )
+    if "catchments" in s:
+        text += f" {s['catchments']} catchments"
+        if s.get("catchments_without_gauge"):
+            text += f", {s['catchments_without_gauge']} without a gauge"
+        text += "."
+    return text
+
+
+def _cautions_html():
+    items = "".join(f"<li><b>{_e(h)}.</b> {_e(t)}</li>" for h, t in CAUTIONS)
+    return (
+        '<section class="cautions" id="cautions"><h2>Read this first: what the method assumes</h2>'
+        f"<ul>{items}</ul></section>"
+    )
+
+
+def _maps_html(result, gauges, scheme, classes, include_year_maps):
+    catchments = result.catchments
+    out = ['<section id="maps">']
+    if "recharge_mm_per_year" in catchments.columns:
+        out.append(
+            _img(
+                recharge_map(catchments, gauges, scheme=scheme, classes=classes),
+                "Map of mean annual recharge by catchment",
+                "Mean annual recharge over complete water years. Nested catchments are drawn on "
+                "top of the basins that contain them; grey: no estimate (see the quality flags).",
+                width=900,
+            )
+        )
+    field = "incremental_recharge_mm_per_year"
+    if (
+        field in catchments.columns
+        and np.isfinite(pd.to_numeric(catchments[field], errors="coerce")).any()
+    ):
+        out.append(
+            _img(
+                recharge_map(catchments, gauges, field=field, scheme=scheme, classes=classes),
+                "Map of mean annual recharge of the areas between gauges",
+                "Recharge of each intervening area: the basin minus the gauged basins directly "
+                "upstream.",
+                width=900,
+            )
+        )
+    annual = result.annual
+    if include_year_maps and len(annual) and "water_year" in annual.columns:
+        try:
+            figure = year_maps(catchments, annual, gauges, scheme=scheme, classes=classes)
+        except InputError:
+            figure = None
+        if figure is not None:
+            out.append(
+                _img(
+                    figure,
+                    "Maps of recharge by water year",
+                    "Recharge of each water year (named by the year in which it ends), with one "
+                    "set of classes for all years; hatched: incomplete year.",
+                )
+            )
+    out.append("</section>")
+    return "\n".join(out)
+
+
+def _summary_html(result, names, quality, anchors, settings):
+    rows = []
+    for gid, g in result.gauges.items():
+        k = g.recession
+        flags = _flags(gid, g, quality)
+        link = f'<a href="#{anchors[gid]}">{_e(gid)}</a>' if gid in anchors else _e(gid)
+        k_text = "–"
+        if k is not None and np.isfinite(k.days):
+            k_text = _fmt(k.days, 1) + _range(k.days, k.low, k.high, 1)
+            if k.source == "given":
+                k_text += " (given)"
+        r_text = _fmt(g.recharge_mm_per_year) + _range(
+            g.recharge_mm_per_year, g.recharge_mm_per_year_low, g.recharge_mm_per_year_high
+        )
+        used = int(g.events["used"].sum()) if len(g.events) else 0
+        status = (
+            '<span class="badge ok">ok</span>'
+            if not flags
+            else f'<span class="badge flag">{len(flags)} flag{"s" if len(flags) > 1 else ""}</span>'
+        )
+        rows.append(
+            "<tr>"
+            f'<td class="text">{link}</td><td class="text">{_e(names.get(gid, ""))}</td>'
+            f"<td>{_fmt(g.area_km2, 1)}</td><td>{k_text}</td><td>{r_text}</td>"
+            f"<td>{_fmt(g.baseflow_index, 2)}</td><td>{g.complete_years}</td><td>{used}</td>"
+            f'<td class="text">{status}</td></tr>'
+        )
+    table = (
+        "<table><thead><tr>"
+        '<th class="text">Gauge</th><th class="text">Name</th><th>Drainage area<br>km²</th>'
+        "<th>Recession index K<br>days (90% interval)</th>"
+        "<th>Mean annual recharge<br>mm/yr (from K interval)</th><th>Baseflow<br>index</th>"
+        '<th>Complete<br>water years</th><th>Events<br>measured</th><th class="text">Quality</th>'
+        "</tr></thead><tbody>" + "".join(rows) + "</tbody></table>"
+    )
+    out = ['<section id="summary"><h2>Summary</h2>', table]
+    without = _catchments_without_gauge(result.catchments)
+    if without:
+        shown = ", ".join(_e(n) for n in without[:30]) + (" …" if len(without) > 30 else "")
+        out.append(f'<p class="note">Catchments without a gauge (no estimate): {shown}.</p>')
+    if settings is not None:
+        out.append(_settings_html(settings))
+    out.append(
+        '<p class="note">All numbers are in the run\'s GeoPackage: layer <code>catchments</code>, '
+        "tables <code>annual</code>, <code>events</code>, <code>segments</code> and "
+        "<code>master_recession</code>.</p></section>"
+    )
+    return "\n".join(out)
+
+
+def _catchments_without_gauge(catchments):
+    if "quality" not in catchments.columns:
+        return []
+    column = next((c for c in catchments.columns if str(c).lower() == "name"), None)
+    out = []
+    for i, text in enumerate(catchments["quality"]):
+        if isinstance(text, str) and text.startswith("no gauge linked"):
+            out.append(str(catchments[column].iloc[i]) if column else f"row {i + 1}")
+    return out
+
+
+def _settings_html(settings):
+    if dataclasses.is_dataclass(settings):
+        items = dataclasses.asdict(settings)
+    elif isinstance(settings, dict):
+        items = dict(settings)
+    else:
+        return ""
+    cells = "".join(
+        f'<tr><td class="text">{_e(str(k).replace("_", " "))}</td>'
+        f'<td class="text">{_e("–" if v is None else v)}</td></tr>'
+        for k, v in items.items()
+    )
+    return (
+        "<details><summary>Settings of this run</summary>"
+        f"<table><tbody>{cells}</tbody></table></details>"
+    )
+
+
+def _contents_html(drawn, names, quality, anchors, result):
+    if not drawn:
+        return ""
+    items = []
+    for gid in drawn:
+        flags = _flags(gid, result.gauges[gid], quality)
+        mark = " ⚠" if flags else ""
+        name = f" — {names[gid]}" if gid in names else ""
+        items.append(f'<li><a href="#{anchors[gid]}">{_e(gid)}{_e(name)}</a>{mark}</li>')
+    return f'<nav id="contents"><h2>Gauges</h2><ol>{"".join(items)}</ol></nav>'
+
+
+def _gauge_html(gid, g, name, catchment_quality, anchor, start_month, catchments):
+    quality = {gid: catchment_quality} if catchment_quality is not None else {}
+    flags = _flags(gid, g, quality)
+    heading = _e(gid) + (f" — {_e(name)}" if name else "")
+    out = [f'<section class="gauge" id="{anchor}"><h2>{heading}</h2>']
+    if flags:
+        items = "".join(f"<li>{_e(f)}</li>" for f in flags)
+        out.append(
+            f'<div class="flags"><strong>Check before use — {len(flags)} '
+            f"quality flag{'s' if len(flags) > 1 else ''}:</strong><ul>{items}</ul></div>"
+        )
+    else:
+        out.append('<p><span class="ok">Quality: ok</span></p>')
+    out.append(_facts_html(g))
+    figure = hydrograph_figure(g, water_year_start=start_month)
+    if figure is not None:
+        out.append(
+            _img(
+                figure,
+                f"Hydrograph of gauge {gid} with the displacement of each event",
+                "Dashed orange: pre-event recession carried along K from the lowest day before "
+                "the rise; broad green: post-event recession; dotted: critical time "
+                f"(peak + {CRITICAL_TIME_FACTOR} K), where Q1 (open) and Q2 (filled) are read. "
+                "Recharge of an event = 2 (Q2 − Q1) K / 2.3026.",
+                tight=False,
+            )
+        )
+    else:
+        out.append('<p class="note">No discharge to draw.</p>')
+    rec = recession_figure(g)
+    master = _master_html(g.master_recession)
+    if rec is not None or master:
+        out.append('<h3>Recession index</h3><div class="row">')
+        if rec is not None:
+            out.append(_img(rec, f"Recession segments of gauge {gid}", width=600, tight=False))
+        if master:
+            out.append(f"<div>{master}</div>")
+        out.append("</div>")
+    out.append(_annual_html(g.annual))
+    out.append('<p class="note"><a href="#contents">Back to the list of gauges</a></p></section>')
+    return "\n".join(out)
+
+
+def _facts_html(g):
+    k = g.recession
+    facts = [("Drainage area", f"{_fmt(g.area_km2, 1)} km²")]
+    if k is not None and np.isfinite(k.days):
+        text = f"{_fmt(k.days, 1)} days" + _range(k.days, k.low, k.high, 1)
+        if k.source == "given":
+            text += ", given"
+        facts.append(("Recession index K", text))
+        facts.append(("Critical time", f"{_fmt(CRITICAL_TIME_FACTOR * k.days, 1)} days"))
+        facts.append(("Segments", str(k.segments_used)))
+    if np.isfinite(g.lag_days):
+        facts.append(("Runoff ends after", f"{_fmt(g.lag_days, 1)} days"))
+    text = "not computed"
+    if np.isfinite(g.recharge_mm_per_year):
+        text = f"{_fmt(g.recharge_mm_per_year)} mm/yr" + _range(
+            g.recharge_mm_per_year, g.recharge_mm_per_year_low, g.recharge_mm_per_year_high
+        )
+    facts.append(("Mean annual recharge", text))
+    facts.append(("Baseflow index", _fmt(g.baseflow_index, 2)))
+    facts.append(("Complete water years", str(g.complete_years)))
+    if len(g.events):
+        used = int(g.events["used"].sum())
+        facts.append(("Events measured", f"{used} of {len(g.events)}"))
+    cells = "".join(f"<div><span>{_e(a)}:</span> <b>{_e(b)}</b></div>" for a, b in facts)
+    return f'<div class="facts">{cells}</div>'
+
+
+def _master_html(table):
+    if table is None or not len(table):
+        return ""
+    rows = "".join(
+        "<tr>"
+        f"<td>{_flow(r.flow_low_m3s)} – {_flow(r.flow_high_m3s)}</td><td>{int(r.segments)}</td>"
+        f"<td>{_fmt(r.recession_index_days, 1)}</td>"
+        f"<td>{_fmt(r.recession_index_q25, 1)}–{_fmt(r.recession_index_q75, 1)}</td></tr>"
+        for r in table.itertuples()
+    )
+    return (
+        "<table><caption>Recession index by flow level (master recession curve)</caption>"
+        "<thead><tr><th>Flow m³/s</th><th>Segments</th><th>K days</th><th>K middle half</th>"
+        f"</tr></thead><tbody>{rows}</tbody></table>"
+        '<p class="note">One homogeneous aquifer recedes at the same K at every flow level.</p>'
+    )
+
+
+def _flow(value):
+    v = float(value)
+    if not math.isfinite(v):
+        return "–"
+    return f"{v:.3g}"
+
+
+def _annual_html(annual):
+    if annual is None or not len(annual):
+        return '<p class="note">No annual table: no water year could be computed.</p>'
+    table = annual.copy()
+    for name in ANNUAL_SHOWN:
+        if name not in table.columns:
+            table[name] = np.nan
+    complete = table["complete"].astype(bool).to_numpy()
+    # The low–high column only when the K interval moves some year's recharge by 1 mm or more.
+    show_range = any(
+        _range(v, lo, hi) for v, lo, hi in table[list(ANNUAL_SHOWN[:3])].itertuples(index=False)
+    )
+    head = ["Water year", "Recharge<br>mm"]
+    if show_range:
+        head.append("Low–high<br>mm")
+    head += [
+        "Recharge<br>million m³",
+        "Baseflow<br>mm",
+        "Storage<br>change mm",
+        "Residual<br>mm",
+        "Seasonal<br>recession mm",
+        "Baseflow<br>index",
+        "Events (not<br>measured)",
+        "Complete",
+    ]
+
+    def cells(values, first, note):
+        v = values
+        out = [first, _fmt(v["recharge_mm"])]
+        if show_range:
+            out.append(f"{_fmt(v['recharge_low_mm'])}–{_fmt(v['recharge_high_mm'])}")
+        out += [
+            _sig(v["recharge_m3"] / 1e6),
+            _fmt(v["baseflow_mm"]),
+            _fmt(v["storage_change_mm"]),
+            _fmt(v["residual_mm"]),
+            _fmt(v["seasonal_recharge_mm"]),
+            _fmt(v["baseflow_index"], 2),
+        ]
+        return out + note
+
+    rows = []
+    for i, r in enumerate(table.to_dict("records")):
+        events = str(int(r["events"])) if np.isfinite(r["events"]) else "–"
+        if np.isfinite(r["events_skipped"]) and r["events_skipped"]:
+            events += f" ({int(r['events_skipped'])})"
+        if complete[i]:
+            status = "yes"
+        elif np.isfinite(r["days_missing"]) and r["days_missing"]:
+            status = f"no, {int(r['days_missing'])} days missing"
+        else:
+            status = "no"
+        row = cells(r, str(int(r["water_year"])), [events, status])
+        klass = "" if complete[i] else ' class="incomplete"'
+        rows.append(f"<tr{klass}>" + "".join(f"<td>{c}</td>" for c in row) + "</tr>")
+    if complete.any():
+        means = {name: float(table.loc[complete, name].mean()) for name in ANNUAL_SHOWN}
+        row = cells(means, f"mean of {int(complete.sum())} complete", ["", ""])
+        rows.append('<tr class="mean">' + "".join(f"<td>{c}</td>" for c in row) + "</tr>")
+    note = (
+        "Residual = recharge − baseflow − storage change. Incomplete years (grey italic) are "
+        "left out of the means."
+    )
+    note += (
+        " Low–high: recharge from the two ends of the K interval."
+        if show_range
+        else " The K interval changes no year's recharge by 1 mm or more."
+    )
+    return (
+        '<h3>Water years</h3><div class="wide"><table><thead><tr>'
+        + "".join(f"<th>{h}</th>" for h in head)
+        + "</tr></thead><tbody>"
+        + "".join(rows)
+        + f'</tbody></table></div><p class="note">{note}</p>'
+    )
+
+
+#: Annual columns the report shows (the first three in this order: value, low, high).
+ANNUAL_SHOWN = (
+    "recharge_mm",
+    "recharge_low_mm",
+    "recharge_high_mm",
+    "recharge_m3",
+    "baseflow_mm",
+    "storage_change_mm",
+    "residual_mm",
+    "seasonal_recharge_mm",
+    "baseflow_index",
+    "events",
+    "events_skipped",
+    "days_missing",
+)
+
+
+def _left_out_html(left_out, result, names, quality, max_gauges):
+    rows = []
+    for gid in left_out:
+        g = result.gauges[gid]
+        flags = _flags(gid, g, quality)
+        rows.append(
+            f'<tr><td class="text">{_e(gid)}</td><td class="text">{_e(names.get(gid, ""))}</td>'
+            f"<td>{_fmt(g.recharge_mm_per_year)}</td>"
+            f'<td class="text">{_e("; ".join(flags) if flags else "ok")}</td></tr>'
+        )
+    return (
+        f'<section id="not-drawn"><h2>Gauges not drawn ({len(left_out)})</h2>'
+        f'<p class="note">This page draws the first {max_gauges} gauges in full, to stay a '
+        f"sane size; the other {len(left_out)} are listed here. Their tables are in the run's "
+        "GeoPackage; a report of fewer gauges at a time draws them.</p>"
+        '<table><thead><tr><th class="text">Gauge</th><th class="text">Name</th>'
+        '<th>Mean annual recharge<br>mm/yr</th><th class="text">Quality</th></tr></thead>'
+        f"<tbody>{''.join(rows)}</tbody></table></section>"
+    )
+
+
+def _method_html():
+    return (
+        '<section id="method"><h2>Method in brief</h2><p>'
+        "Recession index K (days per log cycle) from the record's recession segments. For each "
+        "event, the pre-event recession is carried along K from the lowest day before the rise "
+        f"to the critical time Tc = {CRITICAL_TIME_FACTOR} K after the peak (Q1); the "
+        "post-event recession gives Q2 at the same time; recharge R = 2 (Q2 − Q1) K / 2.3026 "
+        "with Q as volume per day (Rorabaugh 1964). Depth = volume ÷ drainage area. Events are "
+        "summed by water year of the peak; means use complete years only. Baseflow by a "
+        'recursive filter (Eckhardt 2005 by default).</p><p class="note">Rorabaugh, M.I. (1964) '
+        "IASH Publ. 63, 432–441. Halford, K.J. &amp; Mayer, G.C. (2000) Ground Water 38(3), "
+        "331–342. Eckhardt, K. (2005) Hydrol. Process. 19, 507–515.</p></section>"
+    )
