@@ -319,18 +319,20 @@ def period_recharge(
     day_period = flow.index.to_period(freq)
     periods = pd.period_range(day_period.min(), day_period.max(), freq=freq)
     q = flow.to_numpy(dtype=float)
+    # Group on the periods' integer ordinals: boxing Period objects is slow.
+    ordinals = periods.asi8
     present = (
         pd.Series(np.isfinite(q))
-        .groupby(np.asarray(day_period))
+        .groupby(day_period.asi8)
         .agg(["size", "sum"])
-        .reindex(periods, fill_value=0)
+        .reindex(ordinals, fill_value=0)
     )
     ev_period = (
-        pd.DatetimeIndex(events["peak_date"]).to_period(freq)
+        pd.DatetimeIndex(events["peak_date"]).to_period(freq).asi8
         if len(events)
-        else pd.PeriodIndex([], freq=freq)
+        else np.empty(0, dtype=np.int64)
     )
-    recharge, n_events, skipped = _event_sums(events, periods, np.asarray(ev_period))
+    recharge, n_events, skipped = _event_sums(events, ordinals, ev_period)
     first = periods.start_time.normalize()
     last = periods.end_time.normalize()
     lengths = (last - first).days + 1

@@ -67,37 +67,34 @@ def _by_block(q, one_block):
     return out
 
 
-#: Days filtered per call between checks of the limit.
-_CHUNK = 256
+def _bounded_recursion(a, u, y_first, bound, upper=True):
+    """y_t = a y_{t−1} + u_t, held at or below (``upper``) or at or above ``bound[t]``.
 
+    Solved without a loop over days. For 0 < a < 1 the step y ↦ a y + u is increasing, so it
+    distributes over min (max), and unrolling the bounded recursion gives::
 
-def _recursion_with_limit(c0, c1, x, y_first, limit, binds_on, keeps_binding):
-    """y_t = c1 y_{t−1} + c0 x_t, with y_t replaced by ``limit[t]`` wherever it passes it.
+        y_t = W_t + min(0, min_{s ≤ t} a^{t−s} (bound_s − W_s))        (upper bound)
 
-    ``binds_on(y, limit)`` says where the unconstrained value passes the limit;
-    ``keeps_binding[t]`` says whether, with y_t at its limit, y_{t+1} passes it too, so a run of
-    bound days is stepped over at once and the filter restarts only after it.
+    where W is the unbounded recursion from ``y_first`` (``scipy.signal.lfilter``): the bound
+    either never bit, or last bit on day s and the recursion ran free from there. The running
+    minimum is taken in chunks short enough that a^−s stays finite.
     """
-    n = x.size
+    n = u.size
     y = np.empty(n)
     y[0] = y_first
-    # First day at or after t on which the limit stops binding.
-    idx = np.arange(n)
-    run_end = np.minimum.accumulate(np.where(~keeps_binding, idx, n - 1)[::-1])[::-1]
+    if n == 1:
+        return y
+    pick = np.minimum if upper else np.maximum
+    chunk = max(1, int(np.floor(300.0 / max(-np.log(a), 1e-12))))
     i = 1
     while i < n:
-        j = min(n, i + _CHUNK)
-        seg, _ = lfilter([c0], [1.0, -c1], x[i:j], zi=[c1 * y[i - 1]])
-        over = np.flatnonzero(binds_on(seg, limit[i:j]))
-        if over.size == 0:
-            y[i:j] = seg
-            i = j
-            continue
-        k = i + int(over[0])
-        y[i:k] = seg[: k - i]
-        stop = int(run_end[k])
-        y[k : stop + 1] = limit[k : stop + 1]
-        i = stop + 1
+        j = min(n, i + chunk)
+        free, _ = lfilter([1.0], [1.0, -a], u[i:j], zi=[a * y[i - 1]])
+        steps = np.arange(j - i, dtype=float)
+        scaled = (bound[i:j] - free) * a ** (-steps)
+        running = pick.accumulate(scaled)
+        y[i:j] = free + pick(0.0, running * a**steps)
+        i = j
     return y
 
 
@@ -124,11 +121,7 @@ def eckhardt(flow, recession_index_days, bfi_max=0.80):
     c0 = (1.0 - a) * bfi_max / (1.0 - a * bfi_max)
 
     def one(q):
-        # With b_{t} = Q_t, b_{t+1} passes Q_{t+1} exactly when c1 Q_t + c0 Q_{t+1} > Q_{t+1}.
-        keeps = np.r_[c1 * q[:-1] > (1.0 - c0) * q[1:], False]
-        return _recursion_with_limit(
-            c0, c1, q, _starting_baseflow(q), q, lambda y, lim: y > lim, keeps
-        )
+        return _bounded_recursion(c1, c0 * q, _starting_baseflow(q), q, upper=True)
 
     return _by_block(flow, one)
 
@@ -148,14 +141,9 @@ def _lyne_hollick_pass(q, alpha):
     if n < 2:
         return q.copy()
     dq = np.r_[0.0, np.diff(q)]
-    x = dq  # the drive of the recursion
-    zero = np.zeros(n)
-    # Lower limit f ≥ 0 (baseflow ≤ flow): with f_t = 0, f_{t+1} < 0 while the flow falls.
-    keeps_low = np.r_[dq[1:] < 0, False]
     f_first = q[0] - _starting_baseflow(q)
-    f = _recursion_with_limit(
-        (1.0 + alpha) / 2.0, alpha, x, f_first, zero, lambda y, lim: y < lim, keeps_low
-    )
+    # Lower limit f ≥ 0 (baseflow ≤ flow) inside the recursion.
+    f = _bounded_recursion(alpha, (1.0 + alpha) / 2.0 * dq, f_first, np.zeros(n), upper=False)
     # Upper limit f ≤ Q (baseflow ≥ 0) rarely binds; clip it where it does.
     f = np.minimum(f, q)
     return q - f
