@@ -135,7 +135,7 @@ RESULT_TABLES = (
 def write_geopackage(result, path, daily=False):
     """Write a run's results as one GeoPackage.
 
-    Layer ``catchments`` (and ``subbasins`` with a subbasin map); tables ``annual``,
+    Layers ``catchments``, ``incremental_areas`` (and ``subbasins`` with a subbasin map); tables ``annual``,
     ``events``, ``periods``, ``segments``, ``master_recession`` and ``links``; with
     ``daily=True`` also ``daily`` (flow and baseflow of every day).
     """
@@ -143,6 +143,9 @@ def write_geopackage(result, path, daily=False):
         result.catchments.to_file(temp, layer="catchments", driver="GPKG")
         if getattr(result, "subbasins", None) is not None:
             result.subbasins.to_file(temp, layer="subbasins", driver="GPKG")
+        incremental = result.incremental_areas()
+        if len(incremental):
+            incremental.to_file(temp, layer="incremental_areas", driver="GPKG")
         db = sqlite3.connect(temp)
         try:
             with db:

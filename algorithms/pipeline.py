@@ -407,6 +407,40 @@ class AtlasResult:
     master_recession: pd.DataFrame = field(default_factory=pd.DataFrame)
     links: pd.DataFrame = field(default_factory=pd.DataFrame)
     nesting: object = None
+
+    def incremental_areas(self):
+        """The incremental area of each linked gauge as a polygon layer (no overlaps).
+
+        Columns ``gauge_id, incremental_area_km2, incremental_recharge_mm_per_year,
+        incremental_recharge_m3_per_year, incremental_years, downstream_gauge, quality``: a
+        map of recharge across the intervening areas between gauges.
+        """
+        import geopandas as gpd
+
+        columns = [
+            "gauge_id",
+            "incremental_area_km2",
+            "incremental_recharge_mm_per_year",
+            "incremental_recharge_m3_per_year",
+            "incremental_years",
+            "downstream_gauge",
+            "quality",
+        ]
+        crs = self.catchments.crs
+        if self.nesting is None or not self.nesting.incremental_geometry:
+            return gpd.GeoDataFrame(
+                empty_table(columns), geometry=gpd.GeoSeries([], crs=crs), crs=crs
+            )
+        linked = (
+            self.catchments.dropna(subset=["gauge_id"])
+            .drop_duplicates("gauge_id")
+            .set_index("gauge_id")
+        )
+        ids = [g for g in self.nesting.incremental_geometry if g in linked.index]
+        table = linked.loc[ids, columns[1:]].reset_index()
+        shapes = [self.nesting.incremental_geometry[g] for g in ids]
+        return gpd.GeoDataFrame(table, geometry=gpd.GeoSeries(shapes, crs=crs), crs=crs)
+
     subbasins: object = None
 
     def daily(self) -> pd.DataFrame:
