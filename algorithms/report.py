@@ -565,6 +565,7 @@ table{border-collapse:collapse;font-size:13px;margin:6px 0 12px}
 th,td{padding:3px 7px;border-bottom:1px solid #e3e3e3;text-align:right;white-space:nowrap}
 th{background:#eef3f8;text-align:center;vertical-align:bottom}
 td.text,th.text{text-align:left;white-space:normal}
+td.name{text-align:left}
 tr.incomplete td{color:#777;font-style:italic}
 tr.mean td{font-weight:bold;border-top:2px solid #999}
 .ok{display:inline-block;background:#e5f5e0;color:#1b5e20;border:1px solid #a1d99b;
@@ -684,6 +685,18 @@ def _summary_sentence(result):
         if s.get("catchments_without_gauge"):
             text += f", {s['catchments_without_gauge']} without a gauge"
         text += "."
+    if "linked" in s and "subbasins" not in s:
+        how = {"id": "by their id field", "spatial": "spatially (gauge at the outlet)"}
+        text += (
+            f" {s['linked']} of {s.get('gauges', len(result.gauges))} gauges linked to a "
+            f"catchment {how.get(s.get('link'), '')}".rstrip()
+            + "."
+        )
+    if "subbasins" in s:
+        text += f" {s['subbasins']} subbasins"
+        if s.get("subbasins_without_estimate"):
+            text += f", {s['subbasins_without_estimate']} without an estimate"
+        text += "."
     return text
 
 
@@ -719,6 +732,24 @@ def _maps_html(result, gauges, scheme, classes, include_year_maps):
                 "Map of mean annual recharge of the areas between gauges",
                 "Recharge of each intervening area: the basin minus the gauged basins directly "
                 "upstream.",
+                width=900,
+            )
+        )
+    subbasins = getattr(result, "subbasins", None)
+    if subbasins is not None and "recharge_mm_per_year" in getattr(subbasins, "columns", ()):
+        out.append(
+            _img(
+                recharge_map(
+                    subbasins,
+                    gauges,
+                    scheme=scheme,
+                    classes=classes,
+                    title="Mean annual recharge by subbasin (mm/yr)",
+                ),
+                "Map of mean annual recharge by subbasin",
+                "Each subbasin takes the recharge of the area between its gauge downstream and "
+                "the gauges upstream of that; the field estimate_source says where a value was "
+                "borrowed from another gauge.",
                 width=900,
             )
         )
@@ -763,7 +794,7 @@ def _summary_html(result, names, quality, anchors, settings):
         )
         rows.append(
             "<tr>"
-            f'<td class="text">{link}</td><td class="text">{_e(names.get(gid, ""))}</td>'
+            f'<td class="text">{link}</td><td class="name">{_e(names.get(gid, ""))}</td>'
             f"<td>{_fmt(g.area_km2, 1)}</td><td>{k_text}</td><td>{r_text}</td>"
             f"<td>{_fmt(g.baseflow_index, 2)}</td><td>{g.complete_years}</td><td>{used}</td>"
             f'<td class="text">{status}</td></tr>'
@@ -797,7 +828,9 @@ def _catchments_without_gauge(catchments):
     column = next((c for c in catchments.columns if str(c).lower() == "name"), None)
     out = []
     for i, text in enumerate(catchments["quality"]):
-        if isinstance(text, str) and text.startswith("no gauge linked"):
+        if isinstance(text, str) and (
+            "no gauge linked to this catchment" in text or "is not in the gauges layer" in text
+        ):
             out.append(str(catchments[column].iloc[i]) if column else f"row {i + 1}")
     return out
 
@@ -1027,7 +1060,7 @@ def _left_out_html(left_out, result, names, quality, max_gauges):
         g = result.gauges[gid]
         flags = _flags(gid, g, quality)
         rows.append(
-            f'<tr><td class="text">{_e(gid)}</td><td class="text">{_e(names.get(gid, ""))}</td>'
+            f'<tr><td class="text">{_e(gid)}</td><td class="name">{_e(names.get(gid, ""))}</td>'
             f"<td>{_fmt(g.recharge_mm_per_year)}</td>"
             f'<td class="text">{_e("; ".join(flags) if flags else "ok")}</td></tr>'
         )

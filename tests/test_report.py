@@ -306,3 +306,21 @@ def test_report_renders_in_headless_chromium(demo_report, tmp_path):
     assert seen[cautions] > 50_000, seen  # the cautions box is drawn with its style
     assert seen[dark_blue] > 2_000, seen  # the embedded maps decoded and displayed
     assert seen[grey] > 2_000, seen
+
+
+def test_subbasin_runs_add_the_subbasin_map(sample_paths):
+    from recharge_atlas.algorithms.pipeline import run_atlas_subbasins
+
+    subbasins_path = sample_paths["catchments"].with_name("subbasins.gpkg")
+    if not subbasins_path.exists():
+        pytest.skip("the demo region has no subbasin layer")
+    gauges = files.read_layer(sample_paths["gauges"], "gauges")
+    result = run_atlas_subbasins(
+        gauges,
+        files.read_layer(subbasins_path, "subbasins"),
+        files.read_table(sample_paths["discharge"]),
+    )
+    page = report_html(result, gauges, max_gauges=0, include_year_maps=False)
+    assert 'alt="Map of mean annual recharge by subbasin"' in page
+    assert f"{result.summary['subbasins']} subbasins" in _text(page)
+    assert page.count('<section class="gauge"') == 0
