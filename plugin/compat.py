@@ -15,6 +15,7 @@ from qgis.core import (
     QgsFeatureRequest,
     QgsFeatureSink,
     QgsProcessing,
+    QgsProcessingFeatureSource,
     QgsProcessingParameterDefinition,
     QgsProcessingParameterField,
     QgsProcessingParameterNumber,
@@ -33,6 +34,7 @@ _NAMESPACE = {
     "QgsFeatureRequest": QgsFeatureRequest,
     "QgsFeatureSink": QgsFeatureSink,
     "QgsProcessing": QgsProcessing,
+    "QgsProcessingFeatureSource": QgsProcessingFeatureSource,
     "QgsProcessingParameterDefinition": QgsProcessingParameterDefinition,
     "QgsProcessingParameterField": QgsProcessingParameterField,
     "QgsProcessingParameterNumber": QgsProcessingParameterNumber,
@@ -96,6 +98,7 @@ FIELD_NUMERIC = first_of(
 
 # Geometry types (Qgis.WkbType since 3.30).
 WKB_NO_GEOMETRY = first_of("Qgis.WkbType.NoGeometry", "QgsWkbTypes.NoGeometry")
+WKB_MULTIPOLYGON = first_of("Qgis.WkbType.MultiPolygon", "QgsWkbTypes.MultiPolygon")
 
 # Parameter flags (Qgis.ProcessingParameterFlag since 3.36).
 PARAMETER_OPTIONAL = first_of(
@@ -112,6 +115,12 @@ SINK_REGENERATE_PRIMARY_KEY = first_of(
 )
 SINK_FAST_INSERT = first_of("QgsFeatureSink.Flag.FastInsert", "QgsFeatureSink.FastInsert")
 REQUEST_NO_GEOMETRY = first_of("Qgis.FeatureRequestFlag.NoGeometry", "QgsFeatureRequest.NoGeometry")
+#: Read a Processing source without the context's invalid-geometry check (the core repairs
+#: invalid polygons itself and says so).
+SOURCE_SKIP_GEOMETRY_CHECK = first_of(
+    "Qgis.ProcessingFeatureSourceFlag.SkipGeometryValidityChecks",
+    "QgsProcessingFeatureSource.FlagSkipGeometryValidityChecks",
+)
 
 #: The WKT flavour PROJ prefers (Qgis.CrsWktVariant since 3.36).
 CRS_WKT_PREFERRED = first_of(

@@ -18,7 +18,15 @@ import datetime as _dt
 import math
 from dataclasses import dataclass, field
 
-from qgis.core import QgsFeature, QgsFeatureRequest, QgsField, QgsFields, QgsGeometry
+from qgis.core import (
+    QgsFeature,
+    QgsFeatureRequest,
+    QgsField,
+    QgsFields,
+    QgsGeometry,
+    QgsProcessingFeatureSource,
+    QgsWkbTypes,
+)
 from qgis.PyQt.QtCore import QDate, QDateTime, QTime
 
 from . import compat
@@ -42,12 +50,15 @@ class LayerTable:
         field of ``fields``), for writing them back as they were.
     geometries : list of QgsGeometry
         The geometry of each feature when read with geometry, else empty.
+    wkb_type : QgsWkbTypes.Type or None
+        The source's geometry type.
     """
 
     frame: object
     fields: QgsFields
     rows: list = field(default_factory=list, repr=False)
     geometries: list = field(default_factory=list, repr=False)
+    wkb_type: object = None
 
 
 #: Attribute types that need no conversion (the common case, checked first for speed).
@@ -95,6 +106,14 @@ def _shapely(geometry):
     return wkb.loads(bytes(geometry.asWkb()))
 
 
+def _features(source, request, with_geometry):
+    """The source's features; a Processing source's geometries without the context's validity
+    check, which would drop or refuse invalid polygons before the core can repair them."""
+    if with_geometry and isinstance(source, QgsProcessingFeatureSource):
+        return source.getFeatures(request, compat.SOURCE_SKIP_GEOMETRY_CHECK)
+    return source.getFeatures(request)
+
+
 def read_source(
     source, *, field_names=None, with_geometry=True, keep_rows=False, feedback=None, what="layer"
 ):
@@ -131,7 +150,7 @@ def read_source(
         request.setFlags(compat.REQUEST_NO_GEOMETRY)
 
     records, geometries = [], []
-    for n, feature in enumerate(source.getFeatures(request)):
+    for n, feature in enumerate(_features(source, request, with_geometry)):
         if feedback is not None and n % CHECK_EVERY == 0 and feedback.isCanceled():
             return None
         records.append(feature.attributes())
@@ -145,7 +164,7 @@ def read_source(
     if feedback is not None:
         feedback.pushDebugInfo(f"{what}: {len(frame)} features read")
     if not with_geometry:
-        return LayerTable(frame, fields, rows)
+        return LayerTable(frame, fields, rows, wkb_type=source.wkbType())
 
     import geopandas as gpd
 
@@ -154,7 +173,7 @@ def read_source(
         geometry_name = "_" + geometry_name
     frame[geometry_name] = gpd.GeoSeries([_shapely(g) for g in geometries], index=frame.index)
     frame = gpd.GeoDataFrame(frame, geometry=geometry_name, crs=crs_text(source))
-    return LayerTable(frame, fields, rows, geometries)
+    return LayerTable(frame, fields, rows, geometries, source.wkbType())
 
 
 # --------------------------------------------------------------------------- writing
@@ -259,6 +278,65 @@ def frame_fields(frame, keep: LayerTable | None = None, keep_names=()):
         [list(values) for values in zip(*columns)] if columns else [[] for _ in range(len(frame))]
     )
     return fields, rows
+
+
+def qgs_geometry(shape) -> QgsGeometry:
+    """A shapely geometry as a QgsGeometry (a null geometry for None or empty)."""
+    geometry = QgsGeometry()
+    if shape is None or shape.is_empty:
+        return geometry
+    geometry.fromWkb(bytes(shape.wkb))
+    return geometry
+
+
+def _same_shape(before, after) -> bool:
+    if before is None or before.is_empty:
+        return after is None or after.is_empty
+    if after is None or after.is_empty:
+        return False
+    return before is after or before.equals_exact(after, 0.0)
+
+
+def output_geometries(frame, keep: LayerTable | None = None):
+    """Geometry type and geometries for writing the polygons of ``frame``.
+
+    With ``keep`` (the source the frame's rows came from, row for row), each geometry the core
+    left as it was is the source's own (curves, M values and all), and each one it changed
+    (a repaired polygon) is the frame's. Without it, every geometry is the frame's.
+
+    When a written geometry is multipart and the type is not, the type becomes the multipart
+    one and every geometry is made multipart, as a GeoPackage layer needs one type.
+
+    Returns
+    -------
+    (QgsWkbTypes.Type, list of QgsGeometry)
+    """
+    shapes = list(frame.geometry)
+    if keep is not None:
+        before = list(keep.frame.geometry)
+        geometries = [
+            keep.geometries[i] if _same_shape(before[i], shape) else qgs_geometry(shape)
+            for i, shape in enumerate(shapes)
+        ]
+        wkb_type = keep.wkb_type
+    else:
+        geometries = [qgs_geometry(shape) for shape in shapes]
+        wkb_type = compat.WKB_MULTIPOLYGON
+        if any(g.constGet() is not None and QgsWkbTypes.hasZ(g.wkbType()) for g in geometries):
+            wkb_type = QgsWkbTypes.addZ(wkb_type)
+    if any(not g.isNull() and g.isMultipart() for g in geometries):
+        wkb_type = QgsWkbTypes.multiType(wkb_type)
+    if QgsWkbTypes.isMultiType(wkb_type):
+        geometries = [_multipart(g) for g in geometries]
+    return wkb_type, geometries
+
+
+def _multipart(geometry):
+    if geometry.isNull() or geometry.isMultipart():
+        return geometry
+    geometry = QgsGeometry(geometry)
+    geometry.convertToMultiType()
+    return geometry
 
 
 def write_rows(sink, fields, rows, geometries=None, batch=1000) -> bool:

@@ -1,10 +1,16 @@
-"""A graduated (choropleth) style on mean annual recharge for the catchments output."""
+"""A graduated (choropleth) style on mean annual recharge for the basin outputs.
+
+The class limits come from the core's :func:`recharge_atlas.algorithms.maps.class_breaks`, the
+function the command line's PNG map and the report use, so QGIS draws the same classes.
+"""
 
 from __future__ import annotations
 
 import math
 
 from qgis.core import (
+    QgsClassificationEqualInterval,
+    QgsClassificationJenks,
     QgsClassificationQuantile,
     QgsColorBrewerColorRamp,
     QgsFeatureRequest,
@@ -21,8 +27,19 @@ RECHARGE_FIELD = "recharge_mm_per_year"
 #: Units shown in the class labels.
 UNITS = "mm/yr"
 CLASSES = 5
+#: The core's class schemes (maps.SCHEMES), default first.
+SCHEMES = ("quantiles", "equal_interval", "natural_breaks")
 #: ColorBrewer scheme (Brewer, colorbrewer2.org): light blue for little recharge, dark for much.
 RAMP = "Blues"
+
+#: QGIS's own classification of each scheme, kept on the renderer so that the layer
+#: properties show the scheme and a user who re-classifies gets the same kind of classes
+#: (QGIS's quantiles are computed slightly differently from the core's).
+_QGIS_METHODS = {
+    "quantiles": QgsClassificationQuantile,
+    "equal_interval": QgsClassificationEqualInterval,
+    "natural_breaks": QgsClassificationJenks,
+}
 
 
 def finite_values(layer, field_name: str) -> list:
@@ -45,24 +62,31 @@ def finite_values(layer, field_name: str) -> list:
     return values
 
 
-def apply_recharge_style(layer, field_name: str = RECHARGE_FIELD, classes: int = CLASSES):
+def apply_recharge_style(
+    layer, field_name: str = RECHARGE_FIELD, classes: int = CLASSES, scheme: str = "quantiles"
+):
     """Give ``layer`` a graduated renderer on ``field_name`` and return the renderer.
 
-    Quantile classes of the catchments that have an estimate (fewer classes when there are
-    fewer distinct values), the ColorBrewer Blues ramp, class labels such as
-    ``120 – 180 mm/yr``, and larger catchments drawn first so nested ones show on top of the
-    basins that contain them. Catchments without an estimate (NULL) are left unfilled.
-    Returns None when the layer lacks the field.
+    Classes of the features that have an estimate by ``scheme`` (``quantiles``,
+    ``equal_interval`` or ``natural_breaks``; fewer classes when there are fewer distinct
+    values), the limits and labels of the core's ``maps.class_breaks`` and ``class_labels``
+    followed by the units (``120 – 180 mm/yr``), the ColorBrewer Blues ramp, and larger
+    polygons drawn first so nested catchments show on top of the basins that contain them.
+    Features without an estimate (NULL) are left unfilled. Returns None when the layer lacks
+    the field.
 
     Notes
     -----
-    The classes are computed from the values here, not with ``updateClasses``: QGIS 3.22 reads
-    NULL numbers as 0 when classifying a layer, which would open a false 0 class.
+    The classes are computed here, not with ``updateClasses``: QGIS 3.22 reads NULL numbers
+    as 0 when classifying a layer, which would open a false 0 class. A value on a limit
+    belongs to the lower class, as in the core.
     """
     if layer is None or layer.fields().lookupField(field_name) < 0:
         return None
-    values = finite_values(layer, field_name)
-    method = QgsClassificationQuantile()
+    from ..algorithms.maps import class_breaks, class_labels
+
+    breaks = class_breaks(finite_values(layer, field_name), scheme, classes)
+    method = _QGIS_METHODS[scheme]()
     method.setLabelFormat(f"%1 – %2 {UNITS}")
     method.setLabelPrecision(0)
     method.setLabelTrimTrailingZeroes(True)
@@ -71,11 +95,12 @@ def apply_recharge_style(layer, field_name: str = RECHARGE_FIELD, classes: int =
     renderer.setClassificationMethod(method)
     symbol = QgsSymbol.defaultSymbol(layer.geometryType())
     renderer.setSourceSymbol(symbol.clone())
-    count = min(int(classes), len(set(values)))
-    if count >= 1:
-        for interval in method.classes(values, count):
-            renderer.addClassRange(QgsRendererRange(interval, symbol.clone()))
-    ramp = QgsColorBrewerColorRamp(RAMP, max(count, 3))
+    labels = class_labels(breaks) if len(breaks) else []
+    for low, high, label in zip(breaks[:-1], breaks[1:], labels):
+        renderer.addClassRange(
+            QgsRendererRange(float(low), float(high), symbol.clone(), f"{label} {UNITS}")
+        )
+    ramp = QgsColorBrewerColorRamp(RAMP, max(len(labels), 3))
     renderer.setSourceColorRamp(ramp.clone())
     renderer.updateColorRamp(ramp.clone())
 
@@ -89,21 +114,27 @@ def apply_recharge_style(layer, field_name: str = RECHARGE_FIELD, classes: int =
 
 
 class RechargeStylePostProcessor(QgsProcessingLayerPostProcessorInterface):
-    """Styles the catchments output when Processing loads it into the project."""
+    """Styles a basin output with ``scheme`` classes when Processing loads it."""
+
+    def __init__(self, scheme: str = "quantiles"):
+        super().__init__()
+        self.scheme = scheme
 
     def postProcessLayer(self, layer, context, feedback):  # noqa: N802 (QGIS API name)
-        apply_recharge_style(layer)
+        apply_recharge_style(layer, scheme=self.scheme)
 
 
 # Processing keeps only a C++ pointer to the post-processor: a Python reference must outlive
-# the algorithm, or the object is collected before the layer loads. It holds no state, so one
-# instance, kept here for the life of the session, serves every run.
-_POST_PROCESSOR = None
+# the algorithm, or the object is collected before the layer loads. Each holds only its
+# scheme, so one instance per scheme, kept here for the life of the session, serves every run.
+_POST_PROCESSORS = {}
 
 
-def recharge_post_processor() -> RechargeStylePostProcessor:
-    """The session's one style post-processor (created on first use, never collected)."""
-    global _POST_PROCESSOR
-    if _POST_PROCESSOR is None:
-        _POST_PROCESSOR = RechargeStylePostProcessor()
-    return _POST_PROCESSOR
+def recharge_post_processor(scheme: str = "quantiles") -> RechargeStylePostProcessor:
+    """The session's style post-processor for ``scheme`` (created on first use, never
+    collected)."""
+    if scheme not in _QGIS_METHODS:
+        raise ValueError(f"scheme was {scheme!r}; expected one of {list(SCHEMES)}")
+    if scheme not in _POST_PROCESSORS:
+        _POST_PROCESSORS[scheme] = RechargeStylePostProcessor(scheme)
+    return _POST_PROCESSORS[scheme]

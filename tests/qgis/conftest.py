@@ -21,6 +21,7 @@ import pytest
 from support_qgis import (
     GIVEN_K,
     HERE,
+    ONE_GAUGE,
     PROCESSING_PLUGINS,
     QGIS_PLUGIN_PATH,
     QGIS_PROCESS,
@@ -163,27 +164,43 @@ def core_result():
 @pytest.fixture(scope="session")
 def core_run():
     """Run the core pipeline on files, as the CLI does: ``core_run(gauges=..., discharge=...,
-    **settings)`` with paths (the demo files by default) and Settings keywords. Results are
-    kept for the session, so tests of one configuration share one core run."""
+    catchments=..., **settings)`` with paths (the demo files by default) and Settings keywords;
+    with ``subbasins=PATH`` instead of catchments, the subbasin form. Results are kept for the
+    session, so tests of one configuration share one core run."""
     from recharge_atlas.algorithms import files
-    from recharge_atlas.algorithms.pipeline import Settings, run_atlas
+    from recharge_atlas.algorithms.pipeline import Settings, run_atlas, run_atlas_subbasins
 
     done = {}
 
-    def run(gauges=None, discharge=None, **settings):
+    def run(gauges=None, discharge=None, catchments=None, subbasins=None, **settings):
         gauges = str(gauges or SAMPLE / "gauges.gpkg")
         discharge = str(discharge or SAMPLE / "discharge.csv")
-        key = (gauges, discharge, tuple(sorted(settings.items())))
+        basins = str(subbasins or catchments or SAMPLE / "catchments.gpkg")
+        key = (gauges, discharge, basins, subbasins is None, tuple(sorted(settings.items())))
         if key not in done:
-            done[key] = run_atlas(
+            pipeline = run_atlas if subbasins is None else run_atlas_subbasins
+            done[key] = pipeline(
                 files.read_layer(gauges, "gauges"),
-                files.read_layer(SAMPLE / "catchments.gpkg", "catchments"),
+                files.read_layer(basins, "basins"),
                 files.read_table(discharge),
                 Settings(**settings),
             )
         return done[key]
 
     return run
+
+
+@pytest.fixture(scope="session")
+def one_gauge_discharge(tmp_path_factory):
+    """The demo discharge table of gauge ONE_GAUGE only: runs on it take a fraction of the
+    demo's time, while areas, links, nesting and that gauge's numbers are all computed."""
+    path = tmp_path_factory.mktemp("one-gauge") / "discharge_one_gauge.csv"
+    with open(SAMPLE / "discharge.csv", newline="") as src, open(path, "w", newline="") as dst:
+        reader = csv.DictReader(src)
+        writer = csv.DictWriter(dst, fieldnames=reader.fieldnames)
+        writer.writeheader()
+        writer.writerows(row for row in reader if row["gauge_id"] == ONE_GAUGE)
+    return path
 
 
 @pytest.fixture(scope="session")
@@ -221,6 +238,7 @@ def processing_run(qgis_app, tmp_path_factory):
             OUTPUT=gpkg_layer(out, "catchments", geometry=True),
             ANNUAL=gpkg_layer(out, "annual"),
             EVENTS=gpkg_layer(out, "events"),
+            LINKS=gpkg_layer(out, "links"),
         ),
     )
     return {"path": out, "results": results}

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import os
 from pathlib import Path
 
@@ -22,6 +23,9 @@ QGIS_PYTHON = Path("/usr/bin/python3")
 QUALITY_CODES = (("poor", 23, 5), ("fair", 17, 3))
 #: Recession index per gauge in the gauges copy with a K field; other gauges are left empty.
 GIVEN_K = {"QM01": 60.0}
+#: The gauge of the one-gauge discharge table: the only record there, so runs on it are quick.
+#: HB05 drains a basin of its own (no gauge upstream or downstream) and has a full record.
+ONE_GAUGE = "HB05"
 
 IN_QGIS = os.environ.get("RECHARGE_ATLAS_IN_QGIS") == "1"
 REQUIRED = IN_QGIS and os.environ.get("RECHARGE_ATLAS_QGIS_REQUIRED") == "1"
@@ -107,3 +111,115 @@ def write_gauges_copy(path: Path, field: str, values: dict) -> Path:
     )
     assert error[0] == QgsVectorFileWriter.NoError, error
     return path
+
+
+def write_layer_copy(path: Path, source_path: Path, name: str, *, drop=(), crs=None, edit=None):
+    """Copy the GeoPackage layer at ``source_path`` to GeoPackage ``path`` (layer ``name``):
+    the fields in ``drop`` left out, the geometries reprojected to ``crs`` (e.g. "EPSG:4326")
+    and, with ``edit(row, QgsGeometry) -> QgsGeometry``, changed (before reprojecting). The
+    core and QGIS then read the very same file. Needs a running QGIS."""
+    from qgis.core import (
+        QgsCoordinateReferenceSystem,
+        QgsCoordinateTransform,
+        QgsCoordinateTransformContext,
+        QgsFeature,
+        QgsGeometry,
+        QgsProject,
+        QgsVectorFileWriter,
+        QgsVectorLayer,
+        QgsWkbTypes,
+    )
+
+    source = QgsVectorLayer(str(source_path), name, "ogr")
+    assert source.isValid(), source_path
+    target = QgsCoordinateReferenceSystem(crs) if crs else source.crs()
+    kind = QgsWkbTypes.displayString(source.wkbType())
+    layer = QgsVectorLayer(f"{kind}?crs={target.authid()}", name, "memory")
+    kept = [f for f in source.fields() if f.name() != "fid" and f.name() not in drop]
+    layer.dataProvider().addAttributes(kept)
+    layer.updateFields()
+    transform = QgsCoordinateTransform(source.crs(), target, QgsProject.instance()) if crs else None
+    features = []
+    for row, feature in enumerate(source.getFeatures()):
+        geometry = QgsGeometry(feature.geometry())
+        if edit is not None:
+            geometry = edit(row, geometry)
+        if transform is not None:
+            geometry.transform(transform)
+        copy = QgsFeature(layer.fields())
+        copy.setGeometry(geometry)
+        copy.setAttributes([feature[f.name()] for f in kept])
+        features.append(copy)
+    layer.dataProvider().addFeatures(features)
+    options = QgsVectorFileWriter.SaveVectorOptions()
+    options.driverName = "GPKG"
+    options.layerName = name
+    error = QgsVectorFileWriter.writeAsVectorFormatV3(
+        layer, str(path), QgsCoordinateTransformContext(), options
+    )
+    assert error[0] == QgsVectorFileWriter.NoError, error
+    return path
+
+
+# --------------------------------------------------------------------------- comparing outputs
+
+#: Relative tolerance for "the same number": the same pipeline on the same values.
+SAME = 1e-9
+
+
+def layer_names(layer):
+    """The layer's fields, the GeoPackage's own ``fid`` left out."""
+    return [n for n in layer.fields().names() if n != "fid"]
+
+
+def is_null(value):
+    """True for NULL (None or a null QVariant) and NaN."""
+    from recharge_atlas.plugin.compat import is_null as qgis_null
+
+    return qgis_null(value) or (isinstance(value, float) and math.isnan(value))
+
+
+def same_value(got, want):
+    """A value read back from QGIS against the core's value of the same cell."""
+    import numpy as np
+    import pandas as pd
+
+    if want is None or want is pd.NaT or (isinstance(want, float) and math.isnan(want)):
+        return is_null(got)
+    if is_null(got):
+        return False
+    if isinstance(want, (bool, np.bool_)):
+        return bool(got) == bool(want)
+    if isinstance(want, pd.Timestamp):
+        return got.toPyDate() == want.date()
+    if isinstance(want, (int, np.integer)):
+        return int(got) == int(want)
+    if isinstance(want, (float, np.floating)):
+        return math.isclose(float(got), float(want), rel_tol=SAME, abs_tol=1e-12)
+    return str(got) == str(want)
+
+
+def assert_table_is(layer, frame, what, fields=None):
+    """``layer`` holds ``frame``: the same fields in order and every cell equal.
+
+    With ``fields``, only those are compared (the catchments keep their own fields too)."""
+    names = layer.fields().names()
+    if fields is None:
+        assert layer_names(layer) == [str(c) for c in frame.columns], what
+    assert layer.featureCount() == len(frame), what
+    rows = [feature.attributes() for feature in layer.getFeatures()]
+    for column in fields or frame.columns:
+        index = names.index(column)
+        wrong = [
+            (i, row[index], want)
+            for i, (row, want) in enumerate(zip(rows, frame[column].tolist()))
+            if not same_value(row[index], want)
+        ]
+        assert not wrong, f"{what}.{column}: {len(wrong)} cells differ, first {wrong[:3]}"
+
+
+def assert_catchments_are(layer, core):
+    """The catchment fields the core adds, row by row, equal the core's."""
+    from recharge_atlas.algorithms.pipeline import CATCHMENT_FIELDS
+
+    assert_table_is(layer, core.catchments, "catchments", fields=CATCHMENT_FIELDS)

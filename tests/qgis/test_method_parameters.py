@@ -4,8 +4,6 @@ bad values."""
 
 from __future__ import annotations
 
-import math
-
 import pytest
 
 pytest.importorskip("qgis.core")
@@ -18,14 +16,15 @@ from qgis.core import (  # noqa: E402
 )
 from support_qgis import (  # noqa: E402
     GIVEN_K,
+    assert_catchments_are,
+    assert_table_is,
     gpkg_layer,
+    is_null,
     sample_parameters,
     write_gauges_copy,
 )
 
 ALGORITHM = "recharge_atlas:catchmentrecharge"
-#: Relative tolerance for "the same number": the same pipeline on the same values.
-SAME = 1e-9
 TABLES = ("ANNUAL", "EVENTS", "PERIODS", "SEGMENTS", "MASTER_RECESSION", "DAILY")
 
 #: A given K, a fixed runoff-end lag, Lyne-Hollick by its label and seasons; QM01 takes its K
@@ -65,62 +64,6 @@ def _layer(path, table):
     layer = QgsVectorLayer(f"{path}|layername={table}", table, "ogr")
     assert layer.isValid(), f"{table} missing from {path}"
     return layer
-
-
-def _names(layer):
-    return [n for n in layer.fields().names() if n != "fid"]
-
-
-def _is_null(value):
-    from recharge_atlas.plugin.compat import is_null
-
-    return is_null(value) or (isinstance(value, float) and math.isnan(value))
-
-
-def _same_value(got, want):
-    """A value read back from QGIS against the core's value of the same cell."""
-    import numpy as np
-    import pandas as pd
-
-    if want is None or want is pd.NaT or (isinstance(want, float) and math.isnan(want)):
-        return _is_null(got)
-    if _is_null(got):
-        return False
-    if isinstance(want, (bool, np.bool_)):
-        return bool(got) == bool(want)
-    if isinstance(want, pd.Timestamp):
-        return got.toPyDate() == want.date()
-    if isinstance(want, (int, np.integer)):
-        return int(got) == int(want)
-    if isinstance(want, (float, np.floating)):
-        return math.isclose(float(got), float(want), rel_tol=SAME, abs_tol=1e-12)
-    return str(got) == str(want)
-
-
-def assert_table_is(layer, frame, what, fields=None):
-    """``layer`` holds ``frame``: the same fields in order and every cell equal.
-
-    With ``fields``, only those are compared (the catchments keep their own fields too)."""
-    names = layer.fields().names()
-    if fields is None:
-        assert _names(layer) == [str(c) for c in frame.columns], what
-    assert layer.featureCount() == len(frame), what
-    rows = [feature.attributes() for feature in layer.getFeatures()]
-    for column in fields or frame.columns:
-        index = names.index(column)
-        wrong = [
-            (i, row[index], want)
-            for i, (row, want) in enumerate(zip(rows, frame[column].tolist()))
-            if not _same_value(row[index], want)
-        ]
-        assert not wrong, f"{what}.{column}: {len(wrong)} cells differ, first {wrong[:3]}"
-
-
-def assert_catchments_are(layer, core):
-    """The catchment fields the core adds, row by row, equal the core's."""
-    from recharge_atlas.algorithms.pipeline import CATCHMENT_FIELDS
-
-    assert_table_is(layer, core.catchments, "catchments", fields=CATCHMENT_FIELDS)
 
 
 def _run(tmp_path_factory, name, **changes):
@@ -183,8 +126,8 @@ def test_given_recession_index_is_used_field_first(given_k_run):
         assert float(rows[gauge]["recession_index_days"]) == want, gauge
         assert float(rows[gauge]["critical_time_days"]) == pytest.approx(0.2144 * want)
         assert float(rows[gauge]["runoff_end_lag_days"]) == 4.0
-        assert _is_null(rows[gauge]["recession_index_low"]), "a given K has no interval"
-        assert _is_null(rows[gauge]["recharge_mm_per_year_low"])
+        assert is_null(rows[gauge]["recession_index_low"]), "a given K has no interval"
+        assert is_null(rows[gauge]["recharge_mm_per_year_low"])
 
 
 def test_periods_are_seasons(given_k_run):
@@ -209,8 +152,8 @@ def test_a_table_without_rows_keeps_its_fields(qgis_app, name):
     gets every field, with its type, so a model can chain it."""
     import pandas as pd
 
-    from recharge_atlas.plugin.catchment_recharge import _with_fields, table_fields
     from recharge_atlas.plugin.conversion import frame_fields, qgs_field
+    from recharge_atlas.plugin.recharge_run import _with_fields, table_fields
 
     fields, rows = frame_fields(_with_fields(pd.DataFrame({"gauge_id": []}), name))
     assert rows == []
@@ -248,8 +191,8 @@ def test_quality_codes_change_the_result(flagged_core, core_result):
 
 def test_table_fields_are_the_cores(core_result):
     """The fields given to empty tables are those the core writes (names and types)."""
-    from recharge_atlas.plugin.catchment_recharge import table_fields
     from recharge_atlas.plugin.conversion import _kind
+    from recharge_atlas.plugin.recharge_run import table_fields
 
     frames = {
         "ANNUAL": core_result.annual,

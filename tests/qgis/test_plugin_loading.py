@@ -62,6 +62,11 @@ def test_parameters_are_the_briefs(algorithm):
         "BASEFLOW_METHOD",
         "BFI_MAX",
         "PERIOD",
+        "LINK",
+        "LINK_TOLERANCE",
+        "OVERLAP_TOLERANCE",
+        "REPORTED_AREA_FIELD",
+        "CLASSES",
         "OUTPUT",
         "ANNUAL",
         "EVENTS",
@@ -69,6 +74,8 @@ def test_parameters_are_the_briefs(algorithm):
         "SEGMENTS",
         "MASTER_RECESSION",
         "DAILY",
+        "LINKS",
+        "REPORT",
     ]
     units = algorithm.parameterDefinition("UNITS")
     assert units.usesStaticStrings()
@@ -92,6 +99,11 @@ ADVANCED = [
     "BASEFLOW_METHOD",
     "BFI_MAX",
     "PERIOD",
+    "LINK",
+    "LINK_TOLERANCE",
+    "OVERLAP_TOLERANCE",
+    "REPORTED_AREA_FIELD",
+    "CLASSES",
 ]
 
 
@@ -118,41 +130,82 @@ def test_method_parameters_are_advanced_with_their_defaults(algorithm):
     for name, parent in (
         ("RECESSION_INDEX_FIELD", "GAUGES"),
         ("FLAG_FIELD", "DISCHARGE"),
+        ("REPORTED_AREA_FIELD", "GAUGES"),
     ):
         assert algorithm.parameterDefinition(name).parentLayerParameterName() == parent
+    link = algorithm.parameterDefinition("LINK")
+    assert link.usesStaticStrings() and len(link.options()) == 3
+    assert link.defaultValue() == link.options()[0]
+    assert all("," not in o for o in link.options()), "QGIS reads a comma as a list of options"
+    classes = algorithm.parameterDefinition("CLASSES")
+    assert classes.usesStaticStrings()
+    assert classes.options() == ["quantiles", "equal interval", "natural breaks"]
+    assert classes.defaultValue() == "quantiles"
+    assert algorithm.parameterDefinition("LINK_TOLERANCE").defaultValue() == 100
+    assert algorithm.parameterDefinition("LINK_TOLERANCE").minimum() == 0
+    assert algorithm.parameterDefinition("OVERLAP_TOLERANCE").defaultValue() == 0.05
+
+
+TABLES = (
+    "OUTPUT",
+    "ANNUAL",
+    "EVENTS",
+    "PERIODS",
+    "SEGMENTS",
+    "MASTER_RECESSION",
+    "DAILY",
+    "LINKS",
+)
 
 
 def test_table_outputs_chain_as_vector_layers(algorithm):
     """Every sink has a vector-layer output, so the Model Designer can feed it to the next
     algorithm; the new tables are optional and not created by default."""
+    from recharge_atlas.plugin import compat
+
     outputs = {o.name(): o.type() for o in algorithm.outputDefinitions()}
-    for name in ("OUTPUT", "ANNUAL", "EVENTS", "PERIODS", "SEGMENTS", "MASTER_RECESSION", "DAILY"):
+    for name in TABLES:
         assert outputs.get(name) == "outputVector", name
-    for name in ("PERIODS", "SEGMENTS", "MASTER_RECESSION", "DAILY"):
+    for name in ("PERIODS", "SEGMENTS", "MASTER_RECESSION", "DAILY", "LINKS"):
         sink = algorithm.parameterDefinition(name)
         assert sink.type() == "sink"
         assert not sink.createByDefault(), name
+    report = algorithm.parameterDefinition("REPORT")
+    assert report.type() == "fileDestination" and not report.createByDefault()
+    assert report.flags() & compat.PARAMETER_OPTIONAL
+    assert report.defaultFileExtension() == "html"
+    assert outputs["REPORT"] == "outputHtml", "the dialog shows the page in its results"
 
 
 def test_fallback_defaults_equal_the_core():
     """The dialog's defaults and method ids, kept in the plugin for drawing the dialog without
     the core, are the core's."""
     from recharge_atlas.algorithms.baseflow import METHODS
-    from recharge_atlas.algorithms.pipeline import Settings
-    from recharge_atlas.plugin import catchment_recharge
+    from recharge_atlas.algorithms.maps import SCHEMES
+    from recharge_atlas.algorithms.pipeline import LINK_METHODS, Settings
+    from recharge_atlas.algorithms.subbasins import UNGAUGED_CHOICES
+    from recharge_atlas.plugin import recharge_run, styling
 
-    assert tuple(catchment_recharge.BASEFLOW_METHODS) == tuple(METHODS)
-    assert catchment_recharge._BFI_MAX == Settings().bfi_max
-    assert catchment_recharge._MIN_SEGMENT_DAYS == Settings().min_segment_days
-    assert catchment_recharge.PERIODS[0] == Settings().period
+    assert tuple(recharge_run.BASEFLOW_METHODS) == tuple(METHODS)
+    assert recharge_run._BFI_MAX == Settings().bfi_max
+    assert recharge_run._MIN_SEGMENT_DAYS == Settings().min_segment_days
+    assert recharge_run.PERIODS[0] == Settings().period
+    assert tuple(recharge_run.LINK_METHODS) == LINK_METHODS
+    assert recharge_run.LINK_METHODS["auto"].startswith(Settings().link)
+    assert recharge_run._LINK_TOLERANCE_M == Settings().link_tolerance_m
+    assert recharge_run._OVERLAP_TOLERANCE == Settings().overlap_tolerance
+    assert tuple(recharge_run.UNGAUGED_CHOICES) == UNGAUGED_CHOICES
+    assert next(iter(recharge_run.UNGAUGED_CHOICES)) == Settings().ungauged
+    assert tuple(recharge_run.MAP_CLASSES) == SCHEMES
+    assert tuple(styling.SCHEMES) == SCHEMES
 
 
 def test_fallback_unit_labels_equal_the_core():
     from recharge_atlas.algorithms.units import DISCHARGE_UNITS, UNIT_ALIASES
-    from recharge_atlas.plugin import catchment_recharge
+    from recharge_atlas.plugin import recharge_run
 
-    assert list(catchment_recharge._UNIT_LABELS) == list(DISCHARGE_UNITS)
-    assert catchment_recharge._UNIT_ALIASES == UNIT_ALIASES
+    assert list(recharge_run._UNIT_LABELS) == list(DISCHARGE_UNITS)
+    assert recharge_run._UNIT_ALIASES == UNIT_ALIASES
 
 
 def test_compat_constants_are_enums_not_ints():

@@ -299,8 +299,28 @@ def test_style_is_a_graduated_map_of_recharge(processing_run):
     assert colours[0] > colours[-1], "little recharge light, much recharge dark"
 
 
+@pytest.mark.parametrize("scheme", ["quantiles", "equal_interval", "natural_breaks"])
+def test_style_classes_are_the_cores(processing_run, scheme):
+    """The style's class limits and labels are the core's class_breaks and class_labels, the
+    ones the command line's PNG map draws."""
+    from recharge_atlas.algorithms.maps import class_breaks, class_labels
+    from recharge_atlas.plugin.styling import apply_recharge_style
+
+    layer = _layer(processing_run["path"], "catchments")
+    renderer = apply_recharge_style(layer, scheme=scheme)
+    values = [_number(f["recharge_mm_per_year"]) for f in layer.getFeatures()]
+    breaks = class_breaks(values, scheme, 5)
+    ranges = renderer.ranges()
+    assert [r.lowerValue() for r in ranges] == breaks[:-1].tolist()
+    assert [r.upperValue() for r in ranges] == breaks[1:].tolist()
+    assert [r.label() for r in ranges] == [f"{t} mm/yr" for t in class_labels(breaks)]
+
+
 def test_style_is_applied_when_the_output_loads(algorithm, qgis_app):
-    """The post-processor is attached to OUTPUT when it is to be loaded into a project."""
+    """The post-processor is attached to OUTPUT when it is to be loaded into a project, with
+    the classes asked for (CLASSES): natural breaks give the core's limits."""
+    from recharge_atlas.algorithms.maps import class_breaks
+
     project = QgsProject()
     context = QgsProcessingContext()
     context.setProject(project)
@@ -309,6 +329,7 @@ def test_style_is_applied_when_the_output_loads(algorithm, qgis_app):
         OUTPUT=QgsProcessingOutputLayerDefinition("TEMPORARY_OUTPUT", project),
         ANNUAL="TEMPORARY_OUTPUT",
         EVENTS="TEMPORARY_OUTPUT",
+        CLASSES="natural breaks",
     )
     alg = algorithm.create()
     results, ok = alg.run(parameters, context, feedback)
@@ -321,6 +342,11 @@ def test_style_is_applied_when_the_output_loads(algorithm, qgis_app):
     processor.postProcessLayer(layer, context, feedback)
     assert isinstance(layer.renderer(), QgsGraduatedSymbolRenderer)
     assert layer.renderer().classAttribute() == "recharge_mm_per_year"
+    values = [_number(f["recharge_mm_per_year"]) for f in layer.getFeatures()]
+    breaks = class_breaks(values, "natural_breaks", 5)
+    ranges = layer.renderer().ranges()
+    assert [r.upperValue() for r in ranges] == breaks[1:].tolist()
+    assert layer.renderer().classificationMethod().id() == "Jenks"
 
 
 def test_style_ignores_a_layer_without_the_field(qgis_app):
@@ -338,7 +364,7 @@ def test_no_run_changed_the_inputs(processing_run, input_digests):
 def test_help_describes_every_output_field_and_the_cautions(algorithm, core_result):
     """Every field the algorithm writes to any output, the parameters with their ids, and the
     cautions, are in the help."""
-    from recharge_atlas.plugin.catchment_recharge import _TABLE_FIELDS, table_fields
+    from recharge_atlas.plugin.recharge_run import _TABLE_FIELDS, table_fields
 
     text = algorithm.shortHelpString()
     input_fields = {"name", "geometry"}  # the demo catchments' own fields
