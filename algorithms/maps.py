@@ -276,7 +276,9 @@ def _plot_order(layer):
 
 def _point_layer(gauges, crs):
     """The gauges as points in ``crs``, or None when they cannot be drawn."""
-    if gauges is None or not len(gauges) or not hasattr(gauges, "geometry"):
+    import geopandas as gpd
+
+    if not isinstance(gauges, gpd.GeoDataFrame) or not len(gauges):
         return None
     try:
         points = gauges
@@ -354,6 +356,8 @@ def recharge_map(
     from matplotlib.patches import Patch
 
     _require_field(catchments, field, "catchments")
+    if not len(catchments):
+        raise InputError("the catchments layer holds no polygons to map")
     values = _as_float(catchments[field])
     breaks = class_breaks(values, scheme, classes)
     order = _plot_order(catchments)
@@ -469,6 +473,8 @@ def year_maps(
     from matplotlib.patches import Patch
 
     _require_field(catchments_layer, gauge_field, "catchments")
+    if not len(catchments_layer):
+        raise InputError("the catchments layer holds no polygons to map")
     for name in ("gauge_id", "water_year", field):
         _require_field(annual_table, name, "annual table")
     table = pd.DataFrame(

@@ -711,6 +711,9 @@ def _cautions_html():
 def _maps_html(result, gauges, scheme, classes, include_year_maps):
     catchments = result.catchments
     out = ['<section id="maps">']
+    if not len(catchments):
+        out.append('<p class="note">The run has no catchments to map.</p></section>')
+        return "\n".join(out)
     if "recharge_mm_per_year" in catchments.columns:
         out.append(
             _img(

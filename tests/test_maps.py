@@ -243,6 +243,17 @@ def test_recharge_map_any_field_and_units(squares):
     assert figure.axes[0].get_legend().get_title().get_text() == "Baseflow index"
     with pytest.raises(InputError, match="no field 'incremental_recharge_mm_per_year'"):
         recharge_map(catchments, field="incremental_recharge_mm_per_year")
+    with pytest.raises(InputError, match="no polygons to map"):
+        recharge_map(catchments.iloc[:0])
+
+
+def test_recharge_map_in_a_geographic_crs_and_gauges_without_geometry(squares):
+    catchments, gauges, _ = squares
+    figure = recharge_map(catchments.to_crs("EPSG:4326"), gauges)  # gauges reprojected
+    assert {t.get_text() for t in figure.axes[0].texts} >= {"A1", "B2", "C3"}
+    table_only = pd.DataFrame(gauges.drop(columns="geometry"))
+    figure = recharge_map(catchments, table_only)  # no points to draw: drawn without them
+    assert not any(t.get_text() == "A1" for t in figure.axes[0].texts)
 
 
 def test_year_maps_one_axis_per_year_and_one_legend(squares):
