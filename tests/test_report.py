@@ -324,3 +324,27 @@ def test_subbasin_runs_add_the_subbasin_map(sample_paths):
     assert 'alt="Map of mean annual recharge by subbasin"' in page
     assert f"{result.summary['subbasins']} subbasins" in _text(page)
     assert page.count('<section class="gauge"') == 0
+
+
+def test_report_reports_progress_and_stops_when_cancelled(demo, tmp_path):
+    from recharge_atlas.algorithms.errors import Cancelled
+
+    result, _, _ = demo
+
+    class Stopper:
+        def __init__(self):
+            self.seen = []
+
+        def progress(self, done, total, gauge_id=None):
+            self.seen.append((done, total, gauge_id))
+
+        def cancelled(self):
+            return len(self.seen) >= 1  # stop before the second gauge
+
+    stopper = Stopper()
+    target = tmp_path / "report.html"
+    with pytest.raises(Cancelled):
+        write_report(result, target, include_year_maps=False, reporter=stopper)
+    first = next(iter(result.gauges))
+    assert stopper.seen == [(0, len(result.gauges), first)]
+    assert list(tmp_path.iterdir()) == []  # nothing half-written
