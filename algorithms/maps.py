@@ -238,7 +238,7 @@ def _digits(breaks):
     return digits
 
 
-def class_labels(breaks, units=None):
+def class_labels(breaks):
     """Legend labels such as ``120 – 180`` for limits from :func:`class_breaks`."""
     b = np.asarray(breaks, dtype=float)
     digits = _digits(b)
