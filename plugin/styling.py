@@ -7,6 +7,7 @@ function the command line's PNG map and the report use, so QGIS draws the same c
 from __future__ import annotations
 
 import math
+from collections import deque
 
 from qgis.core import (
     QgsClassificationEqualInterval,
@@ -124,17 +125,17 @@ class RechargeStylePostProcessor(QgsProcessingLayerPostProcessorInterface):
         apply_recharge_style(layer, scheme=self.scheme)
 
 
-# Processing keeps only a C++ pointer to the post-processor: a Python reference must outlive
-# the algorithm, or the object is collected before the layer loads. Each holds only its
-# scheme, so one instance per scheme, kept here for the life of the session, serves every run.
-_POST_PROCESSORS = {}
+# Processing takes ownership of a post-processor and deletes it with the context of the run
+# (QgsProcessingContext::LayerDetails::setPostProcessor transfers it), so an instance must never
+# serve two outputs or two runs: each output gets a new one. The latest few are also kept
+# referenced here, so that Python cannot collect one before Processing has taken it.
+_RECENT = deque(maxlen=16)
 
 
 def recharge_post_processor(scheme: str = "quantiles") -> RechargeStylePostProcessor:
-    """The session's style post-processor for ``scheme`` (created on first use, never
-    collected)."""
+    """A new style post-processor with ``scheme`` classes, for one output of one run."""
     if scheme not in _QGIS_METHODS:
         raise ValueError(f"scheme was {scheme!r}; expected one of {list(SCHEMES)}")
-    if scheme not in _POST_PROCESSORS:
-        _POST_PROCESSORS[scheme] = RechargeStylePostProcessor(scheme)
-    return _POST_PROCESSORS[scheme]
+    processor = RechargeStylePostProcessor(scheme)
+    _RECENT.append(processor)
+    return processor
