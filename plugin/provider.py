@@ -9,13 +9,14 @@ from qgis.core import QgsProcessingProvider
 from qgis.PyQt.QtGui import QIcon
 
 from .catchment_recharge import CatchmentRecharge
+from .subbasin_recharge import SubbasinRecharge
 
 PLUGIN_DIR = Path(__file__).resolve().parent
 ICON = PLUGIN_DIR / "icon.svg"
 METADATA = PLUGIN_DIR.parent / "metadata.txt"
 
 #: Algorithm classes the provider offers.
-ALGORITHMS = (CatchmentRecharge,)
+ALGORITHMS = (CatchmentRecharge, SubbasinRecharge)
 
 
 def plugin_version() -> str:

@@ -113,11 +113,14 @@ def write_gauges_copy(path: Path, field: str, values: dict) -> Path:
     return path
 
 
-def write_layer_copy(path: Path, source_path: Path, name: str, *, drop=(), crs=None, edit=None):
+def write_layer_copy(
+    path: Path, source_path: Path, name: str, *, drop=(), crs=None, edit=None, values=None
+):
     """Copy the GeoPackage layer at ``source_path`` to GeoPackage ``path`` (layer ``name``):
     the fields in ``drop`` left out, the geometries reprojected to ``crs`` (e.g. "EPSG:4326")
-    and, with ``edit(row, QgsGeometry) -> QgsGeometry``, changed (before reprojecting). The
-    core and QGIS then read the very same file. Needs a running QGIS."""
+    and, with ``edit(row, QgsGeometry) -> QgsGeometry``, changed (before reprojecting);
+    ``values`` ({row: {field: value}}) changes attributes. The core and QGIS then read the very
+    same file. Needs a running QGIS."""
     from qgis.core import (
         QgsCoordinateReferenceSystem,
         QgsCoordinateTransform,
@@ -148,7 +151,8 @@ def write_layer_copy(path: Path, source_path: Path, name: str, *, drop=(), crs=N
             geometry.transform(transform)
         copy = QgsFeature(layer.fields())
         copy.setGeometry(geometry)
-        copy.setAttributes([feature[f.name()] for f in kept])
+        changed = (values or {}).get(row, {})
+        copy.setAttributes([changed.get(f.name(), feature[f.name()]) for f in kept])
         features.append(copy)
     layer.dataProvider().addFeatures(features)
     options = QgsVectorFileWriter.SaveVectorOptions()

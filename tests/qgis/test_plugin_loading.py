@@ -33,7 +33,7 @@ def test_provider_lists_the_algorithm_with_its_icon(qgis_app):
     assert provider.name() == "Recharge Atlas"
     assert not provider.icon().isNull()
     ids = [a.id() for a in provider.algorithms()]
-    assert ids == ["recharge_atlas:catchmentrecharge"]
+    assert ids == ["recharge_atlas:catchmentrecharge", "recharge_atlas:subbasinrecharge"]
     alg = provider.algorithms()[0]
     assert alg.displayName() == "Catchment recharge"
     assert (alg.group(), alg.groupId()) == ("Recharge", "recharge")

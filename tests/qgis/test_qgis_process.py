@@ -11,7 +11,13 @@ import pytest
 pytest.importorskip("qgis.core")
 
 from qgis.core import QgsVectorLayer  # noqa: E402
-from support_qgis import SAMPLE  # noqa: E402
+from support_qgis import (  # noqa: E402
+    ONE_GAUGE,
+    SAMPLE,
+    assert_catchments_are,
+    assert_table_is,
+    is_null,
+)
 
 ALGORITHM = "recharge_atlas:catchmentrecharge"
 #: 1 ft³ in m³ (NIST SP 811, exact).
@@ -37,8 +43,8 @@ def discharge_in_cfs(tmp_path_factory):
     return path
 
 
-def _args(**parameters):
-    return ["run", ALGORITHM] + [f"--{name}={value}" for name, value in parameters.items()]
+def _args(algorithm=ALGORITHM, **parameters):
+    return ["run", algorithm] + [f"--{name}={value}" for name, value in parameters.items()]
 
 
 def test_qgis_process_ft3s_writes_the_same_numbers(
@@ -152,3 +158,69 @@ def _null(value):
     from recharge_atlas.plugin.compat import is_null
 
     return is_null(value)
+
+
+def test_qgis_process_links_by_location_when_asked(
+    qgis_process, core_run, one_gauge_discharge, tmp_path
+):
+    """LINK=spatial (the core's id) links by location although the catchments carry gauge ids;
+    the numbers are the core's for the same Settings."""
+    out = tmp_path / "spatial.gpkg"
+    links = tmp_path / "links.gpkg"
+    done = qgis_process(
+        *_args(
+            GAUGES=SAMPLE / "gauges.gpkg",
+            DISCHARGE=one_gauge_discharge,
+            CATCHMENTS=SAMPLE / "catchments.gpkg",
+            LINK="spatial",
+            LINK_TOLERANCE=250,
+            OUTPUT=out,
+            LINKS=links,
+        )
+    )
+    assert done.returncode == 0, done.stdout[-2000:] + done.stderr[-2000:]
+    assert "Traceback" not in done.stderr + done.stdout
+    core = core_run(discharge=one_gauge_discharge, link="spatial", link_tolerance_m=250.0)
+    assert_catchments_are(QgsVectorLayer(str(out), "out", "ogr"), core)
+    table = QgsVectorLayer(str(links), "links", "ogr")
+    assert_table_is(table, core.links, "links")
+    assert {f["method"] for f in table.getFeatures()} == {"spatial"}
+
+
+def test_qgis_process_subbasins_left_empty_with_a_report(
+    qgis_process, core_run, one_gauge_discharge, tmp_path
+):
+    """subbasinrecharge headless, subbasins with no gauge downstream left empty (UNGAUGED by
+    the core's id), the derived basins and the HTML report written."""
+    out = tmp_path / "subbasins.gpkg"
+    basins = tmp_path / "basins.gpkg"
+    report = tmp_path / "report.html"
+    done = qgis_process(
+        *_args(
+            "recharge_atlas:subbasinrecharge",
+            GAUGES=SAMPLE / "gauges.gpkg",
+            DISCHARGE=one_gauge_discharge,
+            SUBBASINS=SAMPLE / "subbasins.gpkg",
+            UNGAUGED="empty",
+            OUTPUT=out,
+            CATCHMENTS=basins,
+            REPORT=report,
+        )
+    )
+    assert done.returncode == 0, done.stdout[-2000:] + done.stderr[-2000:]
+    assert "Traceback" not in done.stderr + done.stdout
+    core = core_run(
+        subbasins=SAMPLE / "subbasins.gpkg", discharge=one_gauge_discharge, ungauged="empty"
+    )
+    layer = QgsVectorLayer(str(out), "out", "ogr")
+    fields = ["subbasin_id", "downstream_gauge", "recharge_mm_per_year", "estimate_source"]
+    assert_table_is(layer, core.subbasins, "subbasins", fields=fields)
+    rows = {f["subbasin_id"]: f for f in layer.getFeatures()}
+    for sid in ("U7", "U8", "U9"):
+        assert is_null(rows[sid]["recharge_mm_per_year"]), sid
+        assert rows[sid]["estimate_source"] == "no gauge downstream", sid
+    assert rows["U5"]["estimate_source"] == f"gauge {ONE_GAUGE}"
+    assert_catchments_are(QgsVectorLayer(str(basins), "basins", "ogr"), core)
+    text = report.read_text(encoding="utf-8")
+    assert text.lstrip().lower().startswith("<!doctype html")
+    assert ONE_GAUGE in text
