@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import hashlib
 import math
+import re
 
 import pytest
 
@@ -25,6 +26,7 @@ from qgis.core import (  # noqa: E402
     QgsWkbTypes,
 )
 from support_qgis import (  # noqa: E402
+    ONE_GAUGE,
     SAMPLE,
     assert_catchments_are,
     assert_table_is,
@@ -227,28 +229,56 @@ def test_invalid_polygon_is_repaired_said_so_and_written_valid(
 # --------------------------------------------------------------------------- reported areas
 
 
-def test_reported_area_mismatch_is_flagged_as_the_core_does(
-    qgis_app, core_run, one_gauge_discharge, tmp_path
-):
+@pytest.fixture(scope="module")
+def reported_area_run(qgis_app, tmp_path_factory, one_gauge_discharge):
+    """Gauges with a reported area field (QM02's wrong), and the HTML report asked for."""
+    folder = tmp_path_factory.mktemp("reported")
     gauges = write_gauges_copy(
-        tmp_path / "gauges.gpkg", "reported_km2", {"QM01": 794.0, "QM02": 400.0}
+        folder / "gauges.gpkg", "reported_km2", {"QM01": 794.0, "QM02": 400.0}
     )
-    out = tmp_path / "out"
+    out = folder / "out"
     out.mkdir()
-    path, _results = _run(
+    path, results = _run(
         out,
         GAUGES=str(gauges),
         DISCHARGE=str(one_gauge_discharge),
         REPORTED_AREA_FIELD="reported_km2",
+        REPORT=str(out / "report.html"),
     )
+    return {"path": path, "results": results, "gauges": gauges, "report": out / "report.html"}
+
+
+def test_reported_area_mismatch_is_flagged_as_the_core_does(
+    reported_area_run, core_run, one_gauge_discharge
+):
     core = core_run(
-        gauges=gauges, discharge=one_gauge_discharge, reported_area_field="reported_km2"
+        gauges=reported_area_run["gauges"],
+        discharge=one_gauge_discharge,
+        reported_area_field="reported_km2",
     )
-    layer = _layer(path, "catchments")
+    layer = _layer(reported_area_run["path"], "catchments")
     assert_catchments_are(layer, core)
     quality = {r["gauge_id"]: r["quality"] for r in _rows(layer)}
     assert "differs from the reported 400.0 km²" in quality["QM02"]
     assert "reported" not in quality["QM01"]
+
+
+def test_report_is_one_self_contained_page(reported_area_run):
+    """REPORT writes the core's page: pictures embedded, nothing fetched from elsewhere, the
+    cautions and every gauge in it."""
+    report = reported_area_run["report"]
+    assert reported_area_run["results"]["REPORT"] == str(report)
+    text = report.read_text(encoding="utf-8")
+    assert text.lstrip().lower().startswith("<!doctype html")
+    references = re.findall(r"""(?:src|href)\s*=\s*["']([^"']*)""", text, flags=re.I)
+    outside = [r for r in references if not r.startswith(("data:", "#"))]
+    assert not outside, f"the report refers to {outside[:3]}"
+    assert not re.search(r"@import|url\(\s*['\"]?(?!data:)", text), "no outside style sheets"
+    assert re.search(r'<img[^>]+src="data:image/png;base64,', text)
+    for words in ("homogeneous aquifer", "qualified hydrogeologists", "QM01", ONE_GAUGE):
+        assert words in text, words
+    left = {p.name for p in report.parent.iterdir()}
+    assert left == {"out.gpkg", "report.html"}, "no temporary file left beside it"
 
 
 def test_missing_reported_area_field_is_named(qgis_app, tmp_path):

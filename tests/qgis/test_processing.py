@@ -258,7 +258,10 @@ def test_cancel_leaves_no_output(qgis_app, tmp_path):
         processing.run(
             ALGORITHM,
             sample_parameters(
-                OUTPUT=str(out), ANNUAL=str(tmp_path / "a.gpkg"), EVENTS=str(tmp_path / "e.gpkg")
+                OUTPUT=str(out),
+                ANNUAL=str(tmp_path / "a.gpkg"),
+                EVENTS=str(tmp_path / "e.gpkg"),
+                REPORT=str(tmp_path / "report.html"),
             ),
             feedback=feedback,
         )
