@@ -26,18 +26,29 @@ class FeedbackReporter(Reporter):
     feedback : QgsProcessingFeedback
     start, end : float
         The span of the progress bar (percent) that the gauges fill.
+    text : str
+        The progress text shown for each gauge, with ``{gauge}``, ``{number}`` and ``{total}``.
     """
 
-    def __init__(self, feedback, start: float = 0.0, end: float = 100.0):
+    def __init__(
+        self,
+        feedback,
+        start: float = 0.0,
+        end: float = 100.0,
+        text: str = "Gauge {gauge} ({number} of {total})",
+    ):
         self.feedback = feedback
         self.start = float(start)
         self.end = float(end)
+        self.text = text
 
     def progress(self, done, total, gauge_id=None):
         share = done / total if total > 0 else 1.0
         self.feedback.setProgress(self.start + (self.end - self.start) * min(max(share, 0.0), 1.0))
         if gauge_id is not None:
-            self.feedback.setProgressText(f"Gauge {gauge_id} ({done + 1} of {total})")
+            self.feedback.setProgressText(
+                self.text.format(gauge=gauge_id, number=done + 1, total=total)
+            )
 
     def cancelled(self):
         return bool(self.feedback.isCanceled())

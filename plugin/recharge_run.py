@@ -787,24 +787,28 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
 
     def _write_report(self, result, tables, settings, scheme, path, feedback):
         """Write the HTML report after the run and before any layer, so that neither a cancel
-        nor a failure leaves a report without layers or layers without it."""
-        from ..algorithms.errors import Cancelled, InputError
+        nor a failure leaves a report without layers or layers without it. The core writes it
+        atomically and checks the cancel button before each gauge it draws."""
+        from ..algorithms.errors import Cancelled
+        from ..algorithms.report import write_report
+        from .feedback import FeedbackReporter
 
         if feedback.isCanceled():
             raise Cancelled("run cancelled")
         feedback.setProgressText(self.tr("Writing the report"))
-        try:
-            from ..algorithms.report import write_report
-        except ImportError as exc:
-            raise InputError(
-                self.tr("this version cannot write the report ({}) ({})").format(exc, self.REPORT)
-            ) from None
+        reporter = FeedbackReporter(
+            feedback,
+            _RUN_END,
+            _REPORT_END,
+            self.tr("Drawing the report: gauge {gauge} ({number} of {total})"),
+        )
         write_report(
             result,
             path,
             gauges=tables["gauges"].frame,
             scheme=scheme,
             settings=settings,
+            reporter=reporter,
         )
         if feedback.isCanceled():
             Path(path).unlink(missing_ok=True)

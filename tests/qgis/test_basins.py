@@ -281,6 +281,37 @@ def test_report_is_one_self_contained_page(reported_area_run):
     assert left == {"out.gpkg", "report.html"}, "no temporary file left beside it"
 
 
+class CancelWhileDrawing(QgsProcessingFeedback):
+    """Presses cancel when the report starts drawing its second gauge."""
+
+    def __init__(self):
+        super().__init__()
+        self.drawn = []
+
+    def setProgressText(self, text):  # noqa: N802 (QGIS API name)
+        super().setProgressText(text)
+        if text.startswith("Drawing the report"):
+            self.drawn.append(text)
+            if len(self.drawn) >= 2:
+                self.cancel()
+
+
+def test_cancel_while_the_report_draws_leaves_nothing(qgis_app, one_gauge_discharge, tmp_path):
+    import processing
+
+    feedback = CancelWhileDrawing()
+    parameters = sample_parameters(
+        DISCHARGE=str(one_gauge_discharge),
+        OUTPUT=str(tmp_path / "out.gpkg"),
+        ANNUAL=str(tmp_path / "annual.gpkg"),
+        REPORT=str(tmp_path / "report.html"),
+    )
+    with pytest.raises(QgsProcessingException, match="cancelled"):
+        processing.run(ALGORITHM, parameters, feedback=feedback)
+    assert len(feedback.drawn) == 2, feedback.drawn
+    assert list(tmp_path.iterdir()) == []
+
+
 def test_missing_reported_area_field_is_named(qgis_app, tmp_path):
     with pytest.raises(QgsProcessingException, match="'drainage_km2'") as caught:
         _run(tmp_path, REPORTED_AREA_FIELD="drainage_km2")
