@@ -72,6 +72,27 @@ def _parser():
         "--map", metavar="OUT.png", help="also draw a choropleth map of mean annual recharge"
     )
     files.add_argument(
+        "--report",
+        metavar="OUT.html",
+        help="also write a self-contained HTML report: maps, cautions, each gauge's hydrograph, recession and annual table",
+    )
+    files.add_argument(
+        "--year-maps", metavar="OUT.png", help="also draw one map of recharge per water year"
+    )
+    files.add_argument(
+        "--classes",
+        default="quantiles",
+        choices=["quantiles", "equal-interval", "natural-breaks"],
+        help="how map classes are drawn (default quantiles)",
+    )
+    files.add_argument(
+        "--class-count",
+        type=int,
+        default=5,
+        metavar="N",
+        help="number of map classes, 1 to 12 (default 5)",
+    )
+    files.add_argument(
         "--daily",
         action="store_true",
         help="also write table daily (flow and baseflow of every day; large)",
@@ -280,6 +301,10 @@ def run_files(
     reporter=None,
     daily=False,
     subbasins=None,
+    report_path=None,
+    year_maps_path=None,
+    scheme="quantiles",
+    classes=5,
 ):
     """Read the inputs, run the pipeline and write the outputs. Returns the AtlasResult.
 
@@ -292,11 +317,24 @@ def run_files(
     out = Path(out)
     basins = subbasins if subbasins is not None else catchments
     inputs = [files.split_layer(p)[0] for p in (gauges, basins, discharge)]
-    for target in [out] + ([Path(map_path)] if map_path else []):
+    extras = [Path(p) for p in (map_path, year_maps_path, report_path) if p]
+    for target in [out, *extras]:
         if any(_same_file(target, p) for p in inputs):
             raise InputError("the output path is one of the input files", file=str(target))
     if out.suffix.lower() != ".gpkg":
         raise InputError("the output must be a GeoPackage ending in .gpkg", file=str(out))
+    for path, suffixes, what in (
+        (map_path, (".png",), "map"),
+        (year_maps_path, (".png",), "per-year map"),
+        (report_path, (".html", ".htm"), "report"),
+    ):
+        if path and Path(path).suffix.lower() not in suffixes:
+            raise InputError(
+                f"the {what} must be a file ending in {' or '.join(suffixes)}", file=str(path)
+            )
+    from recharge_atlas.algorithms.maps import class_breaks
+
+    class_breaks([1.0, 2.0], scheme, classes)  # a bad scheme or class count fails before the run
     settings = settings.resolved()  # bad settings fail before any file is read
     gauge_layer = files.read_layer(gauges, "gauges")
     what = "subbasins" if subbasins is not None else "catchments"
@@ -307,11 +345,30 @@ def run_files(
     else:
         result = run_atlas(gauge_layer, basin_layer, table, settings, reporter)
     files.write_geopackage(result, out, daily=daily)
-    if map_path:
-        from recharge_atlas.algorithms.maps import recharge_map
+    from recharge_atlas.algorithms.maps import recharge_map, year_maps
 
+    if map_path:
         mapped = result.subbasins if result.subbasins is not None else result.catchments
-        files.save_figure(recharge_map(mapped, gauge_layer), map_path)
+        files.save_figure(
+            recharge_map(mapped, gauge_layer, scheme=scheme, classes=classes), map_path
+        )
+    if year_maps_path:
+        figure = year_maps(
+            result.catchments, result.annual, gauge_layer, scheme=scheme, classes=classes
+        )
+        files.save_figure(figure, year_maps_path, dpi=100)
+    if report_path:
+        from recharge_atlas.algorithms.report import write_report
+
+        write_report(
+            result,
+            report_path,
+            gauges=gauge_layer,
+            settings=result.settings,
+            scheme=scheme,
+            classes=classes,
+            reporter=reporter,
+        )
     return result
 
 
@@ -362,6 +419,8 @@ def _demo(args):
     out_dir.mkdir(parents=True, exist_ok=True)
     gpkg = out_dir / "recharge.gpkg"
     png = out_dir / "recharge_map.png"
+    years_png = out_dir / "recharge_by_year.png"
+    html = out_dir / "report.html"
     print(f"Demo region: {generate.REGION_NAME} (invented), from {folder}")
     result = run_files(
         folder / "gauges.gpkg",
@@ -371,11 +430,14 @@ def _demo(args):
         Settings(),
         map_path=png,
         reporter=_StderrReporter(),
+        report_path=html,
+        year_maps_path=years_png,
     )
     print(
-        f"Results: {gpkg} (layer catchments; tables annual, events, periods, segments, master_recession)"
+        f"Results: {gpkg} (layers catchments, incremental_areas; tables annual, events, periods, segments, master_recession, links)"
     )
-    print(f"Map:     {png}")
+    print(f"Map:     {png} (and one map per water year: {years_png})")
+    print(f"Report:  {html}")
     print(
         "Open the GeoPackage in QGIS, or compare with the known truth in sample_layers/truth_*.csv."
     )
@@ -402,8 +464,13 @@ def main(argv=None):
             _StderrReporter(),
             args.daily,
             subbasins=args.subbasins,
+            report_path=args.report,
+            year_maps_path=args.year_maps,
+            scheme=args.classes.replace("-", "_"),
+            classes=args.class_count,
         )
-        print(f"wrote {args.out}" + (f" and {args.map}" if args.map else ""))
+        written = [p for p in (args.out, args.map, args.year_maps, args.report) if p]
+        print("wrote " + ", ".join(written))
         return EXIT_OK
     except InputError as exc:
         print(f"recharge-atlas: error: {exc}", file=sys.stderr)

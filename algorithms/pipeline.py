@@ -392,6 +392,8 @@ class AtlasResult:
         Which gauged basins lie inside which, and their incremental areas.
     subbasins : geopandas.GeoDataFrame or None
         With a subbasin map: the subbasins with the recharge depth of the gauge downstream.
+    settings : Settings
+        The settings the run used (resolved).
     gauges : dict of str to GaugeResult
     summary : dict
         Counts of gauges computed, flagged and failed.
@@ -407,6 +409,7 @@ class AtlasResult:
     master_recession: pd.DataFrame = field(default_factory=pd.DataFrame)
     links: pd.DataFrame = field(default_factory=pd.DataFrame)
     nesting: object = None
+    settings: object = None
 
     def incremental_areas(self):
         """The incremental area of each linked gauge as a polygon layer (no overlaps).
@@ -846,6 +849,7 @@ def run_atlas(
         master_recession=_stack(results, lambda r: r.master_recession, MASTER_RECESSION_COLUMNS),
         links=links.table(gauge_ids, names),
         nesting=nesting,
+        settings=settings,
     )
 
 

@@ -274,3 +274,39 @@ def test_tables_keep_their_typed_columns_when_empty():
     assert list(result.segments.columns)[:3] == ["gauge_id", "first_date", "last_date"]
     assert "recession_index_q75" in result.master_recession.columns
     assert list(result.daily().columns) == ["gauge_id", "date", "discharge_m3s", "baseflow_m3s"]
+
+
+def test_report_year_maps_and_classes_from_the_command_line(tmp_path, sample_paths):
+    html, years = tmp_path / "report.html", tmp_path / "years.png"
+    args = run_args(
+        sample_paths,
+        tmp_path / "r.gpkg",
+        "--report",
+        str(html),
+        "--year-maps",
+        str(years),
+        "--classes",
+        "natural-breaks",
+        "--class-count",
+        "4",
+    )
+    assert main(args) == 0
+    page = html.read_text(encoding="utf-8")
+    assert (
+        "qualified hydrogeologists" in page and "QM01" in page and "data:image/png;base64," in page
+    )
+    assert years.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+@pytest.mark.parametrize(
+    ("extra", "message"),
+    [
+        (["--report", "report.txt"], "must be a file ending in .html"),
+        (["--class-count", "40"], "class"),
+    ],
+)
+def test_bad_output_options_exit_2_before_any_work(tmp_path, sample_paths, capsys, extra, message):
+    extra = [str(tmp_path / e) if e.endswith(".txt") else e for e in extra]
+    assert main(run_args(sample_paths, tmp_path / "r.gpkg", *extra)) == 2
+    assert message in capsys.readouterr().err
+    assert list(tmp_path.iterdir()) == []
