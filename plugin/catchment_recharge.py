@@ -101,6 +101,10 @@ class CatchmentRecharge(RechargeRunAlgorithm):
                     "Each gauge links by location to the smallest catchment it is the outlet of"
                 )
             )
+            if settings.catchment_field_given:
+                feedback.pushInfo(
+                    self.tr("The catchments' field {} is not used (LINK)").format(field)
+                )
 
     def _run(self, tables, settings, reporter):
         from ..algorithms.pipeline import run_atlas

@@ -156,9 +156,12 @@ def _with_fields(frame, name):
 
 
 def _option_text(value, options):
-    """An enum value given as an index read as its option's text; other values unchanged."""
-    if isinstance(value, int) and not isinstance(value, bool) and 0 <= value < len(options):
-        return options[value]
+    """An enum value given as an index (a number, or digits as ``qgis_process`` passes it)
+    read as its option's text; other values unchanged. No option is a number, so digits can
+    only mean an index."""
+    index = int(value.strip()) if isinstance(value, str) and value.strip().isdigit() else value
+    if isinstance(index, int) and not isinstance(index, bool) and 0 <= index < len(options):
+        return options[index]
     return value
 
 
@@ -459,9 +462,9 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
         for name in self._DEFAULT_FIELDS:
             if parameters.get(name) in (None, ""):
                 parameters[name] = self.parameterDefinition(name).defaultValue()
-        value = parameters.get(self.UNITS)
+        labels, aliases = unit_labels()
+        value = _option_text(parameters.get(self.UNITS), labels)
         if isinstance(value, str):
-            labels, aliases = unit_labels()
             label = aliases.get(value.strip(), value.strip())
             if label in labels:
                 parameters[self.UNITS] = label

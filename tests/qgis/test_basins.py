@@ -326,6 +326,7 @@ CHECKS = [
     ("link by core id", {"LINK": "spatial"}, True, []),
     ("link by label", {"LINK": "by location (gauge at the outlet)"}, True, []),
     ("link by index", {"LINK": 1}, True, []),
+    ("link by index as text", {"LINK": "2"}, True, []),
     ("unknown link", {"LINK": "nearest"}, False, ["'nearest'", "by gauge id", "(LINK)"]),
     ("zero tolerance", {"LINK_TOLERANCE": 0}, True, []),
     ("negative tolerance", {"LINK_TOLERANCE": -5}, False, ["-5", "(LINK_TOLERANCE)"]),
