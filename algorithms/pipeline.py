@@ -411,6 +411,21 @@ class AtlasResult:
     nesting: object = None
     settings: object = None
 
+    def gauge_table(self) -> pd.DataFrame:
+        """One row per gauge with its results: the catchment fields, without the geometry.
+
+        Works for every kind of run, catchments or not (see :func:`run_gauges`).
+        """
+        rows = []
+        for gid, result in self.gauges.items():
+            row = {"gauge_id": gid}
+            row.update(_catchment_values(result, result.area_km2))
+            row["quality"] = result.quality_text
+            rows.append(row)
+        fields = [c for c in CATCHMENT_FIELDS if c in rows[0]] if rows else ["gauge_id", "quality"]
+        table = pd.DataFrame(rows, columns=fields) if rows else empty_table(fields)
+        return table
+
     def incremental_areas(self):
         """The incremental area of each linked gauge as a polygon layer (no overlaps).
 
@@ -683,6 +698,123 @@ def _reported_area_notes(gauges, settings, areas_by_gauge):
     return notes
 
 
+def _gauge_ids(gauges, settings):
+    require_columns(gauges, [settings.gauge_id_field], "gauges layer")
+    ids = [
+        g
+        for g in dict.fromkeys(gauge_id_text(gauges[settings.gauge_id_field].to_numpy()))
+        if g is not None
+    ]
+    if not ids:
+        raise InputError("the gauges layer holds no gauge ids", field=settings.gauge_id_field)
+    return ids
+
+
+def _records(discharge, settings):
+    return tidy_discharge(
+        discharge,
+        gauge_field=settings.discharge_gauge_field,
+        date_field=settings.date_field,
+        value_field=settings.value_field,
+        units=settings.units,
+        flag_field=settings.flag_field,
+        flag_values=settings.flag_values,
+        min_day_coverage=settings.min_day_coverage,
+    )
+
+
+@dataclass
+class _Basins:
+    """Catchments after repair, their areas, the links and the nesting of the linked gauges."""
+
+    geometry: object
+    repairs: dict
+    areas: np.ndarray
+    links: object
+    nesting: object
+
+    def area_of(self):
+        return {gid: float(self.areas[row]) for gid, row in self.links.catchment_of.items()}
+
+
+def _link_basins(gauges, gauge_ids, catchments, settings, reporter) -> _Basins:
+    """Repair the catchments, measure them, link the gauges and find the nesting."""
+    import geopandas as gpd
+
+    method = settings.link_method(list(catchments.columns))
+    if method == "id":
+        require_columns(catchments, [settings.catchment_gauge_field], "catchments layer")
+    geometry, repairs = repair_polygons(catchments.geometry)
+    for row, note in repairs.items():
+        reporter.warning(f"catchment in row {row}: {note}")
+    areas = geodesic_area_km2(geometry)
+    if method == "id":
+        links = link_by_id(gauge_ids, catchments, settings.catchment_gauge_field)
+    else:
+        ids = list(gauge_id_text(gauges[settings.gauge_id_field].to_numpy()))
+        links = link_spatially(
+            ids,
+            _gauge_points(gauges),
+            geometry,
+            settings.link_tolerance_m,
+            settings.overlap_tolerance,
+        )
+    for gid in links.unlinked + list(links.several) + list(links.ambiguous):
+        reporter.warning(f"gauge {gid}: {links.notes.get(gid, 'not linked to a catchment')}")
+    linked = [
+        gid
+        for gid in gauge_ids
+        if gid in links.catchment_of and geometry.iloc[links.catchment_of[gid]] is not None
+    ]
+    basins = gpd.GeoSeries(
+        [geometry.iloc[links.catchment_of[g]] for g in linked], index=linked, crs=geometry.crs
+    )
+    return _Basins(
+        geometry, repairs, areas, links, find_nesting(basins, settings.overlap_tolerance)
+    )
+
+
+def _compute_gauges(gauge_ids, records, area_of, settings, reporter, given_k, unlinked_note=None):
+    """The hydrology of every gauge; one that fails is flagged and the run goes on."""
+    results: dict[str, GaugeResult] = {}
+    failed = 0
+    total = len(gauge_ids)
+    for done, gid in enumerate(gauge_ids):
+        if reporter.cancelled():
+            raise Cancelled("run cancelled")
+        reporter.progress(done, total, gid)
+        area = area_of.get(gid, np.nan)
+        record = records.get(gid)
+        if record is None:
+            result = GaugeResult(gid, area, quality=["no discharge record for this gauge"])
+        else:
+            try:
+                result = gauge_hydrology(record, area, settings, given_k.get(gid))
+            except Exception as exc:  # one bad gauge never spoils the run
+                failed += 1
+                reporter.warning(f"gauge {gid}: could not be computed ({exc})")
+                result = GaugeResult(gid, area, quality=[f"could not be computed: {exc}"])
+        if unlinked_note is not None and gid not in area_of:
+            result.quality.insert(0, unlinked_note(gid))
+        results[gid] = result
+    reporter.progress(total, total, None)
+    unknown = sorted(set(records) - set(gauge_ids))
+    if unknown:
+        shown = ", ".join(unknown[:5]) + (" …" if len(unknown) > 5 else "")
+        reporter.warning(f"{len(unknown)} gauge ids in the discharge table match no gauge: {shown}")
+    return results, failed
+
+
+def _summary(results, failed):
+    flagged = sum(1 for r in results.values() if r.quality)
+    return {
+        "gauges": len(results),
+        "computed": len(results) - failed,
+        "flagged": flagged,
+        "failed": failed,
+    }
+
+
 def run_atlas(
     gauges,
     catchments,
@@ -716,92 +848,21 @@ def run_atlas(
     """
     settings = (settings or Settings()).resolved()
     reporter = reporter or Reporter()
-    require_columns(gauges, [settings.gauge_id_field], "gauges layer")
-    method = settings.link_method(list(catchments.columns))
-    if method == "id":
-        require_columns(catchments, [settings.catchment_gauge_field], "catchments layer")
-    gauge_ids = [
-        g
-        for g in dict.fromkeys(gauge_id_text(gauges[settings.gauge_id_field].to_numpy()))
-        if g is not None
-    ]
-    if not gauge_ids:
-        raise InputError("the gauges layer holds no gauge ids", field=settings.gauge_id_field)
+    gauge_ids = _gauge_ids(gauges, settings)
     given_k = _given_recession_index(gauges, settings)
-    records = tidy_discharge(
-        discharge,
-        gauge_field=settings.discharge_gauge_field,
-        date_field=settings.date_field,
-        value_field=settings.value_field,
-        units=settings.units,
-        flag_field=settings.flag_field,
-        flag_values=settings.flag_values,
-        min_day_coverage=settings.min_day_coverage,
+    records = _records(discharge, settings)
+    basins = _link_basins(gauges, gauge_ids, catchments, settings, reporter)
+    links, nesting = basins.links, basins.nesting
+    area_of = basins.area_of()
+
+    def unlinked(gid):
+        return f"no single catchment linked ({links.notes.get(gid, 'not linked')}): depths not computed"
+
+    results, failed = _compute_gauges(
+        gauge_ids, records, area_of, settings, reporter, given_k, unlinked
     )
-    geometry, repairs = repair_polygons(catchments.geometry)
-    for row, note in repairs.items():
-        reporter.warning(f"catchment in row {row}: {note}")
-    areas = geodesic_area_km2(geometry)
-    if method == "id":
-        links = link_by_id(gauge_ids, catchments, settings.catchment_gauge_field)
-    else:
-        ids = list(gauge_id_text(gauges[settings.gauge_id_field].to_numpy()))
-        links = link_spatially(
-            ids,
-            _gauge_points(gauges),
-            geometry,
-            settings.link_tolerance_m,
-            settings.overlap_tolerance,
-        )
-    for gid in links.unlinked + list(links.several) + list(links.ambiguous):
-        reporter.warning(f"gauge {gid}: {links.notes.get(gid, 'not linked to a catchment')}")
-
-    results: dict[str, GaugeResult] = {}
-    failed = 0
-    total = len(gauge_ids)
-    for done, gid in enumerate(gauge_ids):
-        if reporter.cancelled():
-            raise Cancelled("run cancelled")
-        reporter.progress(done, total, gid)
-        row = links.catchment_of.get(gid)
-        area = float(areas[row]) if row is not None else np.nan
-        record = records.get(gid)
-        if record is None:
-            result = GaugeResult(gid, area, quality=["no discharge record for this gauge"])
-        else:
-            try:
-                result = gauge_hydrology(record, area, settings, given_k.get(gid))
-            except Exception as exc:  # one bad gauge never spoils the run
-                failed += 1
-                reporter.warning(f"gauge {gid}: could not be computed ({exc})")
-                result = GaugeResult(gid, area, quality=[f"could not be computed: {exc}"])
-        if row is None:
-            result.quality.insert(
-                0,
-                f"no single catchment linked ({links.notes.get(gid, 'not linked')}): depths not computed",
-            )
-        results[gid] = result
-    reporter.progress(total, total, None)
-    unknown = sorted(set(records) - set(gauge_ids))
-    if unknown:
-        shown = ", ".join(unknown[:5]) + (" …" if len(unknown) > 5 else "")
-        reporter.warning(f"{len(unknown)} gauge ids in the discharge table match no gauge: {shown}")
-
-    # Basins: reported areas, nesting and incremental recharge of the linked gauges.
-    area_of = {gid: float(areas[row]) for gid, row in links.catchment_of.items()}
     for gid, note in _reported_area_notes(gauges, settings, area_of).items():
         results[gid].quality.append(note)
-    import geopandas as gpd
-
-    linked = [
-        gid
-        for gid in gauge_ids
-        if gid in links.catchment_of and geometry.iloc[links.catchment_of[gid]] is not None
-    ]
-    basins = gpd.GeoSeries(
-        [geometry.iloc[links.catchment_of[g]] for g in linked], index=linked, crs=geometry.crs
-    )
-    nesting = find_nesting(basins, settings.overlap_tolerance)
     annual = _stack(results, lambda r: r.annual, annual_mod.ANNUAL_COLUMNS)
     by_year, incremental = incremental_recharge(nesting, annual)
     for gid, (m3, mm, _years) in incremental.items():
@@ -818,22 +879,18 @@ def run_atlas(
         if result.quality:
             reporter.warning(f"gauge {gid}: {result.quality_text}")
 
-    out = _catchment_layer(
-        catchments, geometry, areas, links, results, settings, repairs, nesting, incremental
+    out = _catchment_layer(catchments, basins, results, settings, incremental)
+    summary = _summary(results, failed)
+    summary.update(
+        {
+            "catchments": len(catchments),
+            "catchments_without_gauge": len(links.without_gauge),
+            "link": links.method,
+            "linked": len(links.catchment_of),
+        }
     )
-    flagged = sum(1 for r in results.values() if r.quality)
-    summary = {
-        "gauges": total,
-        "computed": total - failed,
-        "flagged": flagged,
-        "failed": failed,
-        "catchments": len(catchments),
-        "catchments_without_gauge": len(links.without_gauge),
-        "link": links.method,
-        "linked": len(links.catchment_of),
-    }
     reporter.info(
-        f"{total} gauges: {total - failed} computed ({flagged} flagged), {failed} failed; "
+        f"{summary['gauges']} gauges: {summary['computed']} computed ({summary['flagged']} flagged), {failed} failed; "
         f"{len(links.catchment_of)} linked to catchments ({links.method}); "
         f"{len(links.without_gauge)} catchments without a gauge"
     )
@@ -851,6 +908,92 @@ def run_atlas(
         nesting=nesting,
         settings=settings,
     )
+
+
+def run_gauges(
+    gauges,
+    discharge: pd.DataFrame,
+    settings: Settings | None = None,
+    reporter: Reporter | None = None,
+    area_field=None,
+) -> AtlasResult:
+    """The hydrology of every gauge without catchments: K, events, baseflow, annual terms.
+
+    Volumes need no area. Depths (mm) and the runoff-end lag need one: give a field of the
+    gauges layer with the drainage area in km² (``area_field``); without it depths stay empty
+    and N is that of a 100 km² basin unless ``settings.runoff_end_lag_days`` is set.
+    The result's ``catchments`` is None; :meth:`AtlasResult.gauge_table` gives one row per gauge.
+    """
+    settings = (settings or Settings()).resolved()
+    reporter = reporter or Reporter()
+    gauge_ids = _gauge_ids(gauges, settings)
+    given_k = _given_recession_index(gauges, settings)
+    records = _records(discharge, settings)
+    area_of = {}
+    if area_field:
+        require_columns(gauges, [area_field], "gauges layer")
+        ids = gauge_id_text(gauges[settings.gauge_id_field].to_numpy())
+        values = pd.to_numeric(
+            pd.Series(gauges[area_field].to_numpy(), dtype=object), errors="coerce"
+        ).to_numpy(float)
+        area_of = {
+            g: float(v) for g, v in zip(ids, values) if g is not None and np.isfinite(v) and v > 0
+        }
+    results, failed = _compute_gauges(gauge_ids, records, area_of, settings, reporter, given_k)
+    for gid, result in results.items():
+        if result.quality:
+            reporter.warning(f"gauge {gid}: {result.quality_text}")
+    summary = _summary(results, failed)
+    reporter.info(
+        f"{summary['gauges']} gauges: {summary['computed']} computed ({summary['flagged']} flagged), {failed} failed"
+    )
+    return AtlasResult(
+        catchments=None,
+        annual=_stack(results, lambda r: r.annual, annual_mod.ANNUAL_COLUMNS),
+        events=_stack(results, lambda r: r.events, EVENT_COLUMNS_WITH_DEPTH),
+        gauges=results,
+        summary=summary,
+        periods=_stack(results, lambda r: r.periods, annual_mod.PERIOD_COLUMNS),
+        segments=_stack(results, lambda r: r.segments, SEGMENT_COLUMNS),
+        master_recession=_stack(results, lambda r: r.master_recession, MASTER_RECESSION_COLUMNS),
+        settings=settings,
+    )
+
+
+def check_links(
+    gauges, catchments, settings: Settings | None = None, reporter: Reporter | None = None
+):
+    """How gauges link to catchments and how the basins nest, before any hydrology.
+
+    Returns
+    -------
+    catchments : geopandas.GeoDataFrame
+        The input polygons (repaired where needed) with ``gauge_id, area_km2,
+        incremental_area_km2, downstream_gauge, upstream_gauges, quality`` (linking and
+        geometry notes only).
+    links : pandas.DataFrame
+        One row per gauge (see :meth:`basins.GaugeLinks.table`).
+    """
+    settings = (settings or Settings()).resolved()
+    reporter = reporter or Reporter()
+    gauge_ids = _gauge_ids(gauges, settings)
+    basins = _link_basins(gauges, gauge_ids, catchments, settings, reporter)
+    placeholders = {gid: GaugeResult(gid, area) for gid, area in basins.area_of().items()}
+    full = _catchment_layer(catchments, basins, placeholders, settings, {})
+    keep = [
+        "gauge_id",
+        "area_km2",
+        "incremental_area_km2",
+        "downstream_gauge",
+        "upstream_gauges",
+        "quality",
+    ]
+    kept = [
+        c for c in catchments.columns if c != catchments.geometry.name and c not in CATCHMENT_FIELDS
+    ]
+    layer = full[kept + keep + [full.geometry.name]]
+    names = catchments["name"].tolist() if "name" in catchments.columns else None
+    return layer, basins.links.table(gauge_ids, names)
 
 
 def run_atlas_subbasins(
@@ -952,9 +1095,14 @@ def _catchment_values(result: GaugeResult | None, area):
     }
 
 
-def _catchment_layer(
-    catchments, geometry, areas, links, results, settings, repairs, nesting, incremental
-):
+def _catchment_layer(catchments, basins, results, settings, incremental):
+    geometry, areas, links, repairs, nesting = (
+        basins.geometry,
+        basins.areas,
+        basins.links,
+        basins.repairs,
+        basins.nesting,
+    )
     out = catchments.copy()
     if repairs:
         out = (

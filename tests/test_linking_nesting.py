@@ -236,3 +236,35 @@ def test_incremental_areas_layer_has_no_overlaps(by_id):
         layer.set_index("gauge_id")["incremental_recharge_mm_per_year"].loc[["QM01", "QM02"]],
         c.loc[["QM01", "QM02"], "incremental_recharge_mm_per_year"],
     )
+
+
+def test_check_links_without_hydrology(demo_region):
+    from recharge_atlas.algorithms.pipeline import check_links
+
+    layer, links = check_links(demo_region.gauges, demo_region.catchments.drop(columns="gauge_id"))
+    assert (links["link"] == "linked").all() and (links["method"] == "spatial").all()
+    c = layer.dropna(subset=["gauge_id"]).set_index("gauge_id")
+    assert c.loc["QM04", "downstream_gauge"] == "QM02"
+    assert (c["quality"] == "ok").all()
+    assert "recharge_mm_per_year" not in layer.columns
+
+
+def test_gauges_alone_with_an_area_field(demo_region, by_id):
+    from recharge_atlas.algorithms.pipeline import run_gauges
+
+    areas = by_id.catchments.dropna(subset=["gauge_id"]).set_index("gauge_id")["area_km2"]
+    gauges = demo_region.gauges.assign(area=demo_region.gauges["gauge_id"].map(areas))
+    result = run_gauges(gauges, demo_region.discharge, area_field="area")
+    assert result.catchments is None
+    table = result.gauge_table().set_index("gauge_id")
+    expected = by_id.gauge_table().set_index("gauge_id")
+    np.testing.assert_allclose(
+        table["recharge_mm_per_year"].to_numpy(float),
+        expected["recharge_mm_per_year"].to_numpy(float),
+        rtol=1e-12,
+    )
+    no_area = run_gauges(demo_region.gauges, demo_region.discharge).gauge_table()
+    assert (
+        no_area["recharge_mm_per_year"].isna().all()
+        and no_area["recession_index_days"].notna().all()
+    )
