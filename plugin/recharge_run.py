@@ -77,6 +77,10 @@ _BFI_MAX = 0.80
 _MIN_SEGMENT_DAYS = 7
 _LINK_TOLERANCE_M = 100.0
 _OVERLAP_TOLERANCE = 0.05
+# Of the core's maps: the number of classes of the command line's map, and the most a map may
+# have (tests check them).
+_CLASS_COUNT = 5
+_MAX_CLASSES = 12
 
 
 def _plain(text) -> str:
@@ -199,6 +203,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
     OVERLAP_TOLERANCE = "OVERLAP_TOLERANCE"
     REPORTED_AREA_FIELD = "REPORTED_AREA_FIELD"
     CLASSES = "CLASSES"
+    CLASS_COUNT = "CLASS_COUNT"
     UNGAUGED = "UNGAUGED"
     OUTPUT = "OUTPUT"
     ANNUAL = "ANNUAL"
@@ -413,6 +418,16 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             )
         )
         self._choice_parameter(self.CLASSES, self.tr("Map classes"), "quantiles", True)
+        self.add_advanced(
+            QgsProcessingParameterNumber(
+                self.CLASS_COUNT,
+                self.tr("Number of map classes"),
+                type=compat.NUMBER_INTEGER,
+                defaultValue=_CLASS_COUNT,
+                minValue=1,
+                maxValue=_MAX_CLASSES,
+            )
+        )
 
     def _table_sink(self, name, label, by_default):
         self.addParameter(
@@ -546,7 +561,21 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
                 Settings(**{attribute: values[attribute]}).resolved()
             except InputError as exc:
                 return f"{exc} ({name})"
+        return self._class_count_problem(parameters, context)
+
+    def _class_count_problem(self, parameters, context):
+        """The core's message when it refuses the number of map classes; None when fine."""
+        from ..algorithms.errors import InputError
+        from ..algorithms.maps import class_breaks
+
+        try:
+            class_breaks([0.0, 1.0], "quantiles", self._class_count(parameters, context))
+        except InputError as exc:
+            return f"{exc} ({self.CLASS_COUNT})"
         return None
+
+    def _class_count(self, parameters, context):
+        return self._number(parameters, self.CLASS_COUNT, context)
 
     def _number(self, parameters, name, context):
         """A number parameter as given (its default when empty, None when optional and empty).
@@ -663,6 +692,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
         basins = self._basin_sources(parameters, context)
         report_path = self.parameterAsFileOutput(parameters, self.REPORT, context)
         scheme = self._choice(parameters, self.CLASSES, context)
+        classes = self._class_count(parameters, context)
 
         from ..algorithms.errors import Cancelled, InputError
         from .feedback import FeedbackReporter, push_warning
@@ -672,6 +702,10 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             settings = settings.resolved()
             if scheme not in MAP_CLASSES:
                 raise InputError(self._unknown_choice(self.CLASSES, scheme))
+            problem = self._class_count_problem(parameters, context)
+            if problem:
+                raise InputError(problem)
+            classes = int(classes)
             if report_path and Path(report_path).suffix.lower() not in (".html", ".htm"):
                 raise InputError(self._report_suffix_problem(report_path))
             self._explain_settings(settings, feedback, push_warning)
@@ -679,7 +713,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             reporter = FeedbackReporter(feedback, _READ_END, _RUN_END)
             result = self._run(tables, settings, reporter)
             if report_path:
-                self._write_report(result, tables, settings, scheme, report_path, feedback)
+                self._write_report(result, tables, settings, scheme, classes, report_path, feedback)
         except InputError as exc:
             raise QgsProcessingException(str(exc)) from None
         except Cancelled:
@@ -700,7 +734,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             dest_id = outputs.get(name)
             if dest_id and context.willLoadLayerOnCompletion(dest_id):
                 context.layerToLoadOnCompletionDetails(dest_id).setPostProcessor(
-                    styling.recharge_post_processor(scheme)
+                    styling.recharge_post_processor(scheme, classes)
                 )
         return outputs
 
@@ -788,7 +822,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             feedback.setProgress(_READ_END * (n + 1) / len(steps))
         return tables
 
-    def _write_report(self, result, tables, settings, scheme, path, feedback):
+    def _write_report(self, result, tables, settings, scheme, classes, path, feedback):
         """Write the HTML report after the run and before any layer, so that neither a cancel
         nor a failure leaves a report without layers or layers without it. The core writes it
         atomically and checks the cancel button before each gauge it draws."""
@@ -810,6 +844,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             path,
             gauges=tables["gauges"].frame,
             scheme=scheme,
+            classes=classes,
             settings=settings,
             reporter=reporter,
         )

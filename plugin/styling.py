@@ -115,14 +115,15 @@ def apply_recharge_style(
 
 
 class RechargeStylePostProcessor(QgsProcessingLayerPostProcessorInterface):
-    """Styles a basin output with ``scheme`` classes when Processing loads it."""
+    """Styles a basin output with ``classes`` classes by ``scheme`` when Processing loads it."""
 
-    def __init__(self, scheme: str = "quantiles"):
+    def __init__(self, scheme: str = "quantiles", classes: int = CLASSES):
         super().__init__()
         self.scheme = scheme
+        self.classes = classes
 
     def postProcessLayer(self, layer, context, feedback):  # noqa: N802 (QGIS API name)
-        apply_recharge_style(layer, scheme=self.scheme)
+        apply_recharge_style(layer, classes=self.classes, scheme=self.scheme)
 
 
 # Processing takes ownership of a post-processor and deletes it with the context of the run
@@ -132,10 +133,13 @@ class RechargeStylePostProcessor(QgsProcessingLayerPostProcessorInterface):
 _RECENT = deque(maxlen=16)
 
 
-def recharge_post_processor(scheme: str = "quantiles") -> RechargeStylePostProcessor:
-    """A new style post-processor with ``scheme`` classes, for one output of one run."""
+def recharge_post_processor(
+    scheme: str = "quantiles", classes: int = CLASSES
+) -> RechargeStylePostProcessor:
+    """A new style post-processor (``classes`` classes by ``scheme``) for one output of one
+    run."""
     if scheme not in _QGIS_METHODS:
         raise ValueError(f"scheme was {scheme!r}; expected one of {list(SCHEMES)}")
-    processor = RechargeStylePostProcessor(scheme)
+    processor = RechargeStylePostProcessor(scheme, classes)
     _RECENT.append(processor)
     return processor

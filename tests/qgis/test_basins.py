@@ -335,6 +335,9 @@ CHECKS = [
     ("classes by core id", {"CLASSES": "natural_breaks"}, True, []),
     ("classes by label", {"CLASSES": "Equal interval"}, True, []),
     ("unknown classes", {"CLASSES": "jenks"}, False, ["'jenks'", "natural breaks", "(CLASSES)"]),
+    ("three classes", {"CLASS_COUNT": 3}, True, []),
+    ("thirteen classes", {"CLASS_COUNT": 13}, False, ["13", "(CLASS_COUNT)"]),
+    ("half a class", {"CLASS_COUNT": 2.5}, False, ["2.5", "(CLASS_COUNT)"]),
     ("report as HTML", {"REPORT": "/tmp/run.html"}, True, []),
     ("report not HTML", {"REPORT": "/tmp/run.pdf"}, False, ["run.pdf", "(REPORT)"]),
 ]

@@ -3,6 +3,7 @@ packages are missing, saying what to install."""
 
 from __future__ import annotations
 
+import inspect
 import json
 import subprocess
 import textwrap
@@ -67,6 +68,7 @@ def test_parameters_are_the_briefs(algorithm):
         "OVERLAP_TOLERANCE",
         "REPORTED_AREA_FIELD",
         "CLASSES",
+        "CLASS_COUNT",
         "OUTPUT",
         "ANNUAL",
         "EVENTS",
@@ -104,6 +106,7 @@ ADVANCED = [
     "OVERLAP_TOLERANCE",
     "REPORTED_AREA_FIELD",
     "CLASSES",
+    "CLASS_COUNT",
 ]
 
 
@@ -144,6 +147,8 @@ def test_method_parameters_are_advanced_with_their_defaults(algorithm):
     assert algorithm.parameterDefinition("LINK_TOLERANCE").defaultValue() == 100
     assert algorithm.parameterDefinition("LINK_TOLERANCE").minimum() == 0
     assert algorithm.parameterDefinition("OVERLAP_TOLERANCE").defaultValue() == 0.05
+    count = algorithm.parameterDefinition("CLASS_COUNT")
+    assert (count.defaultValue(), count.minimum(), count.maximum()) == (5, 1, 12)
 
 
 TABLES = (
@@ -181,7 +186,7 @@ def test_fallback_defaults_equal_the_core():
     """The dialog's defaults and method ids, kept in the plugin for drawing the dialog without
     the core, are the core's."""
     from recharge_atlas.algorithms.baseflow import METHODS
-    from recharge_atlas.algorithms.maps import SCHEMES
+    from recharge_atlas.algorithms.maps import MAX_CLASSES, SCHEMES, class_breaks
     from recharge_atlas.algorithms.pipeline import LINK_METHODS, Settings
     from recharge_atlas.algorithms.subbasins import UNGAUGED_CHOICES
     from recharge_atlas.plugin import recharge_run, styling
@@ -197,6 +202,9 @@ def test_fallback_defaults_equal_the_core():
     assert tuple(recharge_run.UNGAUGED_CHOICES) == UNGAUGED_CHOICES
     assert next(iter(recharge_run.UNGAUGED_CHOICES)) == Settings().ungauged
     assert tuple(recharge_run.MAP_CLASSES) == SCHEMES
+    assert recharge_run._MAX_CLASSES == MAX_CLASSES
+    default = inspect.signature(class_breaks).parameters["classes"].default
+    assert recharge_run._CLASS_COUNT == default == styling.CLASSES
     assert tuple(styling.SCHEMES) == SCHEMES
 
 
