@@ -1,9 +1,8 @@
 """Finding significant rises (events) in a daily discharge record.
 
-A rise counts only when it is larger than the gauge's noise. Turning points are chosen by a
-threshold swing: a peak must stand at least ``threshold`` (in log10 units) above the lowest day
-before it, and the flow must fall at least ``threshold`` below the peak before a new rise can
-start. The lowest day before each rise is the anchor of the pre-event recession (Rorabaugh
+A rise counts only when it is larger than the gauge's noise. A peak counts when its
+prominence (in log10 units) reaches the threshold: it stands that far above the lowest day
+before it, and the flow falls that far below it before a new, higher climb. The lowest day before each rise is the anchor of the pre-event recession (Rorabaugh
 1964): the daily mean on the first day of a rise already contains storm water.
 """
 
@@ -57,48 +56,50 @@ def _blocks(valid):
 
 
 def _turning_points(x, threshold):
-    """Alternating troughs and peaks of ``x`` (no NaN) whose swings all exceed ``threshold``.
+    """Troughs and peaks of ``x`` (no NaN) whose swings all exceed ``threshold``.
 
-    Returns two integer arrays ``(troughs, peaks)`` with ``troughs[k] < peaks[k]``: each peak
-    rises at least ``threshold`` above the lowest point since the previous peak, and falls at
-    least ``threshold`` (or to the end of the block) before the next trough.
+    Returns two integer arrays ``(troughs, peaks)`` with ``troughs[k] < peaks[k]``. A peak is
+    significant when its prominence reaches ``threshold``: it stands that far above the higher
+    of the lowest points separating it from higher ground on either side (so a rise counts
+    once it has climbed ``threshold`` from the lowest day before it and fallen ``threshold``
+    before the next climb). Each peak's trough is the lowest day since the previous significant
+    peak (the latest such day on ties). A block that ends while still rising by ``threshold``
+    ends on a peak. Peaks come from ``scipy.signal.find_peaks`` (compiled), with no loop over
+    days.
     """
+    from scipy.signal import find_peaks
+
     n = x.size
     if n < 2:
         return np.empty(0, int), np.empty(0, int)
-    # Only local extrema can be turning points; walking them is much shorter than every day.
-    d = np.diff(x)
-    sign = np.sign(d)
-    nz = np.flatnonzero(sign)
-    if nz.size == 0:
+    peaks, _ = find_peaks(x, prominence=threshold)
+    peaks = np.asarray(peaks, dtype=int)
+    # A record (or block) ending on a rise: its last day is the highest seen so far.
+    tail_from = peaks[-1] + 1 if peaks.size else 0
+    if tail_from < n - 1:
+        tail = x[tail_from:]
+        low = tail_from + int(np.argmin(tail))
+        if x[n - 1] >= tail.max() and x[n - 1] - x[low] >= threshold and low < n - 1:
+            peaks = np.r_[peaks, n - 1]
+    if peaks.size == 0:
         return np.empty(0, int), np.empty(0, int)
-    s = sign[nz]
-    change = np.flatnonzero(s[1:] != s[:-1])
-    ext = np.concatenate([[0], nz[change] + 1, [n - 1]])
-    troughs, peaks = [], []
-    low_i = ext[0]
-    high_i = -1
-    rising = False
-    for i in ext[1:]:
-        v = x[i]
-        if not rising:
-            if v < x[low_i]:
-                low_i = i
-            elif v - x[low_i] >= threshold:
-                rising = True
-                high_i = i
-        else:
-            if v > x[high_i]:
-                high_i = i
-            elif x[high_i] - v >= threshold:
-                troughs.append(low_i)
-                peaks.append(high_i)
-                rising = False
-                low_i = i
-    if rising:
-        troughs.append(low_i)
-        peaks.append(high_i)
-    return np.asarray(troughs, int), np.asarray(peaks, int)
+    # Trough of each peak: the lowest day between the previous peak (exclusive) and this one.
+    starts = np.r_[0, peaks[:-1] + 1]
+    segment = np.repeat(np.arange(peaks.size), peaks - starts + 1)
+    index = _ranges(starts, peaks + 1)
+    order = np.lexsort((-index, x[index], segment))
+    first_of_segment = np.r_[0, np.flatnonzero(np.diff(segment[order])) + 1]
+    troughs = index[order][first_of_segment]
+    keep = troughs < peaks
+    return troughs[keep], peaks[keep]
+
+
+def _ranges(starts, stops):
+    """Concatenated ``arange(start, stop)`` for each pair, without a Python loop."""
+    lengths = stops - starts
+    total = int(lengths.sum())
+    offsets = np.repeat(starts - np.r_[0, np.cumsum(lengths)[:-1]], lengths)
+    return np.arange(total) + offsets
 
 
 def _rise_hidden_in_gap(x, previous_end, b0, b1, troughs, threshold):
@@ -194,16 +195,16 @@ def find_rises(logq, lag_days, threshold) -> Rises:
     joins = np.zeros(rise.size, bool)
     joins[1:] = (rise[1:] - peak[:-1] < lag_days) & (block_start[1:] == block_start[:-1])
     group = np.cumsum(~joins) - 1
-    n_groups = int(group[-1]) + 1
     first = np.flatnonzero(~joins)
     last = np.r_[first[1:] - 1, rise.size - 1]
     merged_rise = rise[first]
-    # The event's peak is its highest day.
-    merged_peak = np.empty(n_groups, int)
-    for g, (a, b) in enumerate(zip(first, last)):
-        candidates = peak[a : b + 1]
-        merged_peak[g] = candidates[np.argmax(x[candidates])]
+    # The event's peak is its highest day (the first of equals).
     counts = (last - first + 1).astype(int)
+    heights = x[peak]
+    tallest = np.repeat(np.maximum.reduceat(heights, first), counts)
+    hits = np.flatnonzero(heights == tallest)
+    _, first_hit = np.unique(group[hits], return_index=True)
+    merged_peak = peak[hits[first_hit]]
     g_block_start = block_start[first]
     g_block_end = block_end[first]
     next_rise = np.r_[merged_rise[1:], -1]
