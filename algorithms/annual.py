@@ -70,6 +70,32 @@ PERIOD_COLUMNS = [
 SEASONS = ("Dec-Feb", "Mar-May", "Jun-Aug", "Sep-Nov")
 
 
+def _days(dates):
+    """Dates as numpy day numbers (datetime64[D]), from anything pandas reads as dates."""
+    return np.asarray(pd.DatetimeIndex(dates).values, dtype="datetime64[D]")
+
+
+def _check_month(start_month):
+    if not 1 <= int(start_month) <= 12:
+        raise ValueError(f"water year start month was {start_month!r}; expected 1 to 12")
+    return int(start_month)
+
+
+def _water_year_of_days(days, start_month):
+    months = days.astype("datetime64[M]").astype(np.int64)  # months since 1970-01
+    year = months // 12 + 1970
+    month = months % 12 + 1
+    return year + ((month >= start_month) & (start_month > 1))
+
+
+def _first_day_of_water_year(years, start_month):
+    """First day (datetime64[D]) of each water year."""
+    months = (np.asarray(years, dtype=np.int64) - (1 if start_month > 1 else 0) - 1970) * 12 + (
+        start_month - 1
+    )
+    return (np.datetime64("1970-01", "M") + months).astype("datetime64[D]")
+
+
 def water_year(dates, start_month=10):
     """Water year of each date, named by the calendar year in which it ends.
 
@@ -81,40 +107,43 @@ def water_year(dates, start_month=10):
     >>> list(water_year(pd.to_datetime(["2023-09-30", "2023-10-01"]), 10))
     [2023, 2024]
     """
-    if not 1 <= int(start_month) <= 12:
-        raise ValueError(f"water year start month was {start_month!r}; expected 1 to 12")
-    d = pd.DatetimeIndex(dates)
-    shift = (d.month >= int(start_month)) & (int(start_month) > 1)
-    return np.asarray(d.year + shift.astype(int), dtype=int)
+    start_month = _check_month(start_month)
+    return np.asarray(_water_year_of_days(_days(dates), start_month), dtype=int)
 
 
 def water_year_bounds(year, start_month=10):
     """First and last day of a water year."""
-    start_month = int(start_month)
-    first = pd.Timestamp(year=int(year) - (1 if start_month > 1 else 0), month=start_month, day=1)
-    last = first + pd.DateOffset(years=1) - pd.Timedelta(days=1)
-    return first, last
+    start_month = _check_month(start_month)
+    first = _first_day_of_water_year([year], start_month)[0]
+    last = _first_day_of_water_year([int(year) + 1], start_month)[0] - np.timedelta64(1, "D")
+    return pd.Timestamp(first), pd.Timestamp(last)
 
 
 def _mm(volume_m3, area_km2):
     if area_km2 is None or not np.isfinite(area_km2) or area_km2 <= 0:
-        return np.nan
-    return volume_m3 / (area_km2 * 1e3)
+        return np.full(np.shape(volume_m3), np.nan) if np.ndim(volume_m3) else np.nan
+    return np.asarray(volume_m3, dtype=float) / (area_km2 * 1e3)
 
 
-def _event_sums(events, labels, label_of_event, column="recharge_m3"):
-    """Sum of measured event volumes and counts of events and skipped events per label."""
+def _event_sums(events, slot_of_event, n_slots):
+    """Per slot: the sum of measured event volumes, the events, and the skipped events."""
     if events is None or not len(events):
-        zeros = pd.Series(0.0, index=labels)
+        zeros = np.zeros(n_slots)
         return zeros, zeros.astype(int), zeros.astype(int)
     used = events["used"].to_numpy(bool)
-    volume = np.where(used, events[column].to_numpy(float), 0.0)
-    frame = pd.DataFrame({"label": label_of_event, "volume": volume, "skipped": ~used})
-    grouped = frame.groupby("label")
-    sums = grouped["volume"].sum().reindex(labels, fill_value=0.0)
-    counts = grouped.size().reindex(labels, fill_value=0).astype(int)
-    skipped = grouped["skipped"].sum().reindex(labels, fill_value=0).astype(int)
+    volume = np.where(used, events["recharge_m3"].to_numpy(float), 0.0)
+    inside = (slot_of_event >= 0) & (slot_of_event < n_slots)
+    slot = slot_of_event[inside]
+    sums = np.bincount(slot, weights=volume[inside], minlength=n_slots)
+    counts = np.bincount(slot, minlength=n_slots)
+    skipped = np.bincount(slot, weights=(~used[inside]).astype(float), minlength=n_slots).astype(
+        int
+    )
     return sums, counts, skipped
+
+
+def _per_slot(slot, values, n_slots):
+    return np.bincount(slot, weights=values, minlength=n_slots)
 
 
 def annual_recharge(
@@ -155,64 +184,48 @@ def annual_recharge(
         most ``max_missing_share`` of its days lack a value, and no event in it was skipped.
         Terms that could not be computed are NaN.
     """
+    start_month = _check_month(start_month)
     if flow.empty:
         return empty_table(ANNUAL_COLUMNS)
-    years_of_days = water_year(flow.index, start_month)
-    years = np.arange(years_of_days.min(), years_of_days.max() + 1)
+    days = _days(flow.index)
+    year_of_day = _water_year_of_days(days, start_month)
+    first_year = int(year_of_day[0])
+    years = np.arange(first_year, int(year_of_day[-1]) + 1)
+    n = years.size
+    slot = (year_of_day - first_year).astype(np.intp)
     q = flow.to_numpy(dtype=float)
-    present = (
-        pd.Series(np.isfinite(q))
-        .groupby(years_of_days)
-        .agg(["size", "sum"])
-        .reindex(years, fill_value=0)
-    )
+    has_value = np.isfinite(q)
     seconds = 86400.0
-    flow_m3 = (
-        pd.Series(np.where(np.isfinite(q), q, 0.0) * seconds)
-        .groupby(years_of_days)
-        .sum()
-        .reindex(years, fill_value=0.0)
+    in_record = np.bincount(slot, minlength=n)
+    with_value = np.bincount(slot, weights=has_value.astype(float), minlength=n)
+    flow_m3 = _per_slot(slot, np.where(has_value, q, 0.0) * seconds, n)
+
+    def event_slots(table):
+        if table is None or not len(table):
+            return np.empty(0, np.intp)
+        return (_water_year_of_days(_days(table["peak_date"]), start_month) - first_year).astype(
+            np.intp
+        )
+
+    recharge, n_events, skipped = _event_sums(events, event_slots(events), n)
+    low = (
+        _event_sums(events_low, event_slots(events_low), n)[0]
+        if events_low is not None and len(events_low)
+        else None
+    )
+    high = (
+        _event_sums(events_high, event_slots(events_high), n)[0]
+        if events_high is not None and len(events_high)
+        else None
     )
 
-    ev_label = water_year(events["peak_date"], start_month) if len(events) else np.empty(0, int)
-    recharge, n_events, skipped = _event_sums(events, years, ev_label)
-    low = high = None
-    if events_low is not None and len(events_low):
-        low = _event_sums(events_low, years, water_year(events_low["peak_date"], start_month))[0]
-    if events_high is not None and len(events_high):
-        high = _event_sums(events_high, years, water_year(events_high["peak_date"], start_month))[0]
+    bounds = _first_day_of_water_year(np.r_[years, years[-1] + 1], start_month)
+    lengths = np.diff(bounds).astype(int)
+    missing = lengths - with_value.astype(int)
+    complete = (in_record == lengths) & (missing <= max_missing_share * lengths) & (skipped == 0)
 
-    lengths = np.array(
-        [
-            (water_year_bounds(y, start_month)[1] - water_year_bounds(y, start_month)[0]).days + 1
-            for y in years
-        ]
-    )
-    in_record = present["size"].to_numpy()
-    with_value = present["sum"].to_numpy()
-    missing = lengths - with_value
-    complete = (
-        (in_record == lengths)
-        & (missing <= max_missing_share * lengths)
-        & (skipped.to_numpy() == 0)
-    )
-
-    table = pd.DataFrame(
-        {
-            "water_year": years.astype(int),
-            "recharge_m3": recharge.to_numpy(),
-            "complete": complete.astype(bool),
-            "days": lengths.astype(int),
-            "days_missing": missing.astype(int),
-            "events": n_events.to_numpy(),
-            "events_skipped": skipped.to_numpy(),
-        }
-    )
-    table["recharge_mm"] = _mm(table["recharge_m3"], area_km2)
-    table["recharge_low_mm"] = _mm(low.to_numpy(), area_km2) if low is not None else np.nan
-    table["recharge_high_mm"] = _mm(high.to_numpy(), area_km2) if high is not None else np.nan
-    table["flow_mm"] = _mm(flow_m3.to_numpy(), area_km2)
-
+    nan = np.full(n, np.nan)
+    base_m3, bfi, storage = nan, nan, nan
     k = (
         recession_index_days
         if recession_index_days is not None and np.isfinite(recession_index_days)
@@ -220,53 +233,59 @@ def annual_recharge(
     )
     if baseflow is not None:
         b = np.asarray(baseflow, dtype=float)
-        both = np.isfinite(b) & np.isfinite(q)
-        base_m3 = (
-            pd.Series(np.where(both, b, 0.0) * seconds)
-            .groupby(years_of_days)
-            .sum()
-            .reindex(years, fill_value=0.0)
-        )
-        flow_both = (
-            pd.Series(np.where(both, q, 0.0) * seconds)
-            .groupby(years_of_days)
-            .sum()
-            .reindex(years, fill_value=0.0)
-        )
-        table["baseflow_m3"] = base_m3.to_numpy()
+        both = np.isfinite(b) & has_value
+        base_m3 = _per_slot(slot, np.where(both, b, 0.0) * seconds, n)
+        flow_both = _per_slot(slot, np.where(both, q, 0.0) * seconds, n)
         with np.errstate(invalid="ignore", divide="ignore"):
-            table["baseflow_index"] = np.where(flow_both > 0, base_m3 / flow_both, np.nan)
+            bfi = np.where(flow_both > 0, base_m3 / flow_both, np.nan)
         if k is not None:
-            table["storage_change_m3"] = _storage_change(flow.index, b, k, years, start_month)
-    for name in ("baseflow_m3", "baseflow_index", "storage_change_m3"):
-        if name not in table:
-            table[name] = np.nan
-    table["baseflow_mm"] = _mm(table["baseflow_m3"], area_km2)
-    table["storage_change_mm"] = _mm(table["storage_change_m3"], area_km2)
-    table["residual_mm"] = table["recharge_mm"] - table["baseflow_mm"] - table["storage_change_mm"]
-    if k is not None and baseflow is not None:
-        seasonal = _seasonal_recession(flow.index, baseflow, k, years, start_month)
-    else:
-        seasonal = np.full(years.size, np.nan)
-    table["seasonal_recharge_mm"] = _mm(seasonal, area_km2)
+            storage = _storage_change(days, b, k, bounds)
+    seasonal = (
+        _seasonal_recession(slot, baseflow, k, n) if k is not None and baseflow is not None else nan
+    )
+    recharge_mm = _mm(recharge, area_km2)
+    baseflow_mm = _mm(base_m3, area_km2)
+    storage_mm = _mm(storage, area_km2)
+    table = pd.DataFrame(
+        {
+            "water_year": years.astype(np.int64),
+            "recharge_mm": recharge_mm,
+            "recharge_m3": recharge,
+            "complete": complete.astype(bool),
+            "recharge_low_mm": _mm(low, area_km2) if low is not None else nan,
+            "recharge_high_mm": _mm(high, area_km2) if high is not None else nan,
+            "baseflow_mm": baseflow_mm,
+            "baseflow_m3": base_m3,
+            "storage_change_mm": storage_mm,
+            "storage_change_m3": storage,
+            "residual_mm": recharge_mm - baseflow_mm - storage_mm,
+            "seasonal_recharge_mm": _mm(seasonal, area_km2),
+            "flow_mm": _mm(flow_m3, area_km2),
+            "baseflow_index": bfi,
+            "days": lengths.astype(np.int64),
+            "days_missing": missing.astype(np.int64),
+            "events": n_events.astype(np.int64),
+            "events_skipped": skipped.astype(np.int64),
+        }
+    )
     return table[ANNUAL_COLUMNS]
 
 
-def _storage_change(index, baseflow, k, years, start_month):
+def _storage_change(days, baseflow, k, bounds):
     """V at each water year's last day minus V at its first day (NaN if either is unknown)."""
-    out = np.full(years.size, np.nan)
-    position = pd.Series(np.arange(index.size), index=index)
-    for i, year in enumerate(years):
-        first, last = water_year_bounds(year, start_month)
-        if first in position.index and last in position.index:
-            b0, b1 = baseflow[position[first]], baseflow[position[last]]
-            out[i] = potential_groundwater_discharge_m3(b1, k) - potential_groundwater_discharge_m3(
-                b0, k
-            )
+    first = (bounds[:-1] - days[0]).astype(np.int64)
+    last = (bounds[1:] - days[0]).astype(np.int64) - 1
+    inside = (first >= 0) & (last < days.size)
+    out = np.full(first.size, np.nan)
+    b0 = baseflow[first[inside]]
+    b1 = baseflow[last[inside]]
+    out[inside] = potential_groundwater_discharge_m3(b1, k) - potential_groundwater_discharge_m3(
+        b0, k
+    )
     return out
 
 
-def _seasonal_recession(index, baseflow, k, years, start_month):
+def _seasonal_recession(slot, baseflow, k, n_years):
     """Recharge by the seasonal recession method (Meyboom 1961), m³ per water year.
 
     Each water year's seasonal recession ends on its day of lowest baseflow. The next seasonal
@@ -274,23 +293,25 @@ def _seasonal_recession(index, baseflow, k, years, start_month):
     day. Recharge of year y = V at that start minus V at the end of year y − 1's recession, with
     V = Q K / ln 10 (total potential groundwater discharge).
     """
-    out = np.full(years.size, np.nan)
+    out = np.full(n_years, np.nan)
     b = np.asarray(baseflow, dtype=float)
-    wy = water_year(index, start_month)
-    lowest = {}
-    for year in years:
-        here = np.flatnonzero((wy == year) & np.isfinite(b))
-        if here.size:
-            lowest[year] = here[np.argmin(b[here])]
-    for i, year in enumerate(years):
-        if year in lowest and year - 1 in lowest:
-            t0, t1 = lowest[year - 1], lowest[year]
-            between = b[t0 : t1 + 1]
-            if t1 > t0 and np.isfinite(between).any():
-                top = np.nanmax(between)
-                out[i] = potential_groundwater_discharge_m3(
-                    top, k
-                ) - potential_groundwater_discharge_m3(b[t0], k)
+    valid = np.isfinite(b)
+    if not valid.any():
+        return out
+    # Lowest day of each year: sort the valid days by (year, baseflow) and take each year's first.
+    days = np.flatnonzero(valid)
+    order = np.lexsort((b[days], slot[days]))
+    sorted_slots = slot[days][order]
+    starts = np.r_[0, np.flatnonzero(np.diff(sorted_slots)) + 1]
+    lowest = np.full(n_years, -1)
+    lowest[sorted_slots[starts]] = days[order][starts]
+    for year in range(1, n_years):
+        t0, t1 = lowest[year - 1], lowest[year]
+        if t0 >= 0 and t1 > t0:
+            top = np.nanmax(b[t0 : t1 + 1])
+            out[year] = potential_groundwater_discharge_m3(
+                top, k
+            ) - potential_groundwater_discharge_m3(b[t0], k)
     return out
 
 
@@ -310,57 +331,59 @@ def period_recharge(
         ``water_year, period, first_date, last_date, recharge_mm, recharge_m3, complete,
         days_missing, events, events_skipped``.
     """
-    columns = PERIOD_COLUMNS
     if kind not in ("month", "season"):
         raise ValueError(f"period kind was {kind!r}; expected 'month' or 'season'")
+    start_month = _check_month(start_month)
     if flow.empty:
-        return empty_table(columns)
-    freq = "M" if kind == "month" else "Q-NOV"
-    day_period = flow.index.to_period(freq)
-    periods = pd.period_range(day_period.min(), day_period.max(), freq=freq)
+        return empty_table(PERIOD_COLUMNS)
+    width = 1 if kind == "month" else 3
+
+    def period_of(days):
+        months = days.astype("datetime64[M]").astype(np.int64)
+        return months if width == 1 else (months + 1) // 3  # seasons start in December
+
+    days = _days(flow.index)
+    index = period_of(days)
+    first_period = int(index[0])
+    periods = np.arange(first_period, int(index[-1]) + 1)
+    n = periods.size
+    slot = (index - first_period).astype(np.intp)
     q = flow.to_numpy(dtype=float)
-    # Group on the periods' integer ordinals: boxing Period objects is slow.
-    ordinals = periods.asi8
-    present = (
-        pd.Series(np.isfinite(q))
-        .groupby(day_period.asi8)
-        .agg(["size", "sum"])
-        .reindex(ordinals, fill_value=0)
-    )
-    ev_period = (
-        pd.DatetimeIndex(events["peak_date"]).to_period(freq).asi8
+    in_record = np.bincount(slot, minlength=n)
+    with_value = np.bincount(slot, weights=np.isfinite(q).astype(float), minlength=n)
+    ev_slots = (
+        (period_of(_days(events["peak_date"])) - first_period).astype(np.intp)
         if len(events)
-        else np.empty(0, dtype=np.int64)
+        else np.empty(0, np.intp)
     )
-    recharge, n_events, skipped = _event_sums(events, ordinals, ev_period)
-    first = periods.start_time.normalize()
-    last = periods.end_time.normalize()
-    lengths = (last - first).days + 1
-    missing = lengths - present["sum"].to_numpy()
-    complete = (
-        (present["size"].to_numpy() == lengths)
-        & (missing <= max_missing_share * lengths)
-        & (skipped.to_numpy() == 0)
+    recharge, n_events, skipped = _event_sums(events, ev_slots, n)
+    first_month = periods * width - (0 if width == 1 else 1)
+    bounds = (np.datetime64("1970-01", "M") + np.r_[first_month, first_month[-1] + width]).astype(
+        "datetime64[D]"
     )
-    if kind == "month":
-        labels = [p.strftime("%Y-%m") for p in periods]
+    lengths = np.diff(bounds).astype(int)
+    missing = lengths - with_value.astype(int)
+    complete = (in_record == lengths) & (missing <= max_missing_share * lengths) & (skipped == 0)
+    first_dates = bounds[:-1]
+    if width == 1:
+        labels = np.datetime_as_string(first_dates.astype("datetime64[M]"))
     else:
-        labels = [SEASONS[(p.start_time.month % 12) // 3] for p in periods]
+        labels = np.array(SEASONS)[periods % 4]
     table = pd.DataFrame(
         {
-            "water_year": water_year(first, start_month),
-            "period": labels,
-            "first_date": first,
-            "last_date": last,
-            "recharge_m3": recharge.to_numpy(),
+            "water_year": _water_year_of_days(first_dates, start_month).astype(np.int64),
+            "period": labels.astype(object),
+            "first_date": first_dates.astype("datetime64[ns]"),
+            "last_date": (bounds[1:] - np.timedelta64(1, "D")).astype("datetime64[ns]"),
+            "recharge_mm": _mm(recharge, area_km2),
+            "recharge_m3": recharge,
             "complete": complete.astype(bool),
-            "days_missing": missing.astype(int),
-            "events": n_events.to_numpy(),
-            "events_skipped": skipped.to_numpy(),
+            "days_missing": missing.astype(np.int64),
+            "events": n_events.astype(np.int64),
+            "events_skipped": skipped.astype(np.int64),
         }
     )
-    table["recharge_mm"] = _mm(table["recharge_m3"], area_km2)
-    return table[columns]
+    return table[PERIOD_COLUMNS]
 
 
 def mean_annual(annual: pd.DataFrame, column="recharge_mm"):
