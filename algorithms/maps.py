@@ -215,14 +215,19 @@ def within_class_squares(values, breaks):
 # --------------------------------------------------------------------------- drawing helpers
 
 
-def _palette(n):
+def class_colours(n):
+    """``n`` class colours as ``#rrggbb`` text, light (little recharge) to dark (much).
+
+    The PNG maps and the QGIS style both use these, so the two look alike.
+    """
     if n <= len(CLASS_COLOURS):
         idx = np.round(np.linspace(0, len(CLASS_COLOURS) - 1, n)).astype(int)
         return [CLASS_COLOURS[i] for i in idx]
     from matplotlib import colormaps
+    from matplotlib.colors import to_hex
 
     cmap = colormaps["Blues"]
-    return [cmap(x) for x in np.linspace(0.2, 1.0, n)]
+    return [to_hex(cmap(x)) for x in np.linspace(0.2, 1.0, n)]
 
 
 def _digits(breaks):
@@ -262,7 +267,7 @@ def legend_title(field, units):
 
 def _colours(values, breaks):
     idx = class_index(values, breaks)
-    palette = _palette(max(np.asarray(breaks).size - 1, 1))
+    palette = class_colours(max(np.asarray(breaks).size - 1, 1))
     return [palette[i] if i >= 0 else NO_ESTIMATE_COLOUR for i in idx], palette
 
 
@@ -527,7 +532,7 @@ def year_maps(
         wspace=0.04,
         hspace=0.3 / panel_h,
     )
-    palette = _palette(max(breaks.size - 1, 1))
+    palette = class_colours(max(breaks.size - 1, 1))
     any_missing = any_incomplete = False
     for number, year in enumerate(years):
         ax = figure.add_subplot(nrows, ncols, number + 1)

@@ -1022,7 +1022,13 @@ def run_atlas_subbasins(
         ``subbasins`` the input subbasins with the incremental recharge depth of the nearest
         gauge downstream (or a donor's, as ``estimate_source`` says).
     """
-    from .subbasins import gauge_basins, locate_gauges, read_network, subbasin_estimates
+    from .subbasins import (
+        SUBBASIN_FIELDS,
+        gauge_basins,
+        locate_gauges,
+        read_network,
+        subbasin_estimates,
+    )
 
     settings = (settings or Settings()).resolved()
     reporter = reporter or Reporter()
@@ -1056,8 +1062,24 @@ def run_atlas_subbasins(
         for gid in located
     }
     estimates = subbasin_estimates(network, clean, located, depth, settings.ungauged)
+    # quality: the repair of the subbasin's own polygon, and any flag on the gauge it takes its
+    # depth from (directly or as a donor).
+    notes = []
+    for row, gid in enumerate(estimates["downstream_gauge"]):
+        source = estimates["estimate_source"].iloc[row]
+        donor = (
+            source.split("donor: gauge ", 1)[1].split(" ", 1)[0]
+            if source.startswith("donor: gauge ")
+            else None
+        )
+        lender = gid if isinstance(gid, str) else donor
+        parts = [repairs[row]] if row in repairs else []
+        if lender is not None and result.gauges[lender].quality:
+            parts.append(f"gauge {lender}: {result.gauges[lender].quality_text}")
+        notes.append("; ".join(parts) if parts else "ok")
+    estimates["quality"] = notes
     layer = clean.copy()
-    for name in estimates.columns:
+    for name in SUBBASIN_FIELDS:
         layer[name] = estimates[name].to_numpy()
     geometry_name = layer.geometry.name
     layer = layer[[c for c in layer.columns if c != geometry_name] + [geometry_name]]

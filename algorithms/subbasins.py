@@ -17,6 +17,16 @@ import pandas as pd
 from .discharge import gauge_id_text, require_columns
 from .errors import InputError
 
+#: Fields added to the subbasins layer, in order.
+SUBBASIN_FIELDS = (
+    "downstream_gauge",
+    "recharge_mm_per_year",
+    "recharge_m3_per_year",
+    "estimate_source",
+    "area_km2",
+    "quality",
+)
+
 #: What to do with a subbasin that has no gauge downstream.
 UNGAUGED_CHOICES = ("donor", "empty")
 

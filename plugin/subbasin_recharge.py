@@ -26,6 +26,7 @@ SUBBASIN_FIELDS = (
     "recharge_m3_per_year",
     "estimate_source",
     "area_km2",
+    "quality",
 )
 
 
