@@ -64,6 +64,9 @@ class RechargeAtlasAlgorithm(QgsProcessingAlgorithm):
         return source
 
     def field_name(self, parameters, name, context) -> str:
-        """The single field chosen in field parameter ``name`` ("" when none)."""
+        """The single field chosen in field parameter ``name`` ("" when none, or when this
+        algorithm has no such parameter)."""
+        if self.parameterDefinition(name) is None:
+            return ""
         fields = self.parameterAsFields(parameters, name, context)
         return fields[0] if fields else ""

@@ -2,7 +2,8 @@
 
 A thin shell over :func:`recharge_atlas.algorithms.pipeline.run_atlas`, the pipeline the
 command line uses too, so both give the same numbers. The parameters, tables and report it
-shares with ``subbasinrecharge`` live in :mod:`recharge_run`.
+shares with ``subbasinrecharge`` live in :mod:`recharge_run`; the catchment parameters and the
+linking it shares with ``linkcheck`` and ``rechargereport`` in :class:`CatchmentAlgorithm`.
 """
 
 from __future__ import annotations
@@ -14,36 +15,19 @@ from qgis.core import (
     QgsProcessingParameterField,
 )
 
-from . import compat
+from . import compat, styling
 from .recharge_run import RechargeRunAlgorithm
 
 
-class CatchmentRecharge(RechargeRunAlgorithm):
-    """Mean annual, annual and event recharge by recession-curve displacement (Rorabaugh 1964)."""
+class CatchmentAlgorithm(RechargeRunAlgorithm):
+    """Base of the algorithms whose basins are catchment polygons, one per gauge (nested ones
+    overlap): the CATCHMENTS parameters and how gauges find their catchments."""
 
     CATCHMENTS = "CATCHMENTS"
     CATCHMENT_GAUGE_FIELD = "CATCHMENT_GAUGE_FIELD"
+    INCREMENTAL_AREAS = "INCREMENTAL_AREAS"
 
-    def name(self):
-        return "catchmentrecharge"
-
-    def displayName(self):  # noqa: N802 (QGIS API name)
-        return self.tr("Catchment recharge")
-
-    def shortDescription(self):  # noqa: N802
-        return self.tr(
-            "Groundwater recharge for each gauged catchment from daily streamflow, by "
-            "recession-curve displacement; adds mean annual recharge to the catchment polygons."
-        )
-
-    def tags(self):
-        return self.tr(
-            "groundwater,recharge,streamflow,discharge,recession index,critical time,"
-            "water year,baseflow,hydrology,catchment,nested basins"
-        ).split(",")
-
-    def initAlgorithm(self, config=None):  # noqa: N802
-        self._init_gauge_parameters()
+    def _init_catchment_parameters(self):
         self.addParameter(
             QgsProcessingParameterFeatureSource(
                 self.CATCHMENTS,
@@ -60,16 +44,6 @@ class CatchmentRecharge(RechargeRunAlgorithm):
                 optional=True,
             )
         )
-        self._init_unit_parameters()
-        self._init_method_parameters(link=True)
-        self.addParameter(
-            QgsProcessingParameterFeatureSink(
-                self.OUTPUT, self.tr("Catchment recharge"), compat.SOURCE_POLYGON
-            )
-        )
-        self._init_table_outputs()
-
-    # ---------------------------------------------------------------- basins
 
     def _basin_sources(self, parameters, context):
         return {"catchments": self.source(parameters, self.CATCHMENTS, context)}
@@ -119,19 +93,75 @@ class CatchmentRecharge(RechargeRunAlgorithm):
 
     def _write_basins(self, parameters, context, sources, tables, result, outputs):
         """The catchments as they came in (fields and geometries), with the core's fields
-        added and the polygons the core repaired written repaired."""
+        added and the polygons the core repaired written repaired; and, when asked for, the
+        incremental areas between nested gauges."""
         from ..algorithms.pipeline import CATCHMENT_FIELDS
 
         table = tables["catchments"]
         if len(result.catchments) != len(table.rows):
             raise QgsProcessingException("the pipeline returned a different number of catchments")
+        crs = sources["catchments"].sourceCrs()
         kept = [c for c in result.catchments.columns if c not in CATCHMENT_FIELDS]
         outputs[self.OUTPUT] = self._write_polygons(
             parameters,
             self.OUTPUT,
             context,
             result.catchments,
-            sources["catchments"].sourceCrs(),
+            crs,
             keep=table,
             keep_names=kept,
         )
+        if self._requested(parameters, self.INCREMENTAL_AREAS, context):
+            dest = self._write_polygons(
+                parameters, self.INCREMENTAL_AREAS, context, result.incremental_areas(), crs
+            )
+            if dest is not None:
+                outputs[self.INCREMENTAL_AREAS] = dest
+
+
+class CatchmentRecharge(CatchmentAlgorithm):
+    """Mean annual, annual and event recharge by recession-curve displacement (Rorabaugh 1964)."""
+
+    _STYLED_OUTPUTS = {
+        RechargeRunAlgorithm.OUTPUT: (styling.RECHARGE_FIELD,),
+        CatchmentAlgorithm.INCREMENTAL_AREAS: ("incremental_recharge_mm_per_year",),
+    }
+
+    def name(self):
+        return "catchmentrecharge"
+
+    def displayName(self):  # noqa: N802 (QGIS API name)
+        return self.tr("Catchment recharge")
+
+    def shortDescription(self):  # noqa: N802
+        return self.tr(
+            "Groundwater recharge for each gauged catchment from daily streamflow, by "
+            "recession-curve displacement; adds mean annual recharge to the catchment polygons."
+        )
+
+    def tags(self):
+        return self.tr(
+            "groundwater,recharge,streamflow,discharge,recession index,critical time,"
+            "water year,baseflow,hydrology,catchment,nested basins"
+        ).split(",")
+
+    def initAlgorithm(self, config=None):  # noqa: N802
+        self._init_gauge_parameters()
+        self._init_catchment_parameters()
+        self._init_unit_parameters()
+        self._init_method_parameters(link=True)
+        self.addParameter(
+            QgsProcessingParameterFeatureSink(
+                self.OUTPUT, self.tr("Catchment recharge"), compat.SOURCE_POLYGON
+            )
+        )
+        self.addParameter(
+            QgsProcessingParameterFeatureSink(
+                self.INCREMENTAL_AREAS,
+                self.tr("Recharge of the areas between nested gauges"),
+                compat.SOURCE_POLYGON,
+                optional=True,
+                createByDefault=False,
+            )
+        )
+        self._init_table_outputs()

@@ -202,6 +202,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
     LINK_TOLERANCE = "LINK_TOLERANCE"
     OVERLAP_TOLERANCE = "OVERLAP_TOLERANCE"
     REPORTED_AREA_FIELD = "REPORTED_AREA_FIELD"
+    AREA_FIELD = "AREA_FIELD"
     CLASSES = "CLASSES"
     CLASS_COUNT = "CLASS_COUNT"
     UNGAUGED = "UNGAUGED"
@@ -242,6 +243,11 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
 
     def _init_gauge_parameters(self):
         """GAUGES and its id field, the discharge table and its three fields."""
+        self._init_gauge_layer_parameters()
+        self._init_discharge_parameters()
+
+    def _init_gauge_layer_parameters(self):
+        """GAUGES (points) and its id field."""
         self.addParameter(
             QgsProcessingParameterFeatureSource(
                 self.GAUGES, self.tr("Stream gauges"), [compat.SOURCE_POINT]
@@ -257,6 +263,9 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
                 optional=True,
             )
         )
+
+    def _init_discharge_parameters(self):
+        """DISCHARGE (any table QGIS reads) and its gauge id, date and value fields."""
         self.addParameter(
             QgsProcessingParameterFeatureSource(
                 self.DISCHARGE,
@@ -284,8 +293,20 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
                 )
             )
 
-    def _init_unit_parameters(self):
-        """UNITS and WATER_YEAR_START."""
+    def _init_area_parameter(self):
+        """AREA_FIELD: the gauges' drainage areas (km²), for the algorithms without basins."""
+        self.addParameter(
+            QgsProcessingParameterField(
+                self.AREA_FIELD,
+                self.tr("Drainage area field in the gauges (km²; empty: no depths)"),
+                parentLayerParameterName=self.GAUGES,
+                type=compat.FIELD_NUMERIC,
+                optional=True,
+            )
+        )
+
+    def _init_unit_parameters(self, water_year=True):
+        """UNITS and (when ``water_year``) WATER_YEAR_START."""
         labels, _aliases = unit_labels()
         self.addParameter(
             QgsProcessingParameterEnum(
@@ -296,6 +317,8 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
                 usesStaticStrings=True,
             )
         )
+        if not water_year:
+            return
         self.addParameter(
             QgsProcessingParameterNumber(
                 self.WATER_YEAR_START,
@@ -307,132 +330,165 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             )
         )
 
-    def _choice_parameter(self, name, label, default_id, advanced=False):
+    def _choice_definition(self, name, label, default_id):
         """An enum of static strings for a choice of :data:`_CHOICES`."""
         choices = self._CHOICES[name]
-        labels = list(choices.values())
-        parameter = QgsProcessingParameterEnum(
-            name, label, options=labels, defaultValue=choices[default_id], usesStaticStrings=True
+        return QgsProcessingParameterEnum(
+            name,
+            label,
+            options=list(choices.values()),
+            defaultValue=choices[default_id],
+            usesStaticStrings=True,
         )
+
+    def _choice_parameter(self, name, label, default_id, advanced=False):
+        """Add an enum of static strings for a choice of :data:`_CHOICES`."""
+        parameter = self._choice_definition(name, label, default_id)
         if advanced:
             return self.add_advanced(parameter)
         return self.addParameter(parameter)
 
-    def _init_method_parameters(self, link=True):
-        """The advanced parameters: recession index, record quality, baseflow, periods, then
-        the basins (LINK only when ``link``) and the map classes."""
-        self.add_advanced(
-            QgsProcessingParameterNumber(
-                self.RECESSION_INDEX,
+    #: The method parameters in the order the dialog shows them (see :meth:`_method_parameter`).
+    METHOD_PARAMETERS = (
+        RECESSION_INDEX,
+        RECESSION_INDEX_FIELD,
+        RUNOFF_END_LAG,
+        MIN_SEGMENT_DAYS,
+        FLAG_FIELD,
+        FLAG_VALUES,
+        BASEFLOW_METHOD,
+        BFI_MAX,
+        PERIOD,
+        LINK,
+        LINK_TOLERANCE,
+        OVERLAP_TOLERANCE,
+        REPORTED_AREA_FIELD,
+        CLASSES,
+        CLASS_COUNT,
+    )
+
+    def _init_method_parameters(self, link=True, names=None, basic=()):
+        """The method parameters ``names`` (all of :data:`METHOD_PARAMETERS` by default, LINK
+        only when ``link``), in that order: advanced, except those in ``basic``."""
+        for name in names if names is not None else self.METHOD_PARAMETERS:
+            if name == self.LINK and not link:
+                continue
+            parameter = self._method_parameter(name)
+            if name in basic:
+                self.addParameter(parameter)
+            else:
+                self.add_advanced(parameter)
+
+    def _method_parameter(self, name):
+        """The definition of method parameter ``name`` (one of :data:`METHOD_PARAMETERS`)."""
+        number = QgsProcessingParameterNumber
+        if name == self.RECESSION_INDEX:
+            return number(
+                name,
                 self.tr("Recession index K for all gauges (days; empty: estimate)"),
                 type=compat.NUMBER_DOUBLE,
                 optional=True,
                 minValue=0.0,
             )
-        )
-        self.add_advanced(
-            QgsProcessingParameterField(
-                self.RECESSION_INDEX_FIELD,
+        if name == self.RECESSION_INDEX_FIELD:
+            return QgsProcessingParameterField(
+                name,
                 self.tr("Recession index field in the gauges (days; empty values: estimate)"),
                 parentLayerParameterName=self.GAUGES,
                 type=compat.FIELD_NUMERIC,
                 optional=True,
             )
-        )
-        self.add_advanced(
-            QgsProcessingParameterNumber(
-                self.RUNOFF_END_LAG,
+        if name == self.RUNOFF_END_LAG:
+            return number(
+                name,
                 self.tr("Runoff-end lag N (days; empty: from drainage area)"),
                 type=compat.NUMBER_DOUBLE,
                 optional=True,
                 minValue=0.0,
             )
-        )
-        self.add_advanced(
-            QgsProcessingParameterNumber(
-                self.MIN_SEGMENT_DAYS,
+        if name == self.MIN_SEGMENT_DAYS:
+            return number(
+                name,
                 self.tr("Minimum recession segment length (days)"),
                 type=compat.NUMBER_INTEGER,
                 defaultValue=_MIN_SEGMENT_DAYS,
                 minValue=2,
             )
-        )
-        self.add_advanced(
-            QgsProcessingParameterField(
-                self.FLAG_FIELD,
+        if name == self.FLAG_FIELD:
+            return QgsProcessingParameterField(
+                name,
                 self.tr("Quality-code field in the discharge table"),
                 parentLayerParameterName=self.DISCHARGE,
                 type=compat.FIELD_ANY,
                 optional=True,
             )
-        )
-        self.add_advanced(
-            QgsProcessingParameterString(
-                self.FLAG_VALUES,
+        if name == self.FLAG_VALUES:
+            return QgsProcessingParameterString(
+                name,
                 self.tr("Codes that mark a value unusable (comma-separated; empty: any code)"),
                 optional=True,
             )
-        )
-        self._choice_parameter(
-            self.BASEFLOW_METHOD, self.tr("Baseflow separation method"), "eckhardt", True
-        )
-        self.add_advanced(
-            QgsProcessingParameterNumber(
-                self.BFI_MAX,
+        if name == self.BFI_MAX:
+            return number(
+                name,
                 self.tr("BFImax of the Eckhardt filter"),
                 type=compat.NUMBER_DOUBLE,
                 defaultValue=_BFI_MAX,
                 minValue=0.0,
                 maxValue=1.0,
             )
-        )
-        self._choice_parameter(self.PERIOD, self.tr("Recharge within the year by"), "month", True)
-        if link:
-            self._choice_parameter(self.LINK, self.tr("Link gauges to catchments"), "auto", True)
-        self.add_advanced(
-            QgsProcessingParameterNumber(
-                self.LINK_TOLERANCE,
+        if name == self.LINK_TOLERANCE:
+            return number(
+                name,
                 self.tr("Greatest distance from a gauge to its basin's boundary (m)"),
                 type=compat.NUMBER_DOUBLE,
                 defaultValue=_LINK_TOLERANCE_M,
                 minValue=0.0,
             )
-        )
-        self.add_advanced(
-            QgsProcessingParameterNumber(
-                self.OVERLAP_TOLERANCE,
+        if name == self.OVERLAP_TOLERANCE:
+            return number(
+                name,
                 self.tr("Nested basins: share of a basin that may lie outside the one around it"),
                 type=compat.NUMBER_DOUBLE,
                 defaultValue=_OVERLAP_TOLERANCE,
                 minValue=0.0,
                 maxValue=0.5,
             )
-        )
-        self.add_advanced(
-            QgsProcessingParameterField(
-                self.REPORTED_AREA_FIELD,
+        if name == self.REPORTED_AREA_FIELD:
+            return QgsProcessingParameterField(
+                name,
                 self.tr("Reported drainage area field in the gauges (km²)"),
                 parentLayerParameterName=self.GAUGES,
                 type=compat.FIELD_NUMERIC,
                 optional=True,
             )
-        )
-        self._choice_parameter(self.CLASSES, self.tr("Map classes"), "quantiles", True)
-        self.add_advanced(
-            QgsProcessingParameterNumber(
-                self.CLASS_COUNT,
+        if name == self.CLASS_COUNT:
+            return number(
+                name,
                 self.tr("Number of map classes"),
                 type=compat.NUMBER_INTEGER,
                 defaultValue=_CLASS_COUNT,
                 minValue=1,
                 maxValue=_MAX_CLASSES,
             )
-        )
+        choices = {
+            self.BASEFLOW_METHOD: (self.tr("Baseflow separation method"), "eckhardt"),
+            self.PERIOD: (self.tr("Recharge within the year by"), "month"),
+            self.LINK: (self.tr("Link gauges to catchments"), "auto"),
+            self.CLASSES: (self.tr("Map classes"), "quantiles"),
+        }
+        label, default_id = choices[name]
+        return self._choice_definition(name, label, default_id)
 
-    def _table_sink(self, name, label, by_default):
+    def _table_sink(self, name, label, by_default, optional=True):
+        """A table output (no geometry) that a model can feed to the next step."""
         self.addParameter(
             QgsProcessingParameterFeatureSink(
-                name, label, compat.SOURCE_VECTOR, optional=True, createByDefault=by_default
+                name,
+                label,
+                compat.SOURCE_VECTOR,
+                optional=optional,
+                createByDefault=by_default or not optional,
             )
         )
 
@@ -475,11 +531,11 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
         option's index (as older scripts pass it) as its text."""
         parameters = dict(parameters or {})
         for name in self._DEFAULT_FIELDS:
-            if parameters.get(name) in (None, ""):
+            if self._has(name) and parameters.get(name) in (None, ""):
                 parameters[name] = self.parameterDefinition(name).defaultValue()
         labels, aliases = unit_labels()
         value = _option_text(parameters.get(self.UNITS), labels)
-        if isinstance(value, str):
+        if isinstance(value, str) and self._has(self.UNITS):
             label = aliases.get(value.strip(), value.strip())
             if label in labels:
                 parameters[self.UNITS] = label
@@ -495,7 +551,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
 
     def checkParameterValues(self, parameters, context):  # noqa: N802
         parameters = self._completed(parameters)
-        value = parameters.get(self.UNITS)
+        value = parameters.get(self.UNITS) if self._has(self.UNITS) else None
         labels, aliases = unit_labels()
         if isinstance(value, str) and value.strip() not in labels:
             allowed = ", ".join(labels + sorted(aliases))
@@ -561,6 +617,8 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
                 Settings(**{attribute: values[attribute]}).resolved()
             except InputError as exc:
                 return f"{exc} ({name})"
+        if not self._has(self.CLASS_COUNT):
+            return None
         return self._class_count_problem(parameters, context)
 
     def _class_count_problem(self, parameters, context):
@@ -607,27 +665,24 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
         return value
 
     def _setting_values(self, parameters, context) -> dict:
-        """Settings of the method, by attribute name, read from the parameters."""
-        flags = self.parameterAsString(parameters, self.FLAG_VALUES, context).strip()
-        values = {
-            "water_year_start": self._number(parameters, self.WATER_YEAR_START, context),
-            "recession_index_days": self._number(parameters, self.RECESSION_INDEX, context),
-            "runoff_end_lag_days": self._number(parameters, self.RUNOFF_END_LAG, context),
-            "min_segment_days": self._number(parameters, self.MIN_SEGMENT_DAYS, context),
-            "baseflow_method": self._choice(parameters, self.BASEFLOW_METHOD, context),
-            "bfi_max": self._number(parameters, self.BFI_MAX, context),
-            "period": self._choice(parameters, self.PERIOD, context),
-            "flag_values": flags or None,
-            "link_tolerance_m": self._number(parameters, self.LINK_TOLERANCE, context),
-            "overlap_tolerance": self._number(parameters, self.OVERLAP_TOLERANCE, context),
-        }
-        if self._has(self.LINK):
-            values["link"] = self._choice(parameters, self.LINK, context)
-        if self._has(self.UNGAUGED):
-            values["ungauged"] = self._choice(parameters, self.UNGAUGED, context)
+        """Settings of the method, by attribute name, read from the parameters this algorithm
+        declares (the others keep the core's defaults)."""
+        values = {}
+        for name, attribute in self._SETTING_OF.items():
+            if not self._has(name):
+                continue
+            if name in self._CHOICES:
+                values[attribute] = self._choice(parameters, name, context)
+            else:
+                values[attribute] = self._number(parameters, name, context)
+        if self._has(self.FLAG_VALUES):
+            flags = self.parameterAsString(parameters, self.FLAG_VALUES, context).strip()
+            values["flag_values"] = flags or None
         return values
 
     def _units(self, parameters, context) -> str:
+        if not self._has(self.UNITS):
+            return "m3/s"
         value = parameters.get(self.UNITS)
         labels, _aliases = unit_labels()
         if isinstance(value, str) and value.strip() in labels:
@@ -677,8 +732,30 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
         """Write the basin layers of ``result`` into ``outputs``."""
         raise NotImplementedError
 
-    #: Basin outputs styled as a choropleth when loaded.
-    _STYLED_OUTPUTS = (OUTPUT,)
+    #: Outputs styled when they load into the project: output name -> the fields to classify,
+    #: the first with a number in it (none: larger polygons drawn first only); see
+    #: :func:`styling.style_post_processor`.
+    _STYLED_OUTPUTS = {OUTPUT: (styling.RECHARGE_FIELD,)}
+
+    def _prepare(self, parameters, context, gauges):
+        """Read what a subclass needs beyond the shared parameters, before any input is read
+        (``gauges`` is the gauges' feature source)."""
+
+    def _summarize(self, result, feedback):
+        """The last line of the log: how many gauges were computed, flagged and skipped.
+
+        A gauge is skipped when it has no hydrology at all (no discharge record, no usable
+        value, or a failure inside the core); it is flagged when it was computed but its
+        ``quality`` names a problem."""
+        gauges = result.gauges
+        skipped = [gid for gid, one in gauges.items() if one.recession is None]
+        flagged = [gid for gid, one in gauges.items() if one.recession is not None and one.quality]
+        text = self.tr("Summary: {} gauges: {} computed ({} of them flagged), {} skipped").format(
+            len(gauges), len(gauges) - len(skipped), len(flagged), len(skipped)
+        )
+        if skipped:
+            text += " (" + ", ".join(skipped[:10]) + (", …" if len(skipped) > 10 else "") + ")"
+        feedback.pushInfo(text)
 
     # ---------------------------------------------------------------- the work
 
@@ -688,11 +765,19 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
         parameters = self._completed(parameters)
 
         gauges = self.source(parameters, self.GAUGES, context)
-        discharge = self.source(parameters, self.DISCHARGE, context)
+        discharge = (
+            self.source(parameters, self.DISCHARGE, context) if self._has(self.DISCHARGE) else None
+        )
         basins = self._basin_sources(parameters, context)
-        report_path = self.parameterAsFileOutput(parameters, self.REPORT, context)
-        scheme = self._choice(parameters, self.CLASSES, context)
-        classes = self._class_count(parameters, context)
+        report_path = (
+            self.parameterAsFileOutput(parameters, self.REPORT, context)
+            if self._has(self.REPORT)
+            else ""
+        )
+        has_classes = self._has(self.CLASSES)
+        scheme = self._choice(parameters, self.CLASSES, context) if has_classes else "quantiles"
+        classes = self._class_count(parameters, context) if has_classes else _CLASS_COUNT
+        self._prepare(parameters, context, gauges)
 
         from ..algorithms.errors import Cancelled, InputError
         from .feedback import FeedbackReporter, push_warning
@@ -702,7 +787,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             settings = settings.resolved()
             if scheme not in MAP_CLASSES:
                 raise InputError(self._unknown_choice(self.CLASSES, scheme))
-            problem = self._class_count_problem(parameters, context)
+            problem = self._class_count_problem(parameters, context) if has_classes else None
             if problem:
                 raise InputError(problem)
             classes = int(classes)
@@ -730,12 +815,13 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             outputs[self.REPORT] = report_path
         feedback.setProgress(100.0)
 
-        for name in self._STYLED_OUTPUTS:
+        for name, fields in self._STYLED_OUTPUTS.items():
             dest_id = outputs.get(name)
             if dest_id and context.willLoadLayerOnCompletion(dest_id):
                 context.layerToLoadOnCompletionDetails(dest_id).setPostProcessor(
-                    styling.recharge_post_processor(scheme, classes)
+                    styling.style_post_processor(fields, scheme, classes)
                 )
+        self._summarize(result, feedback)
         return outputs
 
     def _explain_settings(self, settings, feedback, push_warning):
@@ -758,7 +844,10 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             )
 
     def _requested(self, parameters, name, context) -> bool:
-        """Whether the caller asked for output ``name`` (optional outputs may be left unset)."""
+        """Whether this algorithm has output ``name`` and the caller asked for it (optional
+        outputs may be left unset)."""
+        if not self._has(name):
+            return False
         return bool(self.parameterAsOutputLayer(parameters, name, context))
 
     @staticmethod
@@ -778,30 +867,37 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             except InputError as exc:
                 raise InputError(f"{exc} ({parameter})") from None
 
+    #: Keep the gauges' raw attribute rows, for writing the gauges back with their own fields.
+    _KEEP_GAUGE_ROWS = False
+
+    def _gauge_fields(self, settings):
+        """(parameter, field) pairs the gauges layer must have."""
+        return [
+            (self.GAUGE_ID_FIELD, settings.gauge_id_field),
+            (self.RECESSION_INDEX_FIELD, settings.recession_index_field),
+            (self.REPORTED_AREA_FIELD, settings.reported_area_field),
+        ]
+
     def _read_inputs(self, gauges, discharge, basins, settings, feedback):
-        """Read the sources into pandas, checking the fields first so errors come early."""
-        self._require_fields(
-            gauges,
-            [
-                (self.GAUGE_ID_FIELD, settings.gauge_id_field),
-                (self.RECESSION_INDEX_FIELD, settings.recession_index_field),
-                (self.REPORTED_AREA_FIELD, settings.reported_area_field),
-            ],
-            "gauges layer",
-        )
+        """Read the sources into pandas, checking the fields first so errors come early.
+        ``discharge`` may be None (an algorithm without hydrology)."""
+        self._require_fields(gauges, self._gauge_fields(settings), "gauges layer")
         self._check_basin_fields(basins, settings, feedback)
-        wanted = [settings.discharge_gauge_field, settings.date_field, settings.value_field]
-        parameters = [self.DISCHARGE_GAUGE_FIELD, self.DATE_FIELD, self.VALUE_FIELD]
-        if settings.flag_field:
-            wanted.append(settings.flag_field)
-            parameters.append(self.FLAG_FIELD)
-        self._require_fields(discharge, list(zip(parameters, wanted)), "discharge table")
-        wanted = list(dict.fromkeys(wanted))
+        if discharge is not None:
+            wanted = [settings.discharge_gauge_field, settings.date_field, settings.value_field]
+            parameters = [self.DISCHARGE_GAUGE_FIELD, self.DATE_FIELD, self.VALUE_FIELD]
+            if settings.flag_field:
+                wanted.append(settings.flag_field)
+                parameters.append(self.FLAG_FIELD)
+            self._require_fields(discharge, list(zip(parameters, wanted)), "discharge table")
+            wanted = list(dict.fromkeys(wanted))
 
         tables = {}
-        steps = [("gauges", gauges, None, True, False)]  # what, source, fields, geometry, rows
+        # what, source, fields, geometry, rows
+        steps = [("gauges", gauges, None, True, self._KEEP_GAUGE_ROWS)]
         steps += [(what, source, None, True, True) for what, source in basins.items()]
-        steps.append(("discharge", discharge, wanted, False, False))
+        if discharge is not None:
+            steps.append(("discharge", discharge, wanted, False, False))
         for n, (what, source, names, with_geometry, keep_rows) in enumerate(steps):
             feedback.setProgressText(self.tr("Reading the {}").format(what))
             table = conversion.read_source(
@@ -860,7 +956,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             (self.PERIODS, lambda: result.periods),
             (self.SEGMENTS, lambda: result.segments),
             (self.MASTER_RECESSION, lambda: result.master_recession),
-            (self.DAILY, result.daily),
+            (self.DAILY, lambda: result.daily()),
             (self.LINKS, lambda: result.links),
         )
         for n, (name, table) in enumerate(tables):

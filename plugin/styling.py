@@ -1,7 +1,8 @@
-"""A graduated (choropleth) style on mean annual recharge for the basin outputs.
+"""Graduated (choropleth) styles for the outputs: recharge, recession index, baseflow index.
 
-The class limits come from the core's :func:`recharge_atlas.algorithms.maps.class_breaks`, the
-function the command line's PNG map and the report use, so QGIS draws the same classes.
+The class limits come from the core's :func:`recharge_atlas.algorithms.maps.class_breaks` and
+the colours from :func:`~recharge_atlas.algorithms.maps.class_colours`, the functions the
+command line's PNG map and the report use, so QGIS draws the same classes in the same colours.
 """
 
 from __future__ import annotations
@@ -13,25 +14,37 @@ from qgis.core import (
     QgsClassificationEqualInterval,
     QgsClassificationJenks,
     QgsClassificationQuantile,
-    QgsColorBrewerColorRamp,
     QgsFeatureRequest,
+    QgsGradientColorRamp,
+    QgsGradientStop,
     QgsGraduatedSymbolRenderer,
     QgsProcessingLayerPostProcessorInterface,
     QgsRendererRange,
     QgsSymbol,
 )
+from qgis.PyQt.QtGui import QColor
 
 from . import compat
 
-#: Field the map classifies.
+#: Field the recharge maps classify.
 RECHARGE_FIELD = "recharge_mm_per_year"
-#: Units shown in the class labels.
+#: Units shown in the class labels of the recharge maps.
 UNITS = "mm/yr"
+#: Units shown in the class labels of each field a style may classify ("" for a ratio).
+FIELD_UNITS = {
+    RECHARGE_FIELD: UNITS,
+    "incremental_recharge_mm_per_year": UNITS,
+    "recharge_m3_per_year": "m³/yr",
+    "recession_index_days": "days",
+    "baseflow_index": "",
+}
 CLASSES = 5
 #: The core's class schemes (maps.SCHEMES), default first.
 SCHEMES = ("quantiles", "equal_interval", "natural_breaks")
-#: ColorBrewer scheme (Brewer, colorbrewer2.org): light blue for little recharge, dark for much.
-RAMP = "Blues"
+#: Size of the gauge markers (mm).
+MARKER_SIZE = 3.0
+#: Polygons are drawn largest first when the layer has this field, so nested basins show.
+AREA_FIELD = "area_km2"
 
 #: QGIS's own classification of each scheme, kept on the renderer so that the layer
 #: properties show the scheme and a user who re-classifies gets the same kind of classes
@@ -63,18 +76,46 @@ def finite_values(layer, field_name: str) -> list:
     return values
 
 
-def apply_recharge_style(
-    layer, field_name: str = RECHARGE_FIELD, classes: int = CLASSES, scheme: str = "quantiles"
+def class_colours(n: int) -> list:
+    """The core's ``n`` class colours (light to dark) as QColor."""
+    from ..algorithms.maps import class_colours as core_colours
+
+    return [QColor(c) for c in core_colours(n)]
+
+
+def colour_ramp(colours) -> QgsGradientColorRamp:
+    """A colour ramp through ``colours`` (QColor), so that a user who re-classifies the layer
+    in QGIS gets the same colours."""
+    first, last = colours[0], colours[-1]
+    stops = [
+        QgsGradientStop(i / (len(colours) - 1), colour)
+        for i, colour in enumerate(colours[1:-1], start=1)
+    ]
+    return QgsGradientColorRamp(first, last, False, stops)
+
+
+def order_by_area(renderer, layer) -> None:
+    """Draw larger polygons first, so nested basins show on top of the basins around them."""
+    if renderer is None or layer.fields().lookupField(AREA_FIELD) < 0:
+        return
+    order = QgsFeatureRequest.OrderBy([QgsFeatureRequest.OrderByClause(AREA_FIELD, False)])
+    renderer.setOrderBy(order)
+    renderer.setOrderByEnabled(True)
+
+
+def apply_graduated_style(
+    layer, field_name: str, classes: int = CLASSES, scheme: str = "quantiles", units=None
 ):
     """Give ``layer`` a graduated renderer on ``field_name`` and return the renderer.
 
-    Classes of the features that have an estimate by ``scheme`` (``quantiles``,
+    Classes of the features that have a value by ``scheme`` (``quantiles``,
     ``equal_interval`` or ``natural_breaks``; fewer classes when there are fewer distinct
     values), the limits and labels of the core's ``maps.class_breaks`` and ``class_labels``
-    followed by the units (``120 – 180 mm/yr``), the ColorBrewer Blues ramp, and larger
-    polygons drawn first so nested catchments show on top of the basins that contain them.
-    Features without an estimate (NULL) are left unfilled. Returns None when the layer lacks
-    the field.
+    followed by the units (``120 – 180 mm/yr``; ``units`` defaults to
+    :data:`FIELD_UNITS`), the core's ``maps.class_colours`` (those of the PNG maps), and
+    larger polygons drawn first so nested catchments show on top of the basins that contain
+    them. Features without a value (NULL) are not drawn. Returns None, leaving the layer as
+    it was, when the layer lacks the field or no feature has a value in it.
 
     Notes
     -----
@@ -84,46 +125,74 @@ def apply_recharge_style(
     """
     if layer is None or layer.fields().lookupField(field_name) < 0:
         return None
+    values = finite_values(layer, field_name)
+    if not values:
+        return None
     from ..algorithms.maps import class_breaks, class_labels
 
-    breaks = class_breaks(finite_values(layer, field_name), scheme, classes)
+    units = FIELD_UNITS.get(field_name, "") if units is None else units
+    suffix = f" {units}" if units else ""
+    breaks = class_breaks(values, scheme, classes)
     method = _QGIS_METHODS[scheme]()
-    method.setLabelFormat(f"%1 – %2 {UNITS}")
-    method.setLabelPrecision(0)
+    method.setLabelFormat(f"%1 – %2{suffix}")
+    method.setLabelPrecision(0 if units else 2)
     method.setLabelTrimTrailingZeroes(True)
 
     renderer = QgsGraduatedSymbolRenderer(field_name)
     renderer.setClassificationMethod(method)
     symbol = QgsSymbol.defaultSymbol(layer.geometryType())
+    if hasattr(symbol, "setSize"):  # gauge points: markers large enough to see the colour
+        symbol.setSize(MARKER_SIZE)
     renderer.setSourceSymbol(symbol.clone())
-    labels = class_labels(breaks) if len(breaks) else []
-    for low, high, label in zip(breaks[:-1], breaks[1:], labels):
-        renderer.addClassRange(
-            QgsRendererRange(float(low), float(high), symbol.clone(), f"{label} {UNITS}")
-        )
-    ramp = QgsColorBrewerColorRamp(RAMP, max(len(labels), 3))
-    renderer.setSourceColorRamp(ramp.clone())
-    renderer.updateColorRamp(ramp.clone())
-
-    if layer.fields().lookupField("area_km2") >= 0:
-        order = QgsFeatureRequest.OrderBy([QgsFeatureRequest.OrderByClause("area_km2", False)])
-        renderer.setOrderBy(order)
-        renderer.setOrderByEnabled(True)
+    labels = class_labels(breaks)
+    colours = class_colours(len(labels))
+    for low, high, label, colour in zip(breaks[:-1], breaks[1:], labels, colours):
+        one = symbol.clone()
+        one.setColor(colour)
+        renderer.addClassRange(QgsRendererRange(float(low), float(high), one, f"{label}{suffix}"))
+    renderer.setSourceColorRamp(colour_ramp(colours))
+    order_by_area(renderer, layer)
     layer.setRenderer(renderer)
     layer.triggerRepaint()
     return renderer
 
 
-class RechargeStylePostProcessor(QgsProcessingLayerPostProcessorInterface):
-    """Styles a basin output with ``classes`` classes by ``scheme`` when Processing loads it."""
+def apply_recharge_style(
+    layer, field_name: str = RECHARGE_FIELD, classes: int = CLASSES, scheme: str = "quantiles"
+):
+    """A graduated map of mean annual recharge (see :func:`apply_graduated_style`)."""
+    return apply_graduated_style(layer, field_name, classes, scheme)
 
-    def __init__(self, scheme: str = "quantiles", classes: int = CLASSES):
+
+def apply_style(layer, fields, classes: int = CLASSES, scheme: str = "quantiles"):
+    """A graduated style on the first of ``fields`` that has a value, and return its renderer;
+    when none has, larger polygons are drawn first (nested basins on top) and None is
+    returned."""
+    for field_name in fields:
+        renderer = apply_graduated_style(layer, field_name, classes, scheme)
+        if renderer is not None:
+            return renderer
+    renderer = layer.renderer() if layer is not None else None
+    if renderer is not None and layer.fields().lookupField(AREA_FIELD) >= 0:
+        renderer = renderer.clone()
+        order_by_area(renderer, layer)
+        layer.setRenderer(renderer)
+        layer.triggerRepaint()
+    return None
+
+
+class StylePostProcessor(QgsProcessingLayerPostProcessorInterface):
+    """Styles an output on the first of ``fields`` with a value, with ``classes`` classes by
+    ``scheme``, when Processing loads it (see :func:`apply_style`)."""
+
+    def __init__(self, fields=(RECHARGE_FIELD,), scheme: str = "quantiles", classes: int = CLASSES):
         super().__init__()
+        self.fields = tuple(fields)
         self.scheme = scheme
         self.classes = classes
 
     def postProcessLayer(self, layer, context, feedback):  # noqa: N802 (QGIS API name)
-        apply_recharge_style(layer, classes=self.classes, scheme=self.scheme)
+        apply_style(layer, self.fields, classes=self.classes, scheme=self.scheme)
 
 
 # Processing takes ownership of a post-processor and deletes it with the context of the run
@@ -133,13 +202,20 @@ class RechargeStylePostProcessor(QgsProcessingLayerPostProcessorInterface):
 _RECENT = deque(maxlen=16)
 
 
-def recharge_post_processor(
-    scheme: str = "quantiles", classes: int = CLASSES
-) -> RechargeStylePostProcessor:
-    """A new style post-processor (``classes`` classes by ``scheme``) for one output of one
-    run."""
+def style_post_processor(
+    fields, scheme: str = "quantiles", classes: int = CLASSES
+) -> StylePostProcessor:
+    """A new style post-processor for one output of one run: the first of ``fields`` with a
+    value, ``classes`` classes by ``scheme``."""
     if scheme not in _QGIS_METHODS:
         raise ValueError(f"scheme was {scheme!r}; expected one of {list(SCHEMES)}")
-    processor = RechargeStylePostProcessor(scheme, classes)
+    processor = StylePostProcessor(fields, scheme, classes)
     _RECENT.append(processor)
     return processor
+
+
+def recharge_post_processor(
+    scheme: str = "quantiles", classes: int = CLASSES
+) -> StylePostProcessor:
+    """A new post-processor styling mean annual recharge (see :func:`style_post_processor`)."""
+    return style_post_processor((RECHARGE_FIELD,), scheme, classes)

@@ -16,7 +16,7 @@ from qgis.core import (
     QgsProcessingParameterField,
 )
 
-from . import compat
+from . import compat, styling
 from .recharge_run import RechargeRunAlgorithm
 
 #: Fields the core gives each subbasin, in order (``run_atlas_subbasins``); tests check them.
@@ -40,7 +40,10 @@ class SubbasinRecharge(RechargeRunAlgorithm):
     CATCHMENTS = "CATCHMENTS"
 
     _DEFAULT_FIELDS = RechargeRunAlgorithm._DEFAULT_FIELDS + (SUBBASIN_ID_FIELD, DOWNSTREAM_FIELD)
-    _STYLED_OUTPUTS = (RechargeRunAlgorithm.OUTPUT, CATCHMENTS)
+    _STYLED_OUTPUTS = {
+        RechargeRunAlgorithm.OUTPUT: (styling.RECHARGE_FIELD,),
+        CATCHMENTS: (styling.RECHARGE_FIELD,),
+    }
 
     def name(self):
         return "subbasinrecharge"

@@ -70,6 +70,7 @@ def test_parameters_are_the_briefs(algorithm):
         "CLASSES",
         "CLASS_COUNT",
         "OUTPUT",
+        "INCREMENTAL_AREAS",
         "ANNUAL",
         "EVENTS",
         "PERIODS",
