@@ -25,7 +25,7 @@ import numpy as np
 import pandas as pd
 
 from .recession import potential_groundwater_discharge_m3
-from .tables import empty_table
+from .tables import ColumnTable
 
 #: A period is complete when at most this share of its days lacks a value (our own rule).
 MAX_MISSING_SHARE = 0.02
@@ -130,8 +130,8 @@ def _event_sums(events, slot_of_event, n_slots):
     if events is None or not len(events):
         zeros = np.zeros(n_slots)
         return zeros, zeros.astype(int), zeros.astype(int)
-    used = events["used"].to_numpy(bool)
-    volume = np.where(used, events["recharge_m3"].to_numpy(float), 0.0)
+    used = np.asarray(events["used"], dtype=bool)
+    volume = np.where(used, np.asarray(events["recharge_m3"], dtype=float), 0.0)
     inside = (slot_of_event >= 0) & (slot_of_event < n_slots)
     slot = slot_of_event[inside]
     sums = np.bincount(slot, weights=volume[inside], minlength=n_slots)
@@ -184,16 +184,47 @@ def annual_recharge(
         most ``max_missing_share`` of its days lack a value, and no event in it was skipped.
         Terms that could not be computed are NaN.
     """
+    return annual_columns(
+        _days(flow.index),
+        flow.to_numpy(dtype=float),
+        events,
+        area_km2,
+        start_month,
+        max_missing_share,
+        baseflow=baseflow,
+        recession_index_days=recession_index_days,
+        events_low=events_low,
+        events_high=events_high,
+    ).frame()
+
+
+def annual_columns(
+    days,
+    q,
+    events,
+    area_km2,
+    start_month=10,
+    max_missing_share=MAX_MISSING_SHARE,
+    *,
+    baseflow=None,
+    recession_index_days=None,
+    events_low=None,
+    events_high=None,
+) -> ColumnTable:
+    """:func:`annual_recharge` as columns, for flows ``q`` on the days ``days`` (datetime64[D]).
+
+    ``events``, ``events_low`` and ``events_high`` need ``peak_date``, ``recharge_m3`` and
+    ``used`` (a DataFrame, a :class:`tables.ColumnTable` or a dict of arrays).
+    """
     start_month = _check_month(start_month)
-    if flow.empty:
-        return empty_table(ANNUAL_COLUMNS)
-    days = _days(flow.index)
+    if len(days) == 0:
+        return ColumnTable.empty(ANNUAL_COLUMNS)
     year_of_day = _water_year_of_days(days, start_month)
     first_year = int(year_of_day[0])
     years = np.arange(first_year, int(year_of_day[-1]) + 1)
     n = years.size
     slot = (year_of_day - first_year).astype(np.intp)
-    q = flow.to_numpy(dtype=float)
+    q = np.asarray(q, dtype=float)
     has_value = np.isfinite(q)
     seconds = 86400.0
     in_record = np.bincount(slot, minlength=n)
@@ -203,9 +234,8 @@ def annual_recharge(
     def event_slots(table):
         if table is None or not len(table):
             return np.empty(0, np.intp)
-        return (_water_year_of_days(_days(table["peak_date"]), start_month) - first_year).astype(
-            np.intp
-        )
+        peaks = np.asarray(table["peak_date"]).astype("datetime64[D]")
+        return (_water_year_of_days(peaks, start_month) - first_year).astype(np.intp)
 
     recharge, n_events, skipped = _event_sums(events, event_slots(events), n)
     low = (
@@ -246,7 +276,7 @@ def annual_recharge(
     recharge_mm = _mm(recharge, area_km2)
     baseflow_mm = _mm(base_m3, area_km2)
     storage_mm = _mm(storage, area_km2)
-    table = pd.DataFrame(
+    table = ColumnTable(
         {
             "water_year": years.astype(np.int64),
             "recharge_mm": recharge_mm,
@@ -266,9 +296,10 @@ def annual_recharge(
             "days_missing": missing.astype(np.int64),
             "events": n_events.astype(np.int64),
             "events_skipped": skipped.astype(np.int64),
-        }
+        },
+        ANNUAL_COLUMNS,
     )
-    return table[ANNUAL_COLUMNS]
+    return table
 
 
 def _storage_change(days, baseflow, k, bounds):
@@ -295,23 +326,32 @@ def _seasonal_recession(slot, baseflow, k, n_years):
     """
     out = np.full(n_years, np.nan)
     b = np.asarray(baseflow, dtype=float)
-    valid = np.isfinite(b)
-    if not valid.any():
+    if not np.isfinite(b).any():
         return out
-    # Lowest day of each year: sort the valid days by (year, baseflow) and take each year's first.
-    days = np.flatnonzero(valid)
-    order = np.lexsort((b[days], slot[days]))
-    sorted_slots = slot[days][order]
-    starts = np.r_[0, np.flatnonzero(np.diff(sorted_slots)) + 1]
+    # Lowest day of each year (the first of equals); days of a year are contiguous.
+    starts = np.r_[0, np.flatnonzero(np.diff(slot)) + 1]
+    years_present = slot[starts]
+    filled = np.where(np.isfinite(b), b, np.inf)
+    lowest_value = np.minimum.reduceat(filled, starts)
+    at_lowest = np.where(
+        filled == np.repeat(lowest_value, np.diff(np.r_[starts, b.size])), np.arange(b.size), b.size
+    )
     lowest = np.full(n_years, -1)
-    lowest[sorted_slots[starts]] = days[order][starts]
-    for year in range(1, n_years):
-        t0, t1 = lowest[year - 1], lowest[year]
-        if t0 >= 0 and t1 > t0:
-            top = np.nanmax(b[t0 : t1 + 1])
-            out[year] = potential_groundwater_discharge_m3(
-                top, k
-            ) - potential_groundwater_discharge_m3(b[t0], k)
+    found = np.isfinite(lowest_value)
+    lowest[years_present[found]] = np.minimum.reduceat(at_lowest, starts)[found]
+    # Highest baseflow between each pair of successive lowest days (the spans tile the record
+    # between the first and the last lowest day, so one reduceat covers them).
+    t0, t1 = lowest[:-1], lowest[1:]
+    pairs = np.flatnonzero((t0 >= 0) & (t1 > t0))
+    if pairs.size:
+        marks = np.unique(np.r_[t0[pairs], t1[pairs]])
+        peaks = np.maximum.reduceat(np.where(np.isfinite(b), b, -np.inf), marks)
+        # Each span [t0, t1] ends on the next mark; its own end day counts too.
+        top = np.maximum(peaks[np.searchsorted(marks, t0[pairs])], b[t1[pairs]])
+        gained = potential_groundwater_discharge_m3(top, k) - potential_groundwater_discharge_m3(
+            b[t0[pairs]], k
+        )
+        out[pairs + 1] = gained
     return out
 
 
@@ -331,28 +371,44 @@ def period_recharge(
         ``water_year, period, first_date, last_date, recharge_mm, recharge_m3, complete,
         days_missing, events, events_skipped``.
     """
+    return period_columns(
+        _days(flow.index),
+        flow.to_numpy(dtype=float),
+        events,
+        area_km2,
+        kind,
+        start_month,
+        max_missing_share,
+    ).frame()
+
+
+def period_columns(
+    days, q, events, area_km2, kind="month", start_month=10, max_missing_share=MAX_MISSING_SHARE
+) -> ColumnTable:
+    """:func:`period_recharge` as columns, for flows ``q`` on the days ``days``."""
     if kind not in ("month", "season"):
         raise ValueError(f"period kind was {kind!r}; expected 'month' or 'season'")
     start_month = _check_month(start_month)
-    if flow.empty:
-        return empty_table(PERIOD_COLUMNS)
+    if len(days) == 0:
+        return ColumnTable.empty(PERIOD_COLUMNS)
     width = 1 if kind == "month" else 3
 
     def period_of(days):
         months = days.astype("datetime64[M]").astype(np.int64)
         return months if width == 1 else (months + 1) // 3  # seasons start in December
 
-    days = _days(flow.index)
     index = period_of(days)
     first_period = int(index[0])
     periods = np.arange(first_period, int(index[-1]) + 1)
     n = periods.size
     slot = (index - first_period).astype(np.intp)
-    q = flow.to_numpy(dtype=float)
+    q = np.asarray(q, dtype=float)
     in_record = np.bincount(slot, minlength=n)
     with_value = np.bincount(slot, weights=np.isfinite(q).astype(float), minlength=n)
     ev_slots = (
-        (period_of(_days(events["peak_date"])) - first_period).astype(np.intp)
+        (period_of(np.asarray(events["peak_date"]).astype("datetime64[D]")) - first_period).astype(
+            np.intp
+        )
         if len(events)
         else np.empty(0, np.intp)
     )
@@ -369,7 +425,7 @@ def period_recharge(
         labels = np.datetime_as_string(first_dates.astype("datetime64[M]"))
     else:
         labels = np.array(SEASONS)[periods % 4]
-    table = pd.DataFrame(
+    return ColumnTable(
         {
             "water_year": _water_year_of_days(first_dates, start_month).astype(np.int64),
             "period": labels.astype(object),
@@ -381,14 +437,14 @@ def period_recharge(
             "days_missing": missing.astype(np.int64),
             "events": n_events.astype(np.int64),
             "events_skipped": skipped.astype(np.int64),
-        }
+        },
+        PERIOD_COLUMNS,
     )
-    return table[PERIOD_COLUMNS]
 
 
-def mean_annual(annual: pd.DataFrame, column="recharge_mm"):
+def mean_annual(annual, column="recharge_mm"):
     """Mean of ``column`` over complete water years (NaN when there are none)."""
-    complete = annual[annual["complete"].astype(bool)]
-    if complete.empty:
-        return np.nan
-    return float(complete[column].mean())
+    complete = np.asarray(annual["complete"], dtype=bool)
+    values = np.asarray(annual[column], dtype=float)[complete]
+    values = values[np.isfinite(values)]
+    return float(values.mean()) if values.size else np.nan

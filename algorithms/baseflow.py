@@ -85,15 +85,17 @@ def _bounded_recursion(a, u, y_first, bound, upper=True):
     if n == 1:
         return y
     pick = np.minimum if upper else np.maximum
-    chunk = max(1, int(np.floor(300.0 / max(-np.log(a), 1e-12))))
+    chunk = min(n - 1, max(1, int(np.floor(300.0 / max(-np.log(a), 1e-12)))))
+    # a^s and a^−s for s = 0 … chunk − 1, by running products (exact to ~chunk × 1e-16).
+    grow = np.cumprod(np.r_[1.0, np.full(chunk - 1, 1.0 / a)])
+    shrink = np.cumprod(np.r_[1.0, np.full(chunk - 1, a)])
     i = 1
     while i < n:
         j = min(n, i + chunk)
+        m = j - i
         free, _ = lfilter([1.0], [1.0, -a], u[i:j], zi=[a * y[i - 1]])
-        steps = np.arange(j - i, dtype=float)
-        scaled = (bound[i:j] - free) * a ** (-steps)
-        running = pick.accumulate(scaled)
-        y[i:j] = free + pick(0.0, running * a**steps)
+        running = pick.accumulate((bound[i:j] - free) * grow[:m])
+        y[i:j] = free + pick(0.0, running * shrink[:m])
         i = j
     return y
 

@@ -23,7 +23,7 @@ import pandas as pd
 
 from .recession import critical_time_days, displacement_recharge_m3
 from .rises import Rises
-from .tables import empty_table
+from .tables import ColumnTable
 
 #: Columns of the event table, in order.
 EVENT_COLUMNS = [
@@ -87,16 +87,81 @@ def event_displacements(
         One row per event with :data:`EVENT_COLUMNS`. Events that cannot be measured have
         ``used`` False, a null recharge and a ``note`` saying why.
     """
+    day0 = np.datetime64(pd.Timestamp(flow.index[0]).date(), "D") if len(flow) else None
+    return event_columns(
+        np.asarray(flow, dtype=float),
+        day0,
+        logq,
+        rises,
+        recession_index_days,
+        lag_days,
+        max_extrapolation_days,
+    ).frame()
+
+
+def event_columns(
+    q, day0, logq, rises: Rises, recession_index_days, lag_days, max_extrapolation_days=None
+) -> ColumnTable:
+    """:func:`event_displacements` as columns, for a record of flows ``q`` starting on ``day0``."""
     k = float(recession_index_days)
+    if len(rises) == 0 or not np.isfinite(k) or k <= 0:
+        return ColumnTable.empty(EVENT_COLUMNS)
+    parts = _displacements(q, logq, rises, k, lag_days, max_extrapolation_days)
+
+    def dates(positions):
+        return (day0 + positions.astype("timedelta64[D]")).astype("datetime64[ns]")
+
+    peak, start, post = rises.peak, rises.rise_start, parts["post_day"]
+    has_post = post >= 0
+    post_dates = dates(np.where(has_post, post, 0))
+    post_dates[~has_post] = np.datetime64("NaT")
+    used = parts["used"]
+    tc = parts["tc"]
+    columns = {
+        "peak_date": dates(peak),
+        "rise_start_date": dates(start),
+        "peaks_merged": rises.peaks_merged.astype(np.int64),
+        "critical_time_days": np.full(peak.size, tc),
+        "critical_date": dates(np.floor(peak + tc).astype(np.int64)),
+        "q_before_m3s": np.where(used, parts["q1"], np.nan),
+        "q_after_m3s": np.where(used, parts["q2"], np.nan),
+        "pre_anchor_date": dates(start),
+        "pre_anchor_m3s": q[start],
+        "pre_extrapolation_days": parts["pre_span"],
+        "post_anchor_date": post_dates,
+        "post_anchor_m3s": np.where(has_post, q[np.where(has_post, post, 0)], np.nan),
+        "post_extrapolation_days": parts["post_span"],
+        "recharge_m3": parts["recharge_m3"],
+        "used": used,
+        "anchor_in_gap": rises.start_in_gap | rises.peak_at_gap | ~has_post,
+        "note": parts["note"],
+    }
+    return ColumnTable(columns, EVENT_COLUMNS)
+
+
+def event_volumes(
+    flow, logq, rises: Rises, recession_index_days, lag_days, max_extrapolation_days=None
+):
+    """Only the recharge volume (m³, NaN when not measured) and the ``used`` flag of each event.
+
+    The same computation as :func:`event_displacements`, without building the table: for
+    rerunning the events with other values of K.
+    """
+    k = float(recession_index_days)
+    if len(rises) == 0 or not np.isfinite(k) or k <= 0:
+        return np.empty(0), np.empty(0, bool)
+    parts = _displacements(
+        np.asarray(flow, dtype=float), logq, rises, k, lag_days, max_extrapolation_days
+    )
+    return parts["recharge_m3"], parts["used"]
+
+
+def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days):
+    """The arrays of the displacement construction, one entry per event."""
     if max_extrapolation_days is None:
         max_extrapolation_days = default_max_extrapolation(k)
     x = np.asarray(logq, dtype=float)
-    q = np.asarray(flow, dtype=float)
-    dates = pd.DatetimeIndex(flow.index)
     n_events = len(rises)
-    if n_events == 0 or not np.isfinite(k) or k <= 0:
-        return empty_table(EVENT_COLUMNS)
-
     tc = float(critical_time_days(k))
     peak = rises.peak
     start = rises.rise_start
@@ -136,32 +201,18 @@ def event_displacements(
         "post-event extrapolation longer than the limit",
     )
     note[used & (rises.peaks_merged > 1)] = "peaks merged"
-    anchor_in_gap = rises.start_in_gap | rises.peak_at_gap | ~has_post
-
     recharge = np.where(used, displacement_recharge_m3(q1, q2, k), np.nan)
-    critical = dates[peak] + pd.to_timedelta(tc, unit="D")
-    frame = pd.DataFrame(
-        {
-            "peak_date": dates[peak],
-            "rise_start_date": dates[start],
-            "peaks_merged": rises.peaks_merged.astype(int),
-            "critical_time_days": tc,
-            "critical_date": critical.floor("D"),
-            "q_before_m3s": np.where(used, q1, np.nan),
-            "q_after_m3s": np.where(used, q2, np.nan),
-            "pre_anchor_date": dates[start],
-            "pre_anchor_m3s": q[start],
-            "pre_extrapolation_days": pre_span,
-            "post_anchor_date": pd.DatetimeIndex(np.where(has_post, dates[safe_post], pd.NaT)),
-            "post_anchor_m3s": np.where(has_post, q[safe_post], np.nan),
-            "post_extrapolation_days": post_span,
-            "recharge_m3": recharge,
-            "used": used,
-            "anchor_in_gap": anchor_in_gap,
-            "note": note,
-        }
-    )
-    return frame[EVENT_COLUMNS]
+    return {
+        "tc": tc,
+        "q1": q1,
+        "q2": q2,
+        "pre_span": pre_span,
+        "post_day": np.where(has_post, post_day, -1),
+        "post_span": post_span,
+        "used": used,
+        "note": note,
+        "recharge_m3": recharge,
+    }
 
 
 def _nearest_clean(x, wanted, lo, hi):

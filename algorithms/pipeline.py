@@ -18,7 +18,7 @@ from . import annual as annual_mod
 from .baseflow import BFIMAX_TYPICAL, METHODS, baseflow_index, separate_baseflow
 from .basins import LINK_TOLERANCE_M, geodesic_area_km2, link_by_id, link_spatially, repair_polygons
 from .discharge import MIN_DAY_COVERAGE, GaugeRecord, gauge_id_text, require_columns, tidy_discharge
-from .displacement import EVENT_COLUMNS, event_displacements
+from .displacement import EVENT_COLUMNS, event_columns, event_volumes
 from .errors import Cancelled, InputError
 from .nesting import OVERLAP_TOLERANCE, find_nesting, incremental_recharge
 from .recession import (
@@ -27,14 +27,14 @@ from .recession import (
     RecessionIndex,
     critical_time_days,
     estimate_recession_index,
-    master_recession,
+    master_columns,
     master_recession_warnings,
     recession_warnings,
     runoff_end_lag_days,
 )
 from .rises import find_rises, log_flow, rise_threshold
 from .subbasins import UNGAUGED_CHOICES
-from .tables import empty_table
+from .tables import ColumnTable, empty_table, stack
 from .units import canonical_units
 
 #: Fields added to the catchments layer, in order. Later versions add; they never rename.
@@ -297,6 +297,16 @@ class Reporter:
         """A caution about one gauge or catchment; the run goes on."""
 
 
+#: The tables of one gauge, with their columns.
+GAUGE_TABLES = {
+    "events": EVENT_COLUMNS_WITH_DEPTH,
+    "annual": annual_mod.ANNUAL_COLUMNS,
+    "periods": annual_mod.PERIOD_COLUMNS,
+    "segments": SEGMENT_COLUMNS,
+    "master_recession": MASTER_RECESSION_COLUMNS,
+}
+
+
 @dataclass
 class GaugeResult:
     """The hydrology of one gauge.
@@ -312,14 +322,9 @@ class GaugeResult:
         Smallest rise treated as an event, log10 units.
     recession : RecessionIndex
         K with its interval, segments and warnings.
-    events : pandas.DataFrame
-        One row per event (see :mod:`displacement`), with ``recharge_mm``.
-    annual : pandas.DataFrame
-        One row per water year (see :data:`annual.ANNUAL_COLUMNS`).
-    periods : pandas.DataFrame
-        Recharge by month or season.
-    master_recession : pandas.DataFrame
-        K by flow level.
+    tables : dict of str to tables.ColumnTable
+        ``events``, ``annual``, ``periods``, ``segments`` and ``master_recession`` as columns;
+        the properties of the same names give them as DataFrames.
     baseflow : pandas.Series
         Daily baseflow (m³/s) by the chosen method.
     baseflow_index : float
@@ -336,10 +341,7 @@ class GaugeResult:
     lag_days: float = np.nan
     rise_threshold: float = np.nan
     recession: RecessionIndex | None = None
-    events: pd.DataFrame = field(default_factory=pd.DataFrame, repr=False)
-    annual: pd.DataFrame = field(default_factory=pd.DataFrame, repr=False)
-    periods: pd.DataFrame = field(default_factory=pd.DataFrame, repr=False)
-    master_recession: pd.DataFrame = field(default_factory=pd.DataFrame, repr=False)
+    tables: dict = field(default_factory=dict, repr=False)
     baseflow: pd.Series | None = field(default=None, repr=False)
     flow: pd.Series | None = field(default=None, repr=False)
     baseflow_index: float = np.nan
@@ -356,16 +358,35 @@ class GaugeResult:
     def quality_text(self) -> str:
         return "; ".join(self.quality) if self.quality else "ok"
 
+    def table(self, name) -> ColumnTable:
+        """One of the gauge's tables as columns (empty, with its columns, when not computed)."""
+        found = self.tables.get(name)
+        return found if found is not None else ColumnTable.empty(GAUGE_TABLES[name])
+
+    @property
+    def events(self) -> pd.DataFrame:
+        """One row per event (see :mod:`displacement`), with ``event`` and ``recharge_mm``."""
+        return self.table("events").frame()
+
+    @property
+    def annual(self) -> pd.DataFrame:
+        """One row per water year (see :data:`annual.ANNUAL_COLUMNS`)."""
+        return self.table("annual").frame()
+
+    @property
+    def periods(self) -> pd.DataFrame:
+        """Recharge by month or season."""
+        return self.table("periods").frame()
+
+    @property
+    def master_recession(self) -> pd.DataFrame:
+        """K by flow level."""
+        return self.table("master_recession").frame()
+
     @property
     def segments(self) -> pd.DataFrame:
         """Recession segments with dates, for diagnostics."""
-        if self.recession is None or self.flow is None or not len(self.recession.segments):
-            return empty_table(SEGMENT_COLUMNS)
-        seg = self.recession.segments.copy()
-        index = self.flow.index
-        seg.insert(0, "first_date", index[seg["first"].to_numpy(int)])
-        seg.insert(1, "last_date", index[seg["last"].to_numpy(int)])
-        return seg.drop(columns=["first", "last"])
+        return self.table("segments").frame()
 
 
 @dataclass
@@ -520,9 +541,13 @@ def gauge_hydrology(
         lag = float(settings.runoff_end_lag_days)
     else:
         lag = float(runoff_end_lag_days(area if has_area else 100.0))
+    q = flow.to_numpy(dtype=float)
+    day0 = np.datetime64(pd.Timestamp(flow.index[0]).date(), "D")
+    days = day0 + np.arange(q.size).astype("timedelta64[D]")
     # Flagged days stay in the flow (and the baseflow) but the method does not use them.
-    usable = flow.where(~record.flagged.to_numpy())
-    x = log_flow(usable.to_numpy())
+    flagged = record.flagged.to_numpy(dtype=bool)
+    usable = np.where(flagged, np.nan, q) if flagged.any() else q
+    x = log_flow(usable)
     threshold = rise_threshold(x)
     rises = find_rises(x, lag, threshold)
     result.lag_days, result.rise_threshold = lag, threshold
@@ -546,40 +571,43 @@ def gauge_hydrology(
             np.nan,
             recession.segments_used,
             source="given",
-            segments=recession.segments,
+            segment_columns=recession.segment_columns,
             warnings=notes,
         )
     result.recession = recession
-    result.master_recession = (
-        master_recession(recession.segments)
-        if len(recession.segments)
-        else empty_table(MASTER_RECESSION_COLUMNS)
-    )
+    segments = recession.segment_columns
+    master = master_columns(segments)
     quality.extend(recession.warnings)
-    quality.extend(master_recession_warnings(result.master_recession))
+    quality.extend(master_recession_warnings(master))
     k = recession.days
 
-    def events_at(k_days):
-        if not np.isfinite(k_days):
-            return None
-        return event_displacements(usable, x, rises, k_days, lag)
+    events = event_columns(usable, day0, x, rises, k, lag)
+    event_table = dict(events.columns)
+    event_table["event"] = np.arange(1, len(events) + 1, dtype=np.int64)
+    event_table["recharge_mm"] = (
+        event_table["recharge_m3"] / (area * 1e3) if has_area else np.full(len(events), np.nan)
+    )
+    events = ColumnTable(event_table, EVENT_COLUMNS_WITH_DEPTH)
 
-    events = event_displacements(usable, x, rises, k, lag)
-    events.insert(0, "event", np.arange(1, len(events) + 1))
-    events["recharge_mm"] = events["recharge_m3"] / (area * 1e3) if has_area else np.nan
-    result.events = events
+    def events_at(k_days):
+        """The events' volumes with another K (for the ends of its interval)."""
+        if not np.isfinite(k_days) or not len(events):
+            return None
+        volume, used = event_volumes(usable, x, rises, k_days, lag)
+        return {"peak_date": event_table["peak_date"], "recharge_m3": volume, "used": used}
 
     if np.isfinite(k):
-        baseflow = separate_baseflow(flow.to_numpy(), settings.baseflow_method, k, settings.bfi_max)
+        baseflow = separate_baseflow(q, settings.baseflow_method, k, settings.bfi_max)
     elif settings.baseflow_method != "eckhardt":
-        baseflow = separate_baseflow(flow.to_numpy(), settings.baseflow_method)
+        baseflow = separate_baseflow(q, settings.baseflow_method)
     else:
-        baseflow = np.full(flow.size, np.nan)
+        baseflow = np.full(q.size, np.nan)
     result.baseflow = pd.Series(baseflow, index=flow.index, name="baseflow_m3s")
-    result.baseflow_index = baseflow_index(flow.to_numpy(), baseflow)
+    result.baseflow_index = baseflow_index(q, baseflow)
 
-    annual = annual_mod.annual_recharge(
-        flow,
+    annual = annual_mod.annual_columns(
+        days,
+        q,
         events,
         area,
         settings.water_year_start,
@@ -588,11 +616,22 @@ def gauge_hydrology(
         events_low=events_at(recession.low),
         events_high=events_at(recession.high),
     )
-    result.annual = annual
-    result.periods = annual_mod.period_recharge(
-        flow, events, area, settings.period, settings.water_year_start
+    periods = annual_mod.period_columns(
+        days, q, events, area, settings.period, settings.water_year_start
     )
-    result.complete_years = int(annual["complete"].sum()) if len(annual) else 0
+    dated = {
+        "first_date": (day0 + segments["first"].astype("timedelta64[D]")).astype("datetime64[ns]"),
+        "last_date": (day0 + segments["last"].astype("timedelta64[D]")).astype("datetime64[ns]"),
+    }
+    dated.update({c: segments[c] for c in SEGMENT_COLUMNS[2:]})
+    result.tables = {
+        "events": events,
+        "annual": annual,
+        "periods": periods,
+        "segments": ColumnTable(dated, SEGMENT_COLUMNS),
+        "master_recession": master,
+    }
+    result.complete_years = int(np.sum(annual["complete"]))
     mean = annual_mod.mean_annual
     result.recharge_m3_per_year = mean(annual, "recharge_m3")
     result.recharge_mm_per_year = mean(annual, "recharge_mm")
@@ -620,8 +659,8 @@ def _record_quality(record: GaugeRecord, result: GaugeResult, settings: Settings
         notes.append(
             f"only {result.complete_years} complete water years (fewer than {settings.min_complete_years})"
         )
-    events = result.events
-    used = int(events["used"].sum()) if len(events) else 0
+    events = result.table("events")
+    used = int(np.sum(events["used"])) if len(events) else 0
     if len(events):
         skipped = len(events) - used
         if skipped > 0.1 * len(events):
@@ -863,7 +902,7 @@ def run_atlas(
     )
     for gid, note in _reported_area_notes(gauges, settings, area_of).items():
         results[gid].quality.append(note)
-    annual = _stack(results, lambda r: r.annual, annual_mod.ANNUAL_COLUMNS)
+    annual = _stack(results, "annual")
     by_year, incremental = incremental_recharge(nesting, annual)
     for gid, (m3, mm, _years) in incremental.items():
         if np.isfinite(m3) and m3 < 0 and nesting.upstream.get(gid):
@@ -898,12 +937,12 @@ def run_atlas(
     return AtlasResult(
         catchments=out,
         annual=annual,
-        events=_stack(results, lambda r: r.events, EVENT_COLUMNS_WITH_DEPTH),
+        events=_stack(results, "events"),
         gauges=results,
         summary=summary,
-        periods=_stack(results, lambda r: r.periods, annual_mod.PERIOD_COLUMNS),
-        segments=_stack(results, lambda r: r.segments, SEGMENT_COLUMNS),
-        master_recession=_stack(results, lambda r: r.master_recession, MASTER_RECESSION_COLUMNS),
+        periods=_stack(results, "periods"),
+        segments=_stack(results, "segments"),
+        master_recession=_stack(results, "master_recession"),
         links=links.table(gauge_ids, names),
         nesting=nesting,
         settings=settings,
@@ -949,13 +988,13 @@ def run_gauges(
     )
     return AtlasResult(
         catchments=None,
-        annual=_stack(results, lambda r: r.annual, annual_mod.ANNUAL_COLUMNS),
-        events=_stack(results, lambda r: r.events, EVENT_COLUMNS_WITH_DEPTH),
+        annual=_stack(results, "annual"),
+        events=_stack(results, "events"),
         gauges=results,
         summary=summary,
-        periods=_stack(results, lambda r: r.periods, annual_mod.PERIOD_COLUMNS),
-        segments=_stack(results, lambda r: r.segments, SEGMENT_COLUMNS),
-        master_recession=_stack(results, lambda r: r.master_recession, MASTER_RECESSION_COLUMNS),
+        periods=_stack(results, "periods"),
+        segments=_stack(results, "segments"),
+        master_recession=_stack(results, "master_recession"),
         settings=settings,
     )
 
@@ -1111,9 +1150,7 @@ def _catchment_values(result: GaugeResult | None, area):
         "baseflow_mm_per_year": result.baseflow_mm_per_year if result else np.nan,
         "seasonal_recharge_mm_per_year": result.seasonal_recharge_mm_per_year if result else np.nan,
         "complete_years": result.complete_years if result else 0,
-        "events": int(result.events["used"].sum())
-        if result is not None and len(result.events)
-        else 0,
+        "events": int(np.sum(result.table("events")["used"])) if result is not None else 0,
     }
 
 
@@ -1180,15 +1217,7 @@ def _catchment_layer(catchments, basins, results, settings, incremental):
     return out[kept + CATCHMENT_FIELDS + [geometry_name]]
 
 
-def _stack(results, table_of, columns):
-    """One table of every gauge's rows, led by ``gauge_id``; typed and empty when none has rows."""
-    frames = []
-    for gid, result in results.items():
-        frame = table_of(result)
-        if frame is not None and len(frame):
-            frame = frame.copy()
-            frame.insert(0, "gauge_id", gid)
-            frames.append(frame)
-    if not frames:
-        return empty_table(["gauge_id", *columns])
-    return pd.concat(frames, ignore_index=True)
+def _stack(results, name):
+    """One table of every gauge's rows of table ``name``, led by ``gauge_id``."""
+    order = GAUGE_TABLES[name]
+    return stack([r.table(name) for r in results.values()], list(results), "gauge_id", order)

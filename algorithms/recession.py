@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from .rises import Rises
-from .tables import empty_table
+from .tables import ColumnTable
 from .units import SECONDS_PER_DAY, SQUARE_MILE_KM2
 
 LN10 = float(np.log(10.0))
@@ -98,8 +98,9 @@ class RecessionIndex:
         Number of recession segments behind the estimate.
     source : str
         ``"record"`` when estimated from the record, ``"given"`` when the user set it.
-    segments : pandas.DataFrame
-        One row per segment: first and last day, length, slope (log10 per day), K, r².
+    segment_columns : tables.ColumnTable
+        One row per segment: first and last day, length, slope (log10 per day), K, r², mean
+        flow; ``segments`` gives it as a DataFrame.
     warnings : list of str
         Plain-language cautions (few segments, K outside the usual range).
     """
@@ -109,8 +110,15 @@ class RecessionIndex:
     high: float
     segments_used: int
     source: str = "record"
-    segments: pd.DataFrame = field(default_factory=pd.DataFrame, repr=False)
+    segment_columns: ColumnTable = field(
+        default_factory=lambda: ColumnTable.empty(SEGMENT_POSITION_COLUMNS), repr=False
+    )
     warnings: list = field(default_factory=list)
+
+    @property
+    def segments(self) -> pd.DataFrame:
+        """The segments as a DataFrame (day positions ``first`` and ``last``)."""
+        return self.segment_columns.frame()
 
     def __repr__(self):
         return (
@@ -127,7 +135,7 @@ def recession_segments(logq, rises: Rises, lag_days, min_days=7) -> pd.DataFrame
     logq : array_like
         log10 daily flow with NaN on unusable days.
     rises : Rises
-        Events of the record (:func:`recession_analysis.find_rises`).
+        Events of the record (:func:`rises.find_rises`).
     lag_days : float
         Days after the peak before a segment may start (the runoff-end lag N or more).
     min_days : int
@@ -141,29 +149,58 @@ def recession_segments(logq, rises: Rises, lag_days, min_days=7) -> pd.DataFrame
         geometric mean flow of the segment).
     """
     x = np.asarray(logq, dtype=float)
+    return segment_columns(x, rises, lag_days, min_days, _Sums(x)).frame()
+
+
+#: Columns of the segment table in day positions.
+SEGMENT_POSITION_COLUMNS = [
+    "first",
+    "last",
+    "days",
+    "slope",
+    "recession_index_days",
+    "r2",
+    "mean_flow_m3s",
+]
+
+
+class _Sums:
+    """Running sums of a record for least-squares fits on any span (computed once)."""
+
+    def __init__(self, x):
+        t = np.arange(x.size, dtype=float)
+        finite = np.isfinite(x)
+        xf = np.where(finite, x, 0.0)
+        self.bad = ~finite
+        self.next_bad = _next_true(self.bad)
+        self.sums = [
+            np.concatenate([[0.0], np.cumsum(v)])
+            for v in (np.ones_like(t), t, xf, t * t, t * xf, xf * xf)
+        ]
+
+
+def segment_columns(x, rises: Rises, lag_days, min_days, sums: _Sums) -> ColumnTable:
+    """:func:`recession_segments` as columns, with the record's running sums given."""
     first = rises.peak + int(np.ceil(lag_days))
     last = rises.recession_end.astype(int)
     # A recession is cut short at its first unusable day.
-    bad = ~np.isfinite(x)
-    next_bad = _next_true(bad)
-    last = np.minimum(last, next_bad[np.minimum(first, x.size - 1)] - 1)
+    last = np.minimum(last, sums.next_bad[np.minimum(first, x.size - 1)] - 1)
     length = last - first + 1
     keep = (length >= min_days) & (first < x.size)
     first, last, length = first[keep], last[keep], length[keep]
-    slope, r2, mean = _segment_fits(x, first, last)
+    slope, r2, mean = _segment_fits(sums, first, last)
     with np.errstate(divide="ignore"):
         k = np.where(slope < 0, -1.0 / slope, np.nan)
-    return pd.DataFrame(
-        {
-            "first": first,
-            "last": last,
-            "days": length,
-            "slope": slope,
-            "recession_index_days": k,
-            "r2": r2,
-            "mean_flow_m3s": 10.0**mean,
-        }
-    )
+    columns = {
+        "first": first.astype(np.int64),
+        "last": last.astype(np.int64),
+        "days": length.astype(np.int64),
+        "slope": slope,
+        "recession_index_days": k,
+        "r2": r2,
+        "mean_flow_m3s": 10.0**mean,
+    }
+    return ColumnTable(columns, SEGMENT_POSITION_COLUMNS)
 
 
 def _next_true(mask):
@@ -173,14 +210,11 @@ def _next_true(mask):
     return np.minimum.accumulate(idx[::-1])[::-1]
 
 
-def _segment_fits(x, first, last):
+def _segment_fits(sums, first, last):
     """Least-squares slope, r² and mean of x against day number on each [first, last] span."""
     if first.size == 0:
         return np.empty(0), np.empty(0), np.empty(0)
-    t = np.arange(x.size, dtype=float)
-    xf = np.where(np.isfinite(x), x, 0.0)
-    c = lambda v: np.concatenate([[0.0], np.cumsum(v)])  # noqa: E731
-    s1, st, sx, stt, stx, sxx = c(np.ones_like(t)), c(t), c(xf), c(t * t), c(t * xf), c(xf * xf)
+    s1, st, sx, stt, stx, sxx = sums.sums
     a, b = first, last + 1
     n = s1[b] - s1[a]
     sum_t, sum_x = st[b] - st[a], sx[b] - sx[a]
@@ -193,24 +227,30 @@ def _segment_fits(x, first, last):
     return slope, r2, sum_x / n
 
 
-def combine_segments(segments: pd.DataFrame, quantile=0.5, n_boot=400, seed=0):
+def combine_segments(segments, quantile=0.5, n_boot=200, seed=0):
     """Combine segment slopes into one K with a bootstrap interval.
 
     The combined slope is the length-weighted ``quantile`` of the segment slopes; K = −1/slope.
     The interval is the 5–95 % range of that estimate over segments resampled with replacement
-    (``n_boot`` resamples; 0 skips the interval).
+    (``n_boot`` resamples; 0 skips the interval). Each resample is kept as the count of times
+    each segment was drawn, so the sorted slopes are shared by all resamples.
     """
-    seg = segments[np.isfinite(segments["slope"])]
-    if seg.empty:
+    slopes = np.asarray(segments["slope"], dtype=float)
+    weights = np.asarray(segments["days"], dtype=float)
+    finite = np.isfinite(slopes)
+    slopes, weights = slopes[finite], weights[finite]
+    if slopes.size == 0:
         return np.nan, np.nan, np.nan
-    slopes = seg["slope"].to_numpy()
-    weights = seg["days"].to_numpy(dtype=float)
-    k = float(_k_from(slopes[None, :], weights[None, :], quantile)[0])
+    order = np.argsort(slopes, kind="stable")
+    slopes, weights = slopes[order], weights[order]
+    k = float(_k_from(slopes, weights[None, :], quantile)[0])
     if slopes.size < 2 or n_boot <= 0:
         return k, np.nan, np.nan
     rng = np.random.default_rng(seed)
-    picks = rng.integers(0, slopes.size, size=(n_boot, slopes.size))
-    boot = _k_from(slopes[picks], weights[picks], quantile)
+    n = slopes.size
+    picks = rng.integers(0, n, size=(n_boot, n)) + (np.arange(n_boot) * n)[:, None]
+    counts = np.bincount(picks.ravel(), minlength=n_boot * n).reshape(n_boot, n)
+    boot = _k_from(slopes, counts * weights[None, :], quantile)
     boot = boot[np.isfinite(boot)]
     if boot.size == 0:
         return k, np.nan, np.nan
@@ -218,15 +258,12 @@ def combine_segments(segments: pd.DataFrame, quantile=0.5, n_boot=400, seed=0):
     return k, float(low), float(high)
 
 
-def _k_from(slopes, weights, quantile):
-    """K from the weighted ``quantile`` of each row of ``slopes`` (rows are resamples)."""
-    order = np.argsort(slopes, axis=1)
-    s = np.take_along_axis(slopes, order, axis=1)
-    w = np.take_along_axis(weights, order, axis=1)
-    cum = np.cumsum(w, axis=1)
+def _k_from(sorted_slopes, weights, quantile):
+    """K from the weighted ``quantile`` of sorted slopes, for each row of ``weights``."""
+    cum = np.cumsum(weights, axis=1)
     # Slopes are negative; the slow end (large K) has the slopes nearest zero, at the top.
     idx = (cum < quantile * cum[:, -1:]).sum(axis=1)
-    slope = s[np.arange(s.shape[0]), np.minimum(idx, s.shape[1] - 1)]
+    slope = sorted_slopes[np.minimum(idx, sorted_slopes.size - 1)]
     with np.errstate(divide="ignore"):
         return np.where(slope < 0, -1.0 / slope, np.nan)
 
@@ -243,21 +280,23 @@ def estimate_recession_index(
 
     See :func:`recession_segments` and :func:`combine_segments`.
     """
-    segs = recession_segments(logq, rises, lag_days, min_days)
+    x = np.asarray(logq, dtype=float)
+    sums = _Sums(x)
+    segs = segment_columns(x, rises, lag_days, min_days, sums)
     k, low, high = combine_segments(segs, quantile, n_boot=0)
     if np.isfinite(k):
         later = max(float(lag_days), float(critical_time_days(k)))
-        segs2 = recession_segments(logq, rises, later, min_days)
+        segs2 = segment_columns(x, rises, later, min_days, sums)
         if len(segs2) >= 2:
             segs = segs2
     k, low, high = combine_segments(segs, quantile, seed=seed)
-    used = int(np.isfinite(segs["slope"]).sum()) if len(segs) else 0
+    used = int(np.isfinite(segs["slope"]).sum())
     return RecessionIndex(
         days=k,
         low=low,
         high=high,
         segments_used=used,
-        segments=segs,
+        segment_columns=segs,
         warnings=recession_warnings(k, used),
     )
 
@@ -283,7 +322,7 @@ SEGMENT_COLUMNS = [
 ]
 
 
-def master_recession(segments: pd.DataFrame, bins=6) -> pd.DataFrame:
+def master_recession(segments, bins=6) -> pd.DataFrame:
     """The master recession curve as a table: the recession index at each flow level.
 
     Segments are grouped by their geometric mean flow into ``bins`` classes of equal count; each
@@ -297,33 +336,66 @@ def master_recession(segments: pd.DataFrame, bins=6) -> pd.DataFrame:
         ``flow_low_m3s, flow_high_m3s, segments, recession_index_days, recession_index_q25,
         recession_index_q75``, from low to high flow.
     """
+    return master_columns(segments, bins).frame()
+
+
+def master_columns(segments, bins=6) -> ColumnTable:
+    """:func:`master_recession` as columns."""
     columns = MASTER_RECESSION_COLUMNS
-    seg = segments[np.isfinite(segments["slope"]) & (segments["slope"] < 0)]
-    if len(seg) < 2:
-        return empty_table(columns)
-    level = np.log10(seg["mean_flow_m3s"].to_numpy())
-    edges = np.unique(np.quantile(level, np.linspace(0.0, 1.0, min(bins, len(seg)) + 1)))
-    which = np.clip(np.searchsorted(edges, level, side="right") - 1, 0, edges.size - 2)
-    rows = []
-    for b in range(edges.size - 1):
-        part = seg[which == b]
-        if part.empty:
-            continue
-        k = float(
-            _k_from(part["slope"].to_numpy()[None, :], part["days"].to_numpy(float)[None, :], 0.5)[
-                0
-            ]
-        )
-        q25, q75 = np.percentile(part["recession_index_days"].to_numpy(), [25.0, 75.0])
-        rows.append([10 ** edges[b], 10 ** edges[b + 1], len(part), k, q25, q75])
-    return pd.DataFrame(rows, columns=columns)
+    slope = np.asarray(segments["slope"], dtype=float)
+    keep = np.isfinite(slope) & (slope < 0)
+    if keep.sum() < 2:
+        return ColumnTable.empty(columns)
+    slope = slope[keep]
+    days = np.asarray(segments["days"], dtype=float)[keep]
+    k_each = -1.0 / slope
+    level = np.log10(np.asarray(segments["mean_flow_m3s"], dtype=float)[keep])
+    edges = np.unique(np.quantile(level, np.linspace(0.0, 1.0, min(bins, slope.size) + 1)))
+    which = np.clip(np.searchsorted(edges, level, side="right") - 1, 0, max(edges.size - 2, 0))
+    # Sort by class, then by slope: each class is a run of sorted slopes (and of sorted K).
+    order = np.lexsort((slope, which))
+    which, slope, days, k_each = which[order], slope[order], days[order], k_each[order]
+    starts = np.r_[0, np.flatnonzero(np.diff(which)) + 1]
+    counts = np.diff(np.r_[starts, which.size])
+    # Length-weighted median slope of each class: the first slope whose share of the class's
+    # days reaches one half (as combine_segments does for the whole record).
+    cum = np.cumsum(days)
+    before = np.r_[0.0, cum][starts]
+    within = cum - np.repeat(before, counts)
+    half = np.repeat(0.5 * np.add.reduceat(days, starts), counts)
+    below = np.add.reduceat((within < half).astype(np.int64), starts)
+    median_slope = slope[starts + np.minimum(below, counts - 1)]
+    with np.errstate(divide="ignore"):
+        k = np.where(median_slope < 0, -1.0 / median_slope, np.nan)
+    present = which[starts]
+    table = {
+        "flow_low_m3s": 10 ** edges[present],
+        "flow_high_m3s": 10 ** edges[np.minimum(present + 1, edges.size - 1)],
+        "segments": counts.astype(np.int64),
+        "recession_index_days": k,
+        "recession_index_q25": _sorted_quantile(k_each, starts, counts, 0.25),
+        "recession_index_q75": _sorted_quantile(k_each, starts, counts, 0.75),
+    }
+    return ColumnTable(table, columns)
+
+
+def _sorted_quantile(values, starts, counts, p):
+    """Quantile ``p`` of each sorted run ``values[start : start + count]``.
+
+    Linear interpolation between order statistics, as ``numpy.percentile`` does by default.
+    """
+    position = p * (counts - 1)
+    low = np.floor(position).astype(np.int64)
+    high = np.minimum(low + 1, counts - 1)
+    weight = position - low
+    return values[starts + low] * (1.0 - weight) + values[starts + high] * weight
 
 
 #: Low-flow K over high-flow K beyond which the master recession curve is flagged (our own rule).
 LEVEL_RATIO = 1.5
 
 
-def master_recession_warnings(table: pd.DataFrame):
+def master_recession_warnings(table):
     """Caution when K changes with flow level on the master recession curve.
 
     A single homogeneous aquifer recedes at one K at every level. When the lowest-flow class
@@ -331,13 +403,13 @@ def master_recession_warnings(table: pd.DataFrame):
     the stream or evapotranspiration acts at low flow; one K then biases recharge (in tests with
     two aquifers in parallel, low by 10–20 %).
     """
-    usable = table[table["segments"] >= 5] if len(table) else table
-    if len(usable) < 3:
+    if len(table) == 0:
         return []
-    low, high = (
-        float(usable["recession_index_days"].iloc[0]),
-        float(usable["recession_index_days"].iloc[-1]),
-    )
+    enough = np.asarray(table["segments"]) >= 5
+    levels = np.asarray(table["recession_index_days"], dtype=float)[enough]
+    if levels.size < 3:
+        return []
+    low, high = float(levels[0]), float(levels[-1])
     if not (np.isfinite(low) and np.isfinite(high)) or high <= 0:
         return []
     ratio = low / high

@@ -83,23 +83,16 @@ def _turning_points(x, threshold):
             peaks = np.r_[peaks, n - 1]
     if peaks.size == 0:
         return np.empty(0, int), np.empty(0, int)
-    # Trough of each peak: the lowest day between the previous peak (exclusive) and this one.
+    # Trough of each peak: the lowest day between the previous peak (exclusive) and this one,
+    # the latest of equals. The spans tile x[: last peak + 1], so reduceat covers them at once.
     starts = np.r_[0, peaks[:-1] + 1]
-    segment = np.repeat(np.arange(peaks.size), peaks - starts + 1)
-    index = _ranges(starts, peaks + 1)
-    order = np.lexsort((-index, x[index], segment))
-    first_of_segment = np.r_[0, np.flatnonzero(np.diff(segment[order])) + 1]
-    troughs = index[order][first_of_segment]
+    lengths = peaks - starts + 1
+    span = x[: peaks[-1] + 1]
+    lowest = np.repeat(np.minimum.reduceat(span, starts), lengths)
+    at_lowest = np.where(span == lowest, np.arange(span.size), -1)
+    troughs = np.maximum.reduceat(at_lowest, starts)
     keep = troughs < peaks
     return troughs[keep], peaks[keep]
-
-
-def _ranges(starts, stops):
-    """Concatenated ``arange(start, stop)`` for each pair, without a Python loop."""
-    lengths = stops - starts
-    total = int(lengths.sum())
-    offsets = np.repeat(starts - np.r_[0, np.cumsum(lengths)[:-1]], lengths)
-    return np.arange(total) + offsets
 
 
 def _rise_hidden_in_gap(x, previous_end, b0, b1, troughs, threshold):

@@ -6,6 +6,7 @@ gives it no rows. Column types follow the names used throughout the result table
 
 from __future__ import annotations
 
+import numpy as np
 import pandas as pd
 
 #: Whole-number columns of the result tables.
@@ -56,3 +57,48 @@ def column_dtype(name: str) -> str:
 def empty_table(columns) -> pd.DataFrame:
     """A table with no rows and the given columns, each with its type."""
     return pd.DataFrame({c: pd.Series(dtype=column_dtype(c)) for c in columns})
+
+
+class ColumnTable:
+    """A table kept as numpy columns; a pandas DataFrame is built only when asked for.
+
+    The per-gauge work makes many small tables; building a DataFrame for each costs more
+    than the arithmetic. Tables of many gauges are stacked column by column (:func:`stack`).
+    """
+
+    __slots__ = ("columns", "order", "_frame")
+
+    def __init__(self, columns: dict, order=None):
+        self.columns = columns
+        self.order = list(order) if order is not None else list(columns)
+        self._frame = None
+
+    def __len__(self):
+        return len(next(iter(self.columns.values()))) if self.columns else 0
+
+    def __getitem__(self, name):
+        return self.columns[name]
+
+    def frame(self) -> pd.DataFrame:
+        """The table as a DataFrame (built once, then kept)."""
+        if self._frame is None:
+            if len(self) == 0:
+                self._frame = empty_table(self.order)
+            else:
+                self._frame = pd.DataFrame({c: self.columns[c] for c in self.order})
+        return self._frame
+
+    @classmethod
+    def empty(cls, order):
+        return cls({c: np.empty(0, dtype=column_dtype(c)) for c in order}, order)
+
+
+def stack(tables, keys, key_name, order) -> pd.DataFrame:
+    """One DataFrame of many tables, each row led by its table's key (e.g. the gauge id)."""
+    parts = [(key, t) for key, t in zip(keys, tables) if t is not None and len(t)]
+    if not parts:
+        return empty_table([key_name, *order])
+    data = {key_name: np.concatenate([np.full(len(t), key, dtype=object) for key, t in parts])}
+    for c in order:
+        data[c] = np.concatenate([np.asarray(t.columns[c]) for _, t in parts])
+    return pd.DataFrame(data)
