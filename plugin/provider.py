@@ -8,7 +8,12 @@ from pathlib import Path
 from qgis.core import QgsProcessingProvider
 from qgis.PyQt.QtGui import QIcon
 
+from .baseflow_separation import BaseflowSeparation
 from .catchment_recharge import CatchmentRecharge
+from .event_recharge import EventRecharge
+from .link_check import LinkCheckAlgorithm
+from .recession_index import RecessionIndex
+from .recharge_report import RechargeReport
 from .subbasin_recharge import SubbasinRecharge
 
 PLUGIN_DIR = Path(__file__).resolve().parent
@@ -16,7 +21,15 @@ ICON = PLUGIN_DIR / "icon.svg"
 METADATA = PLUGIN_DIR.parent / "metadata.txt"
 
 #: Algorithm classes the provider offers.
-ALGORITHMS = (CatchmentRecharge, SubbasinRecharge)
+ALGORITHMS = (
+    CatchmentRecharge,
+    SubbasinRecharge,
+    EventRecharge,
+    RecessionIndex,
+    BaseflowSeparation,
+    LinkCheckAlgorithm,
+    RechargeReport,
+)
 
 
 def plugin_version() -> str:

@@ -28,6 +28,7 @@ from support_qgis import (
     QUALITY_CODES,
     REQUIRED,
     SAMPLE,
+    TOOLBOX_SETTINGS,
     gpkg_layer,
     private_qt_folders,
     sample_parameters,
@@ -191,6 +192,44 @@ def core_run():
 
 
 @pytest.fixture(scope="session")
+def core_gauges():
+    """Run the core's gauge pipeline (``run_gauges``, no basins) on files:
+    ``core_gauges(gauges=..., discharge=..., area_field=..., **settings)``, the demo files by
+    default; results are kept for the session."""
+    from recharge_atlas.algorithms import files
+    from recharge_atlas.algorithms.pipeline import Settings, run_gauges
+
+    done = {}
+
+    def run(gauges=None, discharge=None, area_field=None, **settings):
+        gauges = str(gauges or SAMPLE / "gauges.gpkg")
+        discharge = str(discharge or SAMPLE / "discharge.csv")
+        key = (gauges, discharge, area_field, tuple(sorted(settings.items())))
+        if key not in done:
+            done[key] = run_gauges(
+                files.read_layer(gauges, "gauges"),
+                files.read_table(discharge),
+                Settings(**settings),
+                area_field=area_field,
+            )
+        return done[key]
+
+    return run
+
+
+@pytest.fixture(scope="session")
+def gauges_with_area(qgis_app, core_result, tmp_path_factory):
+    """A GeoPackage copy of the demo gauges with ``area_km2``: the drainage area of each
+    gauge's catchment as the core computes it, so gauge-only runs see the catchment runs'
+    areas."""
+    linked = core_result.catchments.dropna(subset=["gauge_id"])
+    areas = dict(zip(linked["gauge_id"], linked["area_km2"].astype(float)))
+    return write_gauges_copy(
+        tmp_path_factory.mktemp("gauges-area") / "gauges_area.gpkg", "area_km2", areas
+    )
+
+
+@pytest.fixture(scope="session")
 def one_gauge_discharge(tmp_path_factory):
     """The demo discharge table of gauge ONE_GAUGE only: runs on it take a fraction of the
     demo's time, while areas, links, nesting and that gauge's numbers are all computed."""
@@ -252,14 +291,144 @@ def qgis_process(tmp_path_factory):
     if not (QGIS_PLUGIN_PATH / "recharge_atlas").exists():
         pytest.skip(f"{QGIS_PLUGIN_PATH}/recharge_atlas is missing: run `make qgis-path`")
     home = tmp_path_factory.mktemp("qgis-process-home")
-    env = subprocess_env(home)
+    runner = QgisProcess(subprocess_env(home))
+    enabled = runner("plugins", "enable", "recharge_atlas")
+    assert enabled.returncode == 0, enabled.stdout + enabled.stderr
+    yield runner
+    shutil.rmtree(home, ignore_errors=True)
 
-    def run(*args, timeout=300):
+
+class QgisProcess:
+    """Runs ``qgis_process.bin`` in one environment: ``runner(*args)`` waits for the result;
+    ``runner.start(*args)`` returns at once, so several runs can share the two cores, and
+    ``runner.finish(process)`` waits for one."""
+
+    def __init__(self, env):
+        self.env = env
+
+    def __call__(self, *args, timeout=300):
         return subprocess.run(
-            [str(QGIS_PROCESS), *args], env=env, capture_output=True, text=True, timeout=timeout
+            [str(QGIS_PROCESS), *map(str, args)],
+            env=self.env,
+            capture_output=True,
+            text=True,
+            timeout=timeout,
         )
 
-    enabled = run("plugins", "enable", "recharge_atlas")
-    assert enabled.returncode == 0, enabled.stdout + enabled.stderr
-    yield run
-    shutil.rmtree(home, ignore_errors=True)
+    def start(self, *args):
+        return subprocess.Popen(
+            [str(QGIS_PROCESS), *map(str, args)],
+            env=self.env,
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
+
+    @staticmethod
+    def finish(process, timeout=300):
+        try:
+            stdout, stderr = process.communicate(timeout=timeout)
+        except subprocess.TimeoutExpired:
+            process.kill()
+            stdout, stderr = process.communicate()
+        return subprocess.CompletedProcess(process.args, process.returncode, stdout, stderr)
+
+
+@pytest.fixture(scope="session")
+def log_feedback(qgis_app):
+    """A QgsProcessingFeedback class that keeps every log line and progress text."""
+    from qgis.core import QgsProcessingFeedback
+
+    class LogFeedback(QgsProcessingFeedback):
+        def __init__(self):
+            super().__init__()
+            self.lines = []  # (kind, text)
+            self.progress_texts = []
+
+        def pushInfo(self, text):  # noqa: N802 (QGIS API name)
+            super().pushInfo(text)
+            self.lines.append(("info", text))
+
+        def pushWarning(self, text):  # noqa: N802
+            super().pushWarning(text)
+            self.lines.append(("warning", text))
+
+        def reportError(self, text, fatalError=False):  # noqa: N802, N803
+            super().reportError(text, fatalError)
+            self.lines.append(("error", text))
+
+        def setProgressText(self, text):  # noqa: N802
+            super().setProgressText(text)
+            self.progress_texts.append(text)
+
+        def text(self, kind=None):
+            return "\n".join(t for k, t in self.lines if kind is None or k == kind)
+
+    return LogFeedback
+
+
+@pytest.fixture(scope="session")
+def toolbox_runs(qgis_app, tmp_path_factory, gauges_with_area, one_gauge_discharge, log_feedback):
+    """One processing.run of each algorithm of the toolbox beside the two recharge ones, on the
+    demo region with the one-gauge discharge table (the other five gauges have no record, so
+    they are skipped and said so), each into its own GeoPackage, with its log kept.
+
+    Settings per algorithm are TOOLBOX_SETTINGS, so tests can run the core the same way."""
+    import processing
+
+    folder = tmp_path_factory.mktemp("toolbox")
+    gauges = {
+        "GAUGES": str(gauges_with_area),
+        "AREA_FIELD": "area_km2",
+        "DISCHARGE": str(one_gauge_discharge),
+    }
+    catchments = {
+        "GAUGES": str(SAMPLE / "gauges.gpkg"),
+        "CATCHMENTS": str(SAMPLE / "catchments.gpkg"),
+    }
+
+    def out(name, table, geometry=False):
+        return gpkg_layer(folder / f"{name}.gpkg", table, geometry=geometry)
+
+    parameters = {
+        "recessionindex": {
+            **gauges,
+            "OUTPUT": out("recessionindex", "gauges", True),
+            "SEGMENTS": out("recessionindex", "segments"),
+            "MASTER_RECESSION": out("recessionindex", "master_recession"),
+        },
+        "baseflowseparation": {
+            **gauges,
+            "BASEFLOW_METHOD": "Lyne-Hollick filter",
+            "OUTPUT": out("baseflowseparation", "gauges", True),
+            "DAILY": out("baseflowseparation", "daily"),
+        },
+        "eventrecharge": {
+            **gauges,
+            "WATER_YEAR_START": 4,
+            "OUTPUT": out("eventrecharge", "gauges", True),
+            "EVENTS": out("eventrecharge", "events"),
+        },
+        "linkcheck": {
+            **catchments,
+            "OUTPUT": out("linkcheck", "catchments", True),
+            "LINKS": out("linkcheck", "links"),
+        },
+        "rechargereport": {
+            **catchments,
+            "DISCHARGE": str(one_gauge_discharge),
+            "REPORT": str(folder / "report.html"),
+        },
+    }
+    runs = {}
+    for name, values in parameters.items():
+        feedback = log_feedback()
+        results = processing.run(f"recharge_atlas:{name}", values, feedback=feedback)
+        runs[name] = {
+            "path": folder / f"{name}.gpkg",
+            "results": results,
+            "log": feedback,
+            "parameters": values,
+            "settings": TOOLBOX_SETTINGS[name],
+        }
+    return runs

@@ -27,6 +27,17 @@ GIVEN_K = {"QM01": 60.0}
 #: HB05 drains a basin of its own (no gauge upstream or downstream) and has a full record.
 ONE_GAUGE = "HB05"
 
+#: The algorithms of the toolbox beside catchmentrecharge and subbasinrecharge.
+TOOLBOX = ("recessionindex", "baseflowseparation", "eventrecharge", "linkcheck", "rechargereport")
+#: The core Settings keywords of each toolbox run of the ``toolbox_runs`` fixture.
+TOOLBOX_SETTINGS = {
+    "recessionindex": {},
+    "baseflowseparation": {"baseflow_method": "lyne_hollick"},
+    "eventrecharge": {"water_year_start": 4},
+    "linkcheck": {},
+    "rechargereport": {},
+}
+
 IN_QGIS = os.environ.get("RECHARGE_ATLAS_IN_QGIS") == "1"
 REQUIRED = IN_QGIS and os.environ.get("RECHARGE_ATLAS_QGIS_REQUIRED") == "1"
 

@@ -33,9 +33,17 @@ def test_provider_lists_the_algorithm_with_its_icon(qgis_app):
     provider = QgsApplication.processingRegistry().providerById("recharge_atlas")
     assert provider.name() == "Recharge Atlas"
     assert not provider.icon().isNull()
-    ids = [a.id() for a in provider.algorithms()]
-    assert ids == ["recharge_atlas:catchmentrecharge", "recharge_atlas:subbasinrecharge"]
-    alg = provider.algorithms()[0]
+    ids = sorted(a.id() for a in provider.algorithms())
+    assert ids == [
+        "recharge_atlas:baseflowseparation",
+        "recharge_atlas:catchmentrecharge",
+        "recharge_atlas:eventrecharge",
+        "recharge_atlas:linkcheck",
+        "recharge_atlas:recessionindex",
+        "recharge_atlas:rechargereport",
+        "recharge_atlas:subbasinrecharge",
+    ]
+    alg = provider.algorithm("catchmentrecharge")
     assert alg.displayName() == "Catchment recharge"
     assert (alg.group(), alg.groupId()) == ("Recharge", "recharge")
     assert alg.canExecute() == (True, "")
