@@ -19,7 +19,7 @@ from .baseflow import BFIMAX_TYPICAL, METHODS, baseflow_index, separate_baseflow
 from .basins import LINK_TOLERANCE_M, geodesic_area_km2, link_by_id, link_spatially, repair_polygons
 from .discharge import MIN_DAY_COVERAGE, GaugeRecord, gauge_id_text, require_columns, tidy_discharge
 from .displacement import EVENT_COLUMNS, event_columns, event_volumes
-from .errors import Cancelled, InputError
+from .errors import InputError
 from .nesting import OVERLAP_TOLERANCE, find_nesting, incremental_recharge
 from .recession import (
     MASTER_RECESSION_COLUMNS,
@@ -139,6 +139,10 @@ class Settings:
         or ``empty``.
     subbasin_id_field, downstream_field : str
         Subbasin maps: the subbasins' id field and the field naming the subbasin each drains into.
+    workers : int
+        Processes that share the gauges (1: this process only). Results are identical.
+    dask_scheduler : str or None
+        Address of a Dask distributed scheduler to send the gauges to instead.
     """
 
     units: str = "m3/s"
@@ -166,6 +170,8 @@ class Settings:
     ungauged: str = "donor"
     subbasin_id_field: str = "subbasin_id"
     downstream_field: str = "downstream_id"
+    workers: int = 1
+    dask_scheduler: str | None = None
     catchment_field_given: bool | None = None
 
     def resolved(self) -> Settings:
@@ -221,6 +227,9 @@ class Settings:
             raise InputError(
                 f"overlap tolerance was {self.overlap_tolerance!r}; expected a share from 0 to 0.5"
             )
+        workers = _whole_number(self.workers)
+        if workers is None or workers < 1:
+            raise InputError(f"workers was {self.workers!r}; expected a whole number, 1 or more")
         if self.ungauged not in UNGAUGED_CHOICES:
             raise InputError(
                 f"ungauged was {self.ungauged!r}; expected one of {list(UNGAUGED_CHOICES)}"
@@ -243,6 +252,8 @@ class Settings:
             link_tolerance_m=tolerance,
             overlap_tolerance=overlap,
             reported_area_field=self.reported_area_field or None,
+            workers=workers,
+            dask_scheduler=self.dask_scheduler or None,
             flag_field=self.flag_field or None,
             flag_values=flags,
             recession_index_field=self.recession_index_field or None,
@@ -813,30 +824,96 @@ def _link_basins(gauges, gauge_ids, catchments, settings, reporter) -> _Basins:
     )
 
 
-def _compute_gauges(gauge_ids, records, area_of, settings, reporter, given_k, unlinked_note=None):
-    """The hydrology of every gauge; one that fails is flagged and the run goes on."""
-    results: dict[str, GaugeResult] = {}
-    failed = 0
-    total = len(gauge_ids)
-    for done, gid in enumerate(gauge_ids):
-        if reporter.cancelled():
-            raise Cancelled("run cancelled")
-        reporter.progress(done, total, gid)
-        area = area_of.get(gid, np.nan)
-        record = records.get(gid)
+def _gauge_group(payload):
+    """The hydrology of a group of gauges (run here or in a worker process)."""
+    items, settings, keep_series = payload
+    out = []
+    for gid, record, area, given in items:
+        failure = None
         if record is None:
             result = GaugeResult(gid, area, quality=["no discharge record for this gauge"])
         else:
             try:
-                result = gauge_hydrology(record, area, settings, given_k.get(gid))
+                result = gauge_hydrology(record, area, settings, given)
             except Exception as exc:  # one bad gauge never spoils the run
-                failed += 1
-                reporter.warning(f"gauge {gid}: could not be computed ({exc})")
+                failure = str(exc)
                 result = GaugeResult(gid, area, quality=[f"could not be computed: {exc}"])
-        if unlinked_note is not None and gid not in area_of:
-            result.quality.insert(0, unlinked_note(gid))
-        results[gid] = result
-    reporter.progress(total, total, None)
+        if not keep_series:
+            result.flow = result.baseflow = None
+        out.append((gid, result, failure))
+    return out
+
+
+def compute_gauges(
+    gauge_ids,
+    records,
+    area_of,
+    settings,
+    reporter,
+    given_k,
+    unlinked_note=None,
+    workers=None,
+    scheduler=None,
+    keep_series=True,
+):
+    """The hydrology of every gauge; one that fails is flagged and the run goes on.
+
+    Parameters
+    ----------
+    gauge_ids : list of str
+    records : dict of str to GaugeRecord
+    area_of : dict of str to float
+        Drainage area of each linked gauge (km²).
+    settings : Settings
+    reporter : Reporter
+    given_k : dict of str to float
+        Recession index given per gauge.
+    unlinked_note : callable, optional
+        Gives the quality note for a gauge without an area.
+    workers : int, optional
+        Processes to use (default ``settings.workers``); gauges go out in groups.
+    scheduler : str, optional
+        Address of a Dask distributed scheduler (default ``settings.dask_scheduler``).
+    keep_series : bool
+        Keep each gauge's daily flow and baseflow in its result (for the daily table and the
+        report); without them a large run holds only its tables.
+
+    Returns
+    -------
+    results : dict of str to GaugeResult
+        In the order of ``gauge_ids``; identical whatever the workers or scheduler.
+    failed : int
+    """
+    from .parallel import GROUP_SIZE, groups, map_groups
+
+    workers = settings.workers if workers is None else workers
+    scheduler = settings.dask_scheduler if scheduler is None else scheduler
+    total = len(gauge_ids)
+    serial = int(workers or 1) <= 1 and not scheduler
+    # One gauge at a time when serial, so progress and cancel follow every gauge.
+    batches = groups(gauge_ids, 1 if serial else GROUP_SIZE)
+    payloads = [
+        (
+            [(gid, records.get(gid), area_of.get(gid, np.nan), given_k.get(gid)) for gid in batch],
+            settings,
+            keep_series,
+        )
+        for batch in batches
+    ]
+    results: dict[str, GaugeResult] = {}
+    failed = 0
+    done = 0
+    reporter.progress(0, total, gauge_ids[0] if gauge_ids else None)
+    for group in map_groups(_gauge_group, payloads, workers, scheduler, reporter.cancelled):
+        for gid, result, failure in group:
+            if failure is not None:
+                failed += 1
+                reporter.warning(f"gauge {gid}: could not be computed ({failure})")
+            if unlinked_note is not None and gid not in area_of:
+                result.quality.insert(0, unlinked_note(gid))
+            results[gid] = result
+            done += 1
+        reporter.progress(done, total, gauge_ids[done] if done < total else None)
     unknown = sorted(set(records) - set(gauge_ids))
     if unknown:
         shown = ", ".join(unknown[:5]) + (" …" if len(unknown) > 5 else "")
@@ -897,7 +974,7 @@ def run_atlas(
     def unlinked(gid):
         return f"no single catchment linked ({links.notes.get(gid, 'not linked')}): depths not computed"
 
-    results, failed = _compute_gauges(
+    results, failed = compute_gauges(
         gauge_ids, records, area_of, settings, reporter, given_k, unlinked
     )
     for gid, note in _reported_area_notes(gauges, settings, area_of).items():
@@ -978,7 +1055,7 @@ def run_gauges(
         area_of = {
             g: float(v) for g, v in zip(ids, values) if g is not None and np.isfinite(v) and v > 0
         }
-    results, failed = _compute_gauges(gauge_ids, records, area_of, settings, reporter, given_k)
+    results, failed = compute_gauges(gauge_ids, records, area_of, settings, reporter, given_k)
     for gid, result in results.items():
         if result.quality:
             reporter.warning(f"gauge {gid}: {result.quality_text}")
