@@ -46,6 +46,10 @@ test-qgis: system qgis-path
 	QT_QPA_PLATFORM=offscreen PYTHONPATH=$(QGIS_PATH) RECHARGE_ATLAS_IN_QGIS=1 \
 	  $(QGIS_PYTHON) -m pytest -q -p no:cacheprovider $(PYTEST_ARGS)
 
+# The plugin as QGIS installs it: dist/recharge_atlas-<version>.zip (version from metadata.txt).
+plugin-zip:
+	$(PYTHON) tools/build-plugin-zip --out dist
+
 lint: venv
 	$(VENV)/bin/ruff check .
 

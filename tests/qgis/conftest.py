@@ -13,7 +13,6 @@ from __future__ import annotations
 import csv
 import os
 import shutil
-import subprocess
 import sys
 from pathlib import Path
 
@@ -29,6 +28,7 @@ from support_qgis import (
     REQUIRED,
     SAMPLE,
     TOOLBOX_SETTINGS,
+    QgisProcess,
     gpkg_layer,
     private_qt_folders,
     sample_parameters,
@@ -296,42 +296,6 @@ def qgis_process(tmp_path_factory):
     assert enabled.returncode == 0, enabled.stdout + enabled.stderr
     yield runner
     shutil.rmtree(home, ignore_errors=True)
-
-
-class QgisProcess:
-    """Runs ``qgis_process.bin`` in one environment: ``runner(*args)`` waits for the result;
-    ``runner.start(*args)`` returns at once, so several runs can share the two cores, and
-    ``runner.finish(process)`` waits for one."""
-
-    def __init__(self, env):
-        self.env = env
-
-    def __call__(self, *args, timeout=300):
-        return subprocess.run(
-            [str(QGIS_PROCESS), *map(str, args)],
-            env=self.env,
-            capture_output=True,
-            text=True,
-            timeout=timeout,
-        )
-
-    def start(self, *args):
-        return subprocess.Popen(
-            [str(QGIS_PROCESS), *map(str, args)],
-            env=self.env,
-            stdout=subprocess.PIPE,
-            stderr=subprocess.PIPE,
-            text=True,
-        )
-
-    @staticmethod
-    def finish(process, timeout=300):
-        try:
-            stdout, stderr = process.communicate(timeout=timeout)
-        except subprocess.TimeoutExpired:
-            process.kill()
-            stdout, stderr = process.communicate()
-        return subprocess.CompletedProcess(process.args, process.returncode, stdout, stderr)
 
 
 @pytest.fixture(scope="session")

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 import os
+import subprocess
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
@@ -238,3 +239,39 @@ def assert_catchments_are(layer, core):
     from recharge_atlas.algorithms.pipeline import CATCHMENT_FIELDS
 
     assert_table_is(layer, core.catchments, "catchments", fields=CATCHMENT_FIELDS)
+
+
+class QgisProcess:
+    """Runs ``qgis_process.bin`` in one environment: ``runner(*args)`` waits for the result;
+    ``runner.start(*args)`` returns at once, so several runs can share the two cores, and
+    ``runner.finish(process)`` waits for one."""
+
+    def __init__(self, env):
+        self.env = env
+
+    def __call__(self, *args, timeout=300):
+        return subprocess.run(
+            [str(QGIS_PROCESS), *map(str, args)],
+            env=self.env,
+            capture_output=True,
+            text=True,
+            timeout=timeout,
+        )
+
+    def start(self, *args):
+        return subprocess.Popen(
+            [str(QGIS_PROCESS), *map(str, args)],
+            env=self.env,
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
+
+    @staticmethod
+    def finish(process, timeout=300):
+        try:
+            stdout, stderr = process.communicate(timeout=timeout)
+        except subprocess.TimeoutExpired:
+            process.kill()
+            stdout, stderr = process.communicate()
+        return subprocess.CompletedProcess(process.args, process.returncode, stdout, stderr)

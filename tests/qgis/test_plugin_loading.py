@@ -272,20 +272,28 @@ HIDDEN_PANDAS = textwrap.dedent(
         run_error = None
     except QgsProcessingException as exc:
         run_error = str(exc)
+    try:
+        processing.run("recharge_atlas:linkcheck", {link_parameters!r})
+        link_error = None
+    except QgsProcessingException as exc:
+        link_error = str(exc)
+    provider = registry.providerById("recharge_atlas")
     print(json.dumps({{
-        "provider": registry.providerById("recharge_atlas") is not None,
+        "provider": provider is not None,
         "algorithm": alg is not None,
         "ok": ok,
         "message": message,
         "run_error": run_error,
+        "link_error": link_error,
+        "every": {{a.name(): list(a.canExecute()) for a in provider.algorithms()}},
     }}))
     """
 )
 
 
 def test_plugin_loads_without_pandas_and_says_what_to_install(tmp_path):
-    """With pandas hidden the provider and algorithm still register; canExecute and a
-    headless run both give the install message."""
+    """With pandas hidden the provider and every algorithm still register; canExecute and
+    headless runs all give the install message."""
     home = tmp_path / "home"
     home.mkdir()
     parameters = {
@@ -294,10 +302,18 @@ def test_plugin_loads_without_pandas_and_says_what_to_install(tmp_path):
         "CATCHMENTS": str(SAMPLE / "catchments.gpkg"),
         "OUTPUT": str(tmp_path / "never.gpkg"),
     }
+    link_parameters = {
+        "GAUGES": str(SAMPLE / "gauges.gpkg"),
+        "CATCHMENTS": str(SAMPLE / "catchments.gpkg"),
+        "OUTPUT": str(tmp_path / "never_links.gpkg"),
+    }
     script = tmp_path / "hidden_pandas.py"
     script.write_text(
         HIDDEN_PANDAS.format(
-            processing=str(PROCESSING_PLUGINS), profile=str(home / "profile"), parameters=parameters
+            processing=str(PROCESSING_PLUGINS),
+            profile=str(home / "profile"),
+            parameters=parameters,
+            link_parameters=link_parameters,
         )
     )
     done = subprocess.run(
@@ -316,3 +332,8 @@ def test_plugin_loads_without_pandas_and_says_what_to_install(tmp_path):
     assert "OSGeo4W" in report["message"]
     assert report["run_error"] == report["message"]
     assert not (tmp_path / "never.gpkg").exists()
+    assert len(report["every"]) == 7
+    for name, (ok, message) in report["every"].items():
+        assert (ok, message) == (False, report["message"]), name
+    assert report["link_error"] == report["message"], "no discharge, still the message"
+    assert not (tmp_path / "never_links.gpkg").exists()
