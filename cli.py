@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+import time
 from pathlib import Path
 
 from recharge_atlas.algorithms.units import DISCHARGE_UNITS, UNIT_ALIASES
@@ -100,6 +101,19 @@ def _parser():
     _add_field_options(run)
     _add_method_options(run)
     _add_basin_options(run)
+    speed = run.add_argument_group("speed")
+    speed.add_argument(
+        "--workers",
+        type=int,
+        default=1,
+        metavar="N",
+        help="processes that share the gauges (default 1); results are identical",
+    )
+    speed.add_argument(
+        "--dask-scheduler",
+        metavar="ADDRESS",
+        help="send the gauges to an existing Dask distributed cluster, e.g. tcp://10.0.0.5:8786 (needs dask and distributed)",
+    )
 
     demo = sub.add_parser(
         "demo",
@@ -273,22 +287,66 @@ def _add_method_options(run):
 
 
 class _StderrReporter:
-    """Prints per-gauge cautions and the summary to stderr."""
+    """Prints per-gauge cautions and the summary to stderr, and a progress line on a terminal.
+
+    The progress line (gauges done, rate, time left) is drawn only when stderr is a terminal
+    and the run lasts more than a moment; redirected output gets no progress noise.
+    """
 
     def __init__(self, stream=None):
         self.stream = stream or sys.stderr
+        self.interactive = hasattr(self.stream, "isatty") and self.stream.isatty()
+        self.started = None
+        self.shown = 0.0
+        self.line = False
 
     def progress(self, done, total, gauge_id=None):
-        pass
+        if not self.interactive or total <= 0:
+            return
+        now = time.monotonic()
+        if self.started is None:
+            self.started = now
+        elapsed = now - self.started
+        finished = done >= total
+        if (now - self.shown < 0.5 or elapsed < 1.0) and not (finished and self.line):
+            return
+        self.shown = now
+        rate = done / elapsed if elapsed > 0 else 0.0
+        left = (total - done) / rate if rate > 0 else float("nan")
+        text = f"gauges {done:,}/{total:,} ({100 * done / total:.0f}%), {rate:,.1f} gauges/s"
+        if not finished and left == left:
+            text += f", about {_duration(left)} left"
+        self.stream.write("\r" + text.ljust(70))
+        self.line = True
+        if finished:
+            self.stream.write("\n")
+            self.line = False
+        self.stream.flush()
 
     def cancelled(self):
         return False
 
+    def _end_line(self):
+        if self.line:
+            self.stream.write("\n")
+            self.line = False
+
     def info(self, text):
+        self._end_line()
         print(text, file=self.stream)
 
     def warning(self, text):
+        self._end_line()
         print(f"caution: {text}", file=self.stream)
+
+
+def _duration(seconds):
+    seconds = int(round(seconds))
+    if seconds < 90:
+        return f"{seconds} s"
+    if seconds < 5400:
+        return f"{seconds // 60} min"
+    return f"{seconds / 3600:.1f} h"
 
 
 def run_files(
@@ -340,10 +398,14 @@ def run_files(
     what = "subbasins" if subbasins is not None else "catchments"
     basin_layer = files.read_layer(basins, what)
     table = files.read_table(discharge, "discharge table")
+    # Daily series are kept only when an output needs them: a large run then holds its tables.
+    keep_series = bool(daily or report_path)
     if subbasins is not None:
-        result = run_atlas_subbasins(gauge_layer, basin_layer, table, settings, reporter)
+        result = run_atlas_subbasins(
+            gauge_layer, basin_layer, table, settings, reporter, keep_series
+        )
     else:
-        result = run_atlas(gauge_layer, basin_layer, table, settings, reporter)
+        result = run_atlas(gauge_layer, basin_layer, table, settings, reporter, keep_series)
     files.write_geopackage(result, out, daily=daily)
     from recharge_atlas.algorithms.maps import recharge_map, year_maps
 
@@ -407,6 +469,8 @@ def _settings(args):
         ungauged=args.ungauged,
         subbasin_id_field=args.subbasin_id_field,
         downstream_field=args.downstream_field,
+        workers=args.workers,
+        dask_scheduler=args.dask_scheduler,
     )
 
 

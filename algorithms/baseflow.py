@@ -85,7 +85,7 @@ def _bounded_recursion(a, u, y_first, bound, upper=True):
     if n == 1:
         return y
     pick = np.minimum if upper else np.maximum
-    chunk = min(n - 1, max(1, int(np.floor(300.0 / max(-np.log(a), 1e-12)))))
+    chunk = min(n - 1, max(1, int(np.floor(600.0 / max(-np.log(a), 1e-12)))))
     # a^s and a^−s for s = 0 … chunk − 1, by running products (exact to ~chunk × 1e-16).
     grow = np.cumprod(np.r_[1.0, np.full(chunk - 1, 1.0 / a)])
     shrink = np.cumprod(np.r_[1.0, np.full(chunk - 1, a)])

@@ -937,6 +937,7 @@ def run_atlas(
     discharge: pd.DataFrame,
     settings: Settings | None = None,
     reporter: Reporter | None = None,
+    keep_series: bool = True,
 ) -> AtlasResult:
     """Estimate recharge for every gauge and attach it to the catchments.
 
@@ -951,6 +952,9 @@ def run_atlas(
     settings : Settings, optional
     reporter : Reporter, optional
         Receives progress, cancel checks and per-gauge warnings.
+    keep_series : bool
+        Keep every gauge's daily flow and baseflow (for :meth:`AtlasResult.daily` and the
+        report). A large run without them holds only its tables.
 
     Returns
     -------
@@ -975,7 +979,7 @@ def run_atlas(
         return f"no single catchment linked ({links.notes.get(gid, 'not linked')}): depths not computed"
 
     results, failed = compute_gauges(
-        gauge_ids, records, area_of, settings, reporter, given_k, unlinked
+        gauge_ids, records, area_of, settings, reporter, given_k, unlinked, keep_series=keep_series
     )
     for gid, note in _reported_area_notes(gauges, settings, area_of).items():
         results[gid].quality.append(note)
@@ -1032,6 +1036,7 @@ def run_gauges(
     settings: Settings | None = None,
     reporter: Reporter | None = None,
     area_field=None,
+    keep_series: bool = True,
 ) -> AtlasResult:
     """The hydrology of every gauge without catchments: K, events, baseflow, annual terms.
 
@@ -1055,7 +1060,9 @@ def run_gauges(
         area_of = {
             g: float(v) for g, v in zip(ids, values) if g is not None and np.isfinite(v) and v > 0
         }
-    results, failed = compute_gauges(gauge_ids, records, area_of, settings, reporter, given_k)
+    results, failed = compute_gauges(
+        gauge_ids, records, area_of, settings, reporter, given_k, keep_series=keep_series
+    )
     for gid, result in results.items():
         if result.quality:
             reporter.warning(f"gauge {gid}: {result.quality_text}")
@@ -1118,6 +1125,7 @@ def run_atlas_subbasins(
     discharge: pd.DataFrame,
     settings: Settings | None = None,
     reporter: Reporter | None = None,
+    keep_series: bool = True,
 ) -> AtlasResult:
     """Estimate recharge with basins described as a subbasin map.
 
@@ -1167,7 +1175,7 @@ def run_atlas_subbasins(
     basin_settings = replace(
         settings, link="id", catchment_gauge_field="gauge_id", catchment_field_given=True
     )
-    result = run_atlas(gauges, basins, discharge, basin_settings, reporter)
+    result = run_atlas(gauges, basins, discharge, basin_settings, reporter, keep_series)
     # Say in the links table why a gauge found no subbasin.
     for gid, note in notes.items():
         result.links.loc[result.links["gauge_id"] == gid, "note"] = note

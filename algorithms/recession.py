@@ -14,6 +14,7 @@ streamflow. IASH Publication 63, 432–441: critical time 0.2144 K; recession-cu
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -246,16 +247,30 @@ def combine_segments(segments, quantile=0.5, n_boot=200, seed=0):
     k = float(_k_from(slopes, weights[None, :], quantile)[0])
     if slopes.size < 2 or n_boot <= 0:
         return k, np.nan, np.nan
-    rng = np.random.default_rng(seed)
-    n = slopes.size
-    picks = rng.integers(0, n, size=(n_boot, n)) + (np.arange(n_boot) * n)[:, None]
-    counts = np.bincount(picks.ravel(), minlength=n_boot * n).reshape(n_boot, n)
+    counts = _resample_counts(slopes.size, n_boot, seed)
     boot = _k_from(slopes, counts * weights[None, :], quantile)
-    boot = boot[np.isfinite(boot)]
+    boot = np.sort(boot[np.isfinite(boot)])
     if boot.size == 0:
         return k, np.nan, np.nan
-    low, high = np.percentile(boot, [5.0, 95.0])
+    low, high = (
+        _sorted_quantile(boot, np.zeros(1, np.int64), np.array([boot.size]), p)[0]
+        for p in (0.05, 0.95)
+    )
     return k, float(low), float(high)
+
+
+@functools.lru_cache(maxsize=64)
+def _resample_counts(n, n_boot, seed):
+    """How often each of ``n`` segments is drawn in each of ``n_boot`` resamples (read-only).
+
+    The seed is fixed, so a given number of segments always gets the same resamples: they are
+    drawn once and kept.
+    """
+    rng = np.random.default_rng(seed)
+    picks = rng.integers(0, n, size=(n_boot, n)) + (np.arange(n_boot) * n)[:, None]
+    counts = np.bincount(picks.ravel(), minlength=n_boot * n).reshape(n_boot, n).astype(float)
+    counts.setflags(write=False)
+    return counts
 
 
 def _k_from(sorted_slopes, weights, quantile):

@@ -39,8 +39,19 @@ def noise_level(logq) -> float:
     second = second[np.isfinite(second)]
     if second.size < 10:
         return 0.0
-    mad = np.median(np.abs(second - np.median(second)))
+    centre = _median(second)
+    mad = _median(np.abs(second - centre))
     return float(MAD_TO_SIGMA * mad / np.sqrt(6.0))
+
+
+def _median(values):
+    """The median, by one partial sort (no copy checks, no NaN handling: values are finite)."""
+    n = values.size
+    half = n // 2
+    if n % 2:
+        return float(np.partition(values, half)[half])
+    part = np.partition(values, (half - 1, half))
+    return 0.5 * float(part[half - 1] + part[half])
 
 
 def rise_threshold(logq, min_rise=0.01, noise_multiple=5.0) -> float:

@@ -1,0 +1,124 @@
+"""Parallel runs give the same numbers as serial ones; progress on a terminal; the benchmark runs."""
+
+from __future__ import annotations
+
+import io
+import subprocess
+import sys
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from recharge_atlas.algorithms.pipeline import Settings, run_atlas
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def _same(a, b):
+    pd.testing.assert_frame_equal(
+        a.catchments.drop(columns="geometry"), b.catchments.drop(columns="geometry")
+    )
+    for table in ("annual", "events", "periods", "segments", "master_recession"):
+        pd.testing.assert_frame_equal(getattr(a, table), getattr(b, table), obj=table)
+
+
+@pytest.fixture(scope="module")
+def serial(demo_region):
+    return run_atlas(demo_region.gauges, demo_region.catchments, demo_region.discharge)
+
+
+def test_two_local_workers_give_identical_results(demo_region, serial):
+    parallel = run_atlas(
+        demo_region.gauges, demo_region.catchments, demo_region.discharge, Settings(workers=2)
+    )
+    _same(serial, parallel)
+
+
+def test_a_dask_local_cluster_gives_identical_results(demo_region, serial):
+    distributed = pytest.importorskip("distributed")
+    with distributed.LocalCluster(
+        n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None
+    ) as cluster:
+        on_cluster = run_atlas(
+            demo_region.gauges,
+            demo_region.catchments,
+            demo_region.discharge,
+            Settings(dask_scheduler=cluster.scheduler_address),
+        )
+    _same(serial, on_cluster)
+
+
+def test_unreachable_scheduler_is_a_clear_error(demo_region):
+    pytest.importorskip("distributed")
+    from recharge_atlas.algorithms.errors import InputError
+
+    with pytest.raises(InputError, match="could not reach the Dask scheduler"):
+        run_atlas(
+            demo_region.gauges,
+            demo_region.catchments,
+            demo_region.discharge,
+            Settings(dask_scheduler="tcp://127.0.0.1:9"),
+        )
+
+
+def test_workers_must_be_a_whole_number():
+    from recharge_atlas.algorithms.errors import InputError
+
+    with pytest.raises(InputError, match="workers was 0"):
+        Settings(workers=0).resolved()
+
+
+def test_without_series_a_run_keeps_only_its_tables(demo_region, serial):
+    lean = run_atlas(
+        demo_region.gauges, demo_region.catchments, demo_region.discharge, keep_series=False
+    )
+    assert all(g.flow is None and g.baseflow is None for g in lean.gauges.values())
+    _same(serial, lean)
+
+
+class _Terminal(io.StringIO):
+    def isatty(self):
+        return True
+
+
+def test_progress_line_only_on_a_terminal(monkeypatch):
+    from recharge_atlas import cli
+
+    clock = iter(range(0, 1000, 2))
+    monkeypatch.setattr(cli.time, "monotonic", lambda: float(next(clock)))
+    terminal = _Terminal()
+    reporter = cli._StderrReporter(terminal)
+    for done in range(0, 11):
+        reporter.progress(done, 10)
+    text = terminal.getvalue()
+    assert "gauges 10/10 (100%)" in text and "gauges/s" in text and "left" in text
+    piped = io.StringIO()
+    quiet = cli._StderrReporter(piped)
+    for done in range(0, 11):
+        quiet.progress(done, 10)
+    assert piped.getvalue() == ""
+
+
+def test_benchmark_prints_its_ratios(tmp_path):
+    run = subprocess.run(
+        [
+            sys.executable,
+            str(ROOT / "benchmarks" / "run.py"),
+            "--gauges",
+            "6",
+            "--years",
+            "3",
+            "--skip-end-to-end",
+        ],
+        capture_output=True,
+        text=True,
+        timeout=300,
+    )
+    assert run.returncode == 0, run.stderr
+    last = run.stdout.strip().splitlines()[-3:]
+    assert [line.split("=")[0] for line in last] == [
+        "limit_ratio",
+        "memory_ratio",
+        "workers_speedup",
+    ]
