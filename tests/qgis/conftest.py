@@ -27,6 +27,7 @@ from support_qgis import (
     QUALITY_CODES,
     REQUIRED,
     SAMPLE,
+    SHORT_YEARS,
     TOOLBOX_SETTINGS,
     QgisProcess,
     gpkg_layer,
@@ -243,6 +244,20 @@ def one_gauge_discharge(tmp_path_factory):
 
 
 @pytest.fixture(scope="session")
+def short_discharge(tmp_path_factory):
+    """The first SHORT_YEARS water years of gauge ONE_GAUGE only: for headless runs, whose
+    report and reading time grow with the record."""
+    path = tmp_path_factory.mktemp("short") / "discharge_short.csv"
+    end = f"{2000 + SHORT_YEARS}-10-01"
+    with open(SAMPLE / "discharge.csv", newline="") as src, open(path, "w", newline="") as dst:
+        reader = csv.DictReader(src)
+        writer = csv.DictWriter(dst, fieldnames=reader.fieldnames)
+        writer.writeheader()
+        writer.writerows(r for r in reader if r["gauge_id"] == ONE_GAUGE and r["date"] < end)
+    return path
+
+
+@pytest.fixture(scope="session")
 def flagged_discharge(tmp_path_factory):
     """The demo discharge table with a ``code`` column (invented codes; most rows empty)."""
     path = tmp_path_factory.mktemp("flagged") / "discharge_codes.csv"
@@ -332,10 +347,13 @@ def log_feedback(qgis_app):
 
 
 @pytest.fixture(scope="session")
-def toolbox_runs(qgis_app, tmp_path_factory, gauges_with_area, one_gauge_discharge, log_feedback):
+def toolbox_runs(
+    qgis_app, tmp_path_factory, gauges_with_area, one_gauge_discharge, short_discharge, log_feedback
+):
     """One processing.run of each algorithm of the toolbox beside the two recharge ones, on the
     demo region with the one-gauge discharge table (the other five gauges have no record, so
-    they are skipped and said so), each into its own GeoPackage, with its log kept.
+    they are skipped and said so; the report takes the short table, as its pictures take
+    time), each into its own GeoPackage, with its log kept.
 
     Settings per algorithm are TOOLBOX_SETTINGS, so tests can run the core the same way."""
     import processing
@@ -380,7 +398,7 @@ def toolbox_runs(qgis_app, tmp_path_factory, gauges_with_area, one_gauge_dischar
         },
         "rechargereport": {
             **catchments,
-            "DISCHARGE": str(one_gauge_discharge),
+            "DISCHARGE": str(short_discharge),
             "REPORT": str(folder / "report.html"),
         },
     }

@@ -27,6 +27,9 @@ GIVEN_K = {"QM01": 60.0}
 #: The gauge of the one-gauge discharge table: the only record there, so runs on it are quick.
 #: HB05 drains a basin of its own (no gauge upstream or downstream) and has a full record.
 ONE_GAUGE = "HB05"
+#: Water years of the short table of ONE_GAUGE (from October 2000): enough for K, complete
+#: years and a report, in a fraction of the time.
+SHORT_YEARS = 6
 
 #: The algorithms of the toolbox beside catchmentrecharge and subbasinrecharge.
 TOOLBOX = ("recessionindex", "baseflowseparation", "eventrecharge", "linkcheck", "rechargereport")

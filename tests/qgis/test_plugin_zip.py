@@ -127,7 +127,7 @@ def _args(algorithm, **parameters):
     ]
 
 
-#: Headless runs of the toolbox on the one-gauge table: algorithm -> (parameters, outputs),
+#: Headless runs of the toolbox on the short one-gauge table: algorithm -> (parameters, outputs),
 #: the longest first. Values as a script or a batch file passes them: enums by the core's id,
 #: numbers as text.
 HEADLESS = {
@@ -147,7 +147,7 @@ AT_ONCE = 2
 
 
 @pytest.fixture(scope="module")
-def headless_runs(installed, gauges_with_area, one_gauge_discharge, tmp_path_factory):
+def headless_runs(installed, gauges_with_area, short_discharge, tmp_path_factory):
     """``qgis_process.bin list`` and each toolbox algorithm, from the installed zip, two at a
     time (the longest first); returns {name: (finished process, {output: path})}."""
     from concurrent.futures import ThreadPoolExecutor
@@ -162,7 +162,7 @@ def headless_runs(installed, gauges_with_area, one_gauge_discharge, tmp_path_fac
         if name in ("linkcheck", "rechargereport"):
             inputs["CATCHMENTS"] = SAMPLE / "catchments.gpkg"
         if name != "linkcheck":
-            inputs["DISCHARGE"] = one_gauge_discharge
+            inputs["DISCHARGE"] = short_discharge
         jobs[name] = (_args(name, **inputs, **parameters, **paths), paths)
     jobs["list"] = (["list"], {})
     with ThreadPoolExecutor(max_workers=AT_ONCE) as pool:
@@ -193,12 +193,12 @@ def test_qgis_process_lists_the_toolbox(headless_runs):
 
 
 def test_recession_index_from_the_zip(
-    headless_runs, core_gauges, gauges_with_area, one_gauge_discharge
+    headless_runs, core_gauges, gauges_with_area, short_discharge
 ):
     layers = _finished(headless_runs, "recessionindex")
     core = core_gauges(
         gauges=gauges_with_area,
-        discharge=one_gauge_discharge,
+        discharge=short_discharge,
         area_field="area_km2",
         min_segment_days=10,
     )
@@ -207,12 +207,12 @@ def test_recession_index_from_the_zip(
 
 
 def test_baseflow_separation_from_the_zip(
-    headless_runs, core_gauges, gauges_with_area, one_gauge_discharge
+    headless_runs, core_gauges, gauges_with_area, short_discharge
 ):
     layers = _finished(headless_runs, "baseflowseparation")
     core = core_gauges(
         gauges=gauges_with_area,
-        discharge=one_gauge_discharge,
+        discharge=short_discharge,
         units="ML/d",
         baseflow_method="smoothed_minima",
     )
@@ -221,13 +221,11 @@ def test_baseflow_separation_from_the_zip(
     assert_table_is(layers["OUTPUT"], core.gauge_table()[fields], "gauges", fields=fields)
 
 
-def test_event_recharge_from_the_zip(
-    headless_runs, core_gauges, gauges_with_area, one_gauge_discharge
-):
+def test_event_recharge_from_the_zip(headless_runs, core_gauges, gauges_with_area, short_discharge):
     layers = _finished(headless_runs, "eventrecharge")
     core = core_gauges(
         gauges=gauges_with_area,
-        discharge=one_gauge_discharge,
+        discharge=short_discharge,
         area_field="area_km2",
         recession_index_days=40.0,
     )
