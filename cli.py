@@ -110,6 +110,13 @@ def _parser():
         help="processes that share the gauges (default 1); results are identical",
     )
     speed.add_argument(
+        "--gauges-per-group",
+        type=int,
+        metavar="N",
+        help="read the discharge table N gauges at a time, for tables larger than memory "
+        "(default: 500 when the file is over 256 MB; 0 reads it whole)",
+    )
+    speed.add_argument(
         "--dask-scheduler",
         metavar="ADDRESS",
         help="send the gauges to an existing Dask distributed cluster, e.g. tcp://10.0.0.5:8786 (needs dask and distributed)",
@@ -363,6 +370,7 @@ def run_files(
     year_maps_path=None,
     scheme="quantiles",
     classes=5,
+    gauges_per_group=None,
 ):
     """Read the inputs, run the pipeline and write the outputs. Returns the AtlasResult.
 
@@ -397,7 +405,7 @@ def run_files(
     gauge_layer = files.read_layer(gauges, "gauges")
     what = "subbasins" if subbasins is not None else "catchments"
     basin_layer = files.read_layer(basins, what)
-    table = files.read_table(discharge, "discharge table")
+    table = _discharge(files, discharge, gauge_layer, settings, gauges_per_group)
     # Daily series are kept only when an output needs them: a large run then holds its tables.
     keep_series = bool(daily or report_path)
     if subbasins is not None:
@@ -432,6 +440,28 @@ def run_files(
             reporter=reporter,
         )
     return result
+
+
+def _discharge(files, path, gauge_layer, settings, gauges_per_group):
+    """The discharge table whole, or (large files) an iterator over gauge groups of it."""
+    from recharge_atlas.algorithms.discharge import gauge_id_text, require_columns
+    from recharge_atlas.algorithms.errors import InputError
+
+    file_path = files.split_layer(path)[0]
+    if gauges_per_group is None:
+        large = file_path.exists() and file_path.stat().st_size > files.STREAM_BYTES
+        gauges_per_group = files.GAUGES_PER_GROUP if large else 0
+    if gauges_per_group < 0:
+        raise InputError(f"gauges per group was {gauges_per_group}; expected 0 or more")
+    if gauges_per_group == 0:
+        return files.read_table(path, "discharge table")
+    require_columns(gauge_layer, [settings.gauge_id_field], "gauges layer")
+    ids = [
+        g
+        for g in dict.fromkeys(gauge_id_text(gauge_layer[settings.gauge_id_field].to_numpy()))
+        if g is not None
+    ]
+    return files.discharge_groups(path, settings.discharge_gauge_field, ids, gauges_per_group)
 
 
 def _same_file(a, b):
@@ -532,6 +562,7 @@ def main(argv=None):
             year_maps_path=args.year_maps,
             scheme=args.classes.replace("-", "_"),
             classes=args.class_count,
+            gauges_per_group=args.gauges_per_group,
         )
         written = [p for p in (args.out, args.map, args.year_maps, args.report) if p]
         print("wrote " + ", ".join(written))

@@ -66,13 +66,8 @@ def read_table(path, what="discharge table"):
     suffix = file_path.suffix.lower()
     try:
         if suffix in TEXT_SUFFIXES:
-            sep = "\t" if suffix == ".tsv" else None
             return pd.read_csv(
-                file_path,
-                dtype=str,
-                sep=sep,
-                engine="python" if sep is None else "c",
-                skipinitialspace=True,
+                file_path, dtype=str, sep=_separator(file_path), skipinitialspace=True
             )
         if suffix == ".parquet":
             return pd.read_parquet(file_path)
@@ -86,6 +81,124 @@ def read_table(path, what="discharge table"):
     if "geometry" in frame.columns:
         frame = pd.DataFrame(frame.drop(columns="geometry"))
     return frame
+
+
+def _separator(file_path):
+    """The column separator of a text table, judged from its first line (comma by default)."""
+    if file_path.suffix.lower() == ".tsv":
+        return "\t"
+    with open(file_path, encoding="utf-8", errors="replace") as handle:
+        first = handle.readline()
+    counts = {sep: first.count(sep) for sep in (",", ";", "\t", "|")}
+    best = max(counts, key=counts.get)
+    return best if counts[best] else ","
+
+
+#: A discharge table file larger than this is read gauge group by gauge group (bytes).
+STREAM_BYTES = 256 * 1024**2
+#: Gauges per group when a large table is read in groups.
+GAUGES_PER_GROUP = 500
+
+
+def discharge_groups(
+    path, gauge_field, gauge_ids, gauges_per_group=GAUGES_PER_GROUP, what="discharge table"
+):
+    """Read a discharge table a gauge group at a time: every row of each group's gauges.
+
+    Only one group's rows are in memory at a time, so tables far larger than memory can be
+    processed. Parquet is filtered by gauge id (row groups whose statistics rule the gauges out
+    are skipped); text tables are read once in chunks and split into one temporary file per
+    group beside nothing else, removed afterwards. Other formats are read whole. Rows of gauges
+    that are not in ``gauge_ids`` are left out.
+    """
+    file_path, _layer = _existing(path, what)
+    gauge_ids = list(gauge_ids)
+    size = max(int(gauges_per_group), 1)
+    batches = [gauge_ids[i : i + size] for i in range(0, len(gauge_ids), size)]
+    suffix = file_path.suffix.lower()
+    if suffix == ".parquet":
+        yield from _parquet_groups(file_path, gauge_field, batches, what)
+    elif suffix in TEXT_SUFFIXES:
+        yield from _text_groups(file_path, gauge_field, batches, what)
+    else:
+        yield read_table(path, what)
+
+
+def _parquet_groups(file_path, gauge_field, batches, what):
+    try:
+        import pyarrow as pa
+        import pyarrow.parquet as pq
+    except ImportError:
+        raise InputError(
+            "reading Parquet needs the Python package pyarrow", file=str(file_path)
+        ) from None
+    try:
+        schema = pq.ParquetFile(file_path).schema_arrow
+    except Exception as exc:
+        raise InputError(
+            f"the {what} file could not be read: {_first_line(exc)}", file=str(file_path)
+        ) from None
+    if gauge_field not in schema.names:
+        raise InputError(
+            f"the {what} has no field {gauge_field!r}; fields found: {', '.join(schema.names)}",
+            file=str(file_path),
+        )
+    kind = schema.field(gauge_field).type
+    for batch in batches:
+        if pa.types.is_integer(kind) or pa.types.is_floating(kind):
+            values = [
+                float(g) if pa.types.is_floating(kind) else int(g) for g in batch if _is_number(g)
+            ]
+        else:
+            values = [str(g) for g in batch]
+        if not values:
+            continue
+        yield pq.read_table(file_path, filters=[(gauge_field, "in", values)]).to_pandas()
+
+
+def _is_number(text):
+    try:
+        return float(text) == int(float(text))
+    except (TypeError, ValueError, OverflowError):
+        return False
+
+
+def _text_groups(file_path, gauge_field, batches, what):
+    from .discharge import gauge_id_text
+
+    group_of = {gid: i for i, batch in enumerate(batches) for gid in batch}
+    sep = _separator(file_path)
+    with tempfile.TemporaryDirectory(prefix="recharge-atlas-groups-") as folder:
+        written = set()
+        reader = pd.read_csv(
+            file_path, dtype=str, sep=sep, skipinitialspace=True, chunksize=500_000
+        )
+        try:
+            for chunk in reader:
+                if gauge_field not in chunk.columns:
+                    found = ", ".join(str(c) for c in chunk.columns)
+                    raise InputError(
+                        f"the {what} has no field {gauge_field!r}; fields found: {found}",
+                        file=str(file_path),
+                    )
+                groups = np.array(
+                    [group_of.get(g, -1) for g in gauge_id_text(chunk[gauge_field].to_numpy())]
+                )
+                for group in np.unique(groups[groups >= 0]):
+                    target = Path(folder) / f"{group}.csv"
+                    chunk[groups == group].to_csv(
+                        target, mode="a", header=group not in written, index=False
+                    )
+                    written.add(int(group))
+        except InputError:
+            raise
+        except Exception as exc:
+            raise InputError(
+                f"the {what} file could not be read: {_first_line(exc)}", file=str(file_path)
+            ) from None
+        for group in range(len(batches)):
+            if group in written:
+                yield pd.read_csv(Path(folder) / f"{group}.csv", dtype=str)
 
 
 def _first_line(exc):

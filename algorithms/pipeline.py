@@ -921,6 +921,71 @@ def compute_gauges(
     return results, failed
 
 
+class _Offset(Reporter):
+    """Passes progress on as part of a larger whole (one gauge group of many)."""
+
+    def __init__(self, reporter, before, total):
+        self.reporter, self.before, self.total = reporter, before, total
+
+    def progress(self, done, total, gauge_id=None):
+        self.reporter.progress(self.before + done, self.total, gauge_id)
+
+    def cancelled(self):
+        return self.reporter.cancelled()
+
+    def info(self, text):
+        self.reporter.info(text)
+
+    def warning(self, text):
+        self.reporter.warning(text)
+
+
+def _compute_in_groups(
+    discharge, gauge_ids, area_of, settings, reporter, given_k, unlinked, keep_series
+):
+    """:func:`compute_gauges` over the whole discharge table, or over it group by group.
+
+    ``discharge`` is one table, or an iterable of tables each holding every row of its gauges
+    (see :func:`files.discharge_groups`): then only one group's daily records are in memory at
+    a time.
+    """
+    chunks = [discharge] if isinstance(discharge, pd.DataFrame) else discharge
+    wanted = set(gauge_ids)
+    results: dict[str, GaugeResult] = {}
+    failed = 0
+    for chunk in chunks:
+        records = _records(chunk, settings)
+        here = [gid for gid in gauge_ids if gid in records and gid not in results]
+        extra = {gid: record for gid, record in records.items() if gid not in wanted}
+        part, lost = compute_gauges(
+            here,
+            {**extra, **{g: records[g] for g in here}},
+            area_of,
+            settings,
+            _Offset(reporter, len(results), len(gauge_ids)),
+            given_k,
+            unlinked,
+            keep_series=keep_series,
+        )
+        results.update(part)
+        failed += lost
+        del records
+    missing = [gid for gid in gauge_ids if gid not in results]
+    if missing:
+        rest, _ = compute_gauges(
+            missing,
+            {},
+            area_of,
+            settings,
+            _Offset(reporter, len(results), len(gauge_ids)),
+            given_k,
+            unlinked,
+            keep_series=keep_series,
+        )
+        results.update(rest)
+    return {gid: results[gid] for gid in gauge_ids}, failed
+
+
 def _summary(results, failed):
     flagged = sum(1 for r in results.values() if r.quality)
     return {
@@ -970,7 +1035,6 @@ def run_atlas(
     reporter = reporter or Reporter()
     gauge_ids = _gauge_ids(gauges, settings)
     given_k = _given_recession_index(gauges, settings)
-    records = _records(discharge, settings)
     basins = _link_basins(gauges, gauge_ids, catchments, settings, reporter)
     links, nesting = basins.links, basins.nesting
     area_of = basins.area_of()
@@ -978,8 +1042,8 @@ def run_atlas(
     def unlinked(gid):
         return f"no single catchment linked ({links.notes.get(gid, 'not linked')}): depths not computed"
 
-    results, failed = compute_gauges(
-        gauge_ids, records, area_of, settings, reporter, given_k, unlinked, keep_series=keep_series
+    results, failed = _compute_in_groups(
+        discharge, gauge_ids, area_of, settings, reporter, given_k, unlinked, keep_series
     )
     for gid, note in _reported_area_notes(gauges, settings, area_of).items():
         results[gid].quality.append(note)
@@ -1049,7 +1113,6 @@ def run_gauges(
     reporter = reporter or Reporter()
     gauge_ids = _gauge_ids(gauges, settings)
     given_k = _given_recession_index(gauges, settings)
-    records = _records(discharge, settings)
     area_of = {}
     if area_field:
         require_columns(gauges, [area_field], "gauges layer")
@@ -1060,8 +1123,8 @@ def run_gauges(
         area_of = {
             g: float(v) for g, v in zip(ids, values) if g is not None and np.isfinite(v) and v > 0
         }
-    results, failed = compute_gauges(
-        gauge_ids, records, area_of, settings, reporter, given_k, keep_series=keep_series
+    results, failed = _compute_in_groups(
+        discharge, gauge_ids, area_of, settings, reporter, given_k, None, keep_series
     )
     for gid, result in results.items():
         if result.quality:

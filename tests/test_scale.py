@@ -122,3 +122,49 @@ def test_benchmark_prints_its_ratios(tmp_path):
         "memory_ratio",
         "workers_speedup",
     ]
+
+
+@pytest.mark.parametrize("suffix", [".csv", ".parquet"])
+def test_reading_in_gauge_groups_gives_identical_results(tmp_path, sample_paths, suffix):
+    import geopandas as gpd
+
+    from recharge_atlas.algorithms.files import read_attribute_table
+    from recharge_atlas.cli import main
+
+    if suffix == ".parquet":
+        pytest.importorskip("pyarrow")
+    table = pd.read_csv(sample_paths["discharge"], dtype={"gauge_id": str})
+    source = tmp_path / f"discharge{suffix}"
+    # Rows in a scrambled order: a group's rows come from all over the file.
+    table = table.sample(frac=1.0, random_state=3)
+    if suffix == ".csv":
+        table.to_csv(source, index=False)
+    else:
+        table.to_parquet(source, index=False, row_group_size=5000)
+    outputs = {}
+    for per_group in (0, 2):
+        out = tmp_path / f"out{per_group}.gpkg"
+        args = [
+            "run",
+            "--gauges",
+            str(sample_paths["gauges"]),
+            "--catchments",
+            str(sample_paths["catchments"]),
+        ]
+        args += [
+            "--discharge",
+            str(source),
+            "--out",
+            str(out),
+            "--gauges-per-group",
+            str(per_group),
+        ]
+        assert main(args) == 0
+        outputs[per_group] = out
+    a, b = (gpd.read_file(outputs[k], layer="catchments").drop(columns="geometry") for k in (0, 2))
+    pd.testing.assert_frame_equal(a, b)
+    for name in ("annual", "events"):
+        pd.testing.assert_frame_equal(
+            read_attribute_table(outputs[0], name), read_attribute_table(outputs[2], name)
+        )
+    assert not list(tmp_path.glob("recharge-atlas-groups-*"))
