@@ -15,6 +15,7 @@ from qgis.core import (
     QgsFeatureRequest,
     QgsFeatureSink,
     QgsProcessing,
+    QgsProcessingAlgorithm,
     QgsProcessingFeatureSource,
     QgsProcessingParameterDefinition,
     QgsProcessingParameterField,
@@ -34,6 +35,7 @@ _NAMESPACE = {
     "QgsFeatureRequest": QgsFeatureRequest,
     "QgsFeatureSink": QgsFeatureSink,
     "QgsProcessing": QgsProcessing,
+    "QgsProcessingAlgorithm": QgsProcessingAlgorithm,
     "QgsProcessingFeatureSource": QgsProcessingFeatureSource,
     "QgsProcessingParameterDefinition": QgsProcessingParameterDefinition,
     "QgsProcessingParameterField": QgsProcessingParameterField,
@@ -107,6 +109,15 @@ PARAMETER_OPTIONAL = first_of(
 #: Shown under "Advanced parameters" in the dialog.
 PARAMETER_ADVANCED = first_of(
     "Qgis.ProcessingParameterFlag.Advanced", "QgsProcessingParameterDefinition.FlagAdvanced"
+)
+
+# Algorithm flags (Qgis.ProcessingAlgorithmFlag since 3.36).
+ALGORITHM_CAN_CANCEL = first_of(
+    "Qgis.ProcessingAlgorithmFlag.CanCancel", "QgsProcessingAlgorithm.FlagCanCancel"
+)
+#: Set, an algorithm runs in the interface's thread and blocks it; ours never set it.
+ALGORITHM_NO_THREADING = first_of(
+    "Qgis.ProcessingAlgorithmFlag.NoThreading", "QgsProcessingAlgorithm.FlagNoThreading"
 )
 
 # Feature sink and request flags.

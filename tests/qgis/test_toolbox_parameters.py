@@ -126,6 +126,17 @@ def test_names_and_groups(qgis_app, name):
     assert not alg.icon().isNull()
 
 
+@pytest.mark.parametrize("name", [*TOOLBOX, "catchmentrecharge", "subbasinrecharge"])
+def test_runs_in_the_background_and_can_be_cancelled(qgis_app, name):
+    """Processing runs an algorithm in a background thread unless it asks not to, so the
+    interface never blocks; the cancel button shows when it says it can cancel."""
+    from recharge_atlas.plugin import compat
+
+    flags = _alg(name).flags()
+    assert flags & compat.ALGORITHM_CAN_CANCEL
+    assert not flags & compat.ALGORITHM_NO_THREADING
+
+
 @pytest.mark.parametrize("name", TOOLBOX)
 def test_parameters(qgis_app, name):
     from recharge_atlas.plugin import compat
