@@ -1,10 +1,14 @@
-"""What the algorithms that run the whole pipeline share.
+"""What every Recharge Atlas algorithm that reads gauges shares.
 
 ``catchmentrecharge`` and ``subbasinrecharge`` differ only in how basins are described (total
 drainage areas, or a subbasin map). Both take the same gauges, discharge table, units and
 method parameters, and write the same tables, so those are declared, read, checked and written
-here once. The core is imported only when an algorithm runs, so the provider loads and lists
-the algorithms even when pandas, scipy or geopandas are missing.
+here once. The rest of the toolbox is built on the same machinery: the gauge algorithms
+(``recessionindex``, ``baseflowseparation``, ``eventrecharge``; :mod:`gauge_run`) run without
+basins, ``linkcheck`` without discharge, and ``rechargereport`` writes only the page. Each
+declares only the parameters it uses (:meth:`RechargeRunAlgorithm._init_method_parameters`);
+the others keep the core's defaults. The core is imported only when an algorithm runs, so the
+provider loads and lists the algorithms even when pandas, scipy or geopandas are missing.
 """
 
 from __future__ import annotations
@@ -174,11 +178,12 @@ _READ_END, _RUN_END, _REPORT_END = 15.0, 85.0, 90.0
 
 
 class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
-    """Base of the algorithms that run the whole pipeline.
+    """Base of the algorithms: read the parameters and sources, run the core, write the sinks.
 
-    Subclasses declare their basin parameters in ``initAlgorithm`` with the builders here, and
+    Subclasses declare their parameters in ``initAlgorithm`` with the builders here, and
     implement :meth:`_basin_sources`, :meth:`_basin_settings`, :meth:`_check_basin_fields`,
-    :meth:`_run` and :meth:`_write_basins`.
+    :meth:`_run` and :meth:`_write_basins`; :meth:`_prepare`, :meth:`_gauge_fields` and
+    :meth:`_summarize` may be overridden.
     """
 
     GAUGES = "GAUGES"
