@@ -89,6 +89,7 @@ class CatchmentAlgorithm(RechargeRunAlgorithm):
             tables["discharge"].frame,
             settings,
             reporter,
+            keep_series=self._keep_series,
         )
 
     def _write_basins(self, parameters, context, sources, tables, result, outputs):

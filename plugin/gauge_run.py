@@ -89,6 +89,7 @@ class GaugeAlgorithm(RechargeRunAlgorithm):
             settings,
             reporter,
             area_field=self._area_field,
+            keep_series=self._keep_series,
         )
 
     def _write_basins(self, parameters, context, sources, tables, result, outputs):

@@ -729,8 +729,12 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
     def _check_basins(self, tables, settings, feedback):
         """Checks on the basin layers once read (before the discharge table is read)."""
 
+    #: Whether the run keeps each gauge's daily series (set by processAlgorithm before _run).
+    _keep_series = True
+
     def _run(self, tables, settings, reporter):
-        """Run the core on the tables read; return its AtlasResult."""
+        """Run the core on the tables read (keeping the daily series when
+        :data:`_keep_series`); return its AtlasResult."""
         raise NotImplementedError
 
     def _write_basins(self, parameters, context, sources, tables, result, outputs):
@@ -801,6 +805,11 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             self._explain_settings(settings, feedback, push_warning)
             tables = self._read_inputs(gauges, discharge, basins, settings, feedback)
             reporter = FeedbackReporter(feedback, _READ_END, _RUN_END)
+            # Daily series only when an output draws or lists them: a large region's run then
+            # holds only its tables.
+            self._keep_series = bool(report_path) or self._requested(
+                parameters, self.DAILY, context
+            )
             result = self._run(tables, settings, reporter)
             if report_path:
                 self._write_report(result, tables, settings, scheme, classes, report_path, feedback)

@@ -161,6 +161,7 @@ class SubbasinRecharge(RechargeRunAlgorithm):
             tables["discharge"].frame,
             settings,
             reporter,
+            keep_series=self._keep_series,
         )
 
     def _write_basins(self, parameters, context, sources, tables, result, outputs):
