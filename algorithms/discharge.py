@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -48,9 +49,9 @@ class GaugeRecord:
     def days(self) -> int:
         return int(self.flow.size)
 
-    @property
+    @functools.cached_property
     def days_with_value(self) -> int:
-        return int(self.flow.notna().sum())
+        return int(np.count_nonzero(np.isfinite(self.flow.to_numpy(dtype=float))))
 
     def __repr__(self):
         if self.flow.empty:

@@ -100,13 +100,16 @@ def event_displacements(
 
 
 def event_columns(
-    q, day0, logq, rises: Rises, recession_index_days, lag_days, max_extrapolation_days=None
+    q, day0, logq, rises: Rises, recession_index_days, lag_days, max_extrapolation_days=None, clean=None
 ) -> ColumnTable:
-    """:func:`event_displacements` as columns, for a record of flows ``q`` starting on ``day0``."""
+    """:func:`event_displacements` as columns, for a record of flows ``q`` starting on ``day0``.
+
+    ``clean`` (a :class:`CleanDays` of ``logq``) may be given when it is already worked out.
+    """
     k = float(recession_index_days)
     if len(rises) == 0 or not np.isfinite(k) or k <= 0:
         return ColumnTable.empty(EVENT_COLUMNS)
-    parts = _displacements(q, logq, rises, k, lag_days, max_extrapolation_days)
+    parts = _displacements(q, logq, rises, k, lag_days, max_extrapolation_days, clean)
 
     def dates(positions):
         return (day0 + positions.astype("timedelta64[D]")).astype("datetime64[ns]")
@@ -140,7 +143,7 @@ def event_columns(
 
 
 def event_volumes(
-    flow, logq, rises: Rises, recession_index_days, lag_days, max_extrapolation_days=None
+    flow, logq, rises: Rises, recession_index_days, lag_days, max_extrapolation_days=None, clean=None
 ):
     """Only the recharge volume (m³, NaN when not measured) and the ``used`` flag of each event.
 
@@ -150,13 +153,11 @@ def event_volumes(
     k = float(recession_index_days)
     if len(rises) == 0 or not np.isfinite(k) or k <= 0:
         return np.empty(0), np.empty(0, bool)
-    parts = _displacements(
-        np.asarray(flow, dtype=float), logq, rises, k, lag_days, max_extrapolation_days
-    )
+    parts = _displacements(np.asarray(flow, dtype=float), logq, rises, k, lag_days, max_extrapolation_days, clean)
     return parts["recharge_m3"], parts["used"]
 
 
-def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days):
+def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days, clean=None):
     """The arrays of the displacement construction, one entry per event."""
     if max_extrapolation_days is None:
         max_extrapolation_days = default_max_extrapolation(k)
@@ -175,7 +176,7 @@ def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days):
     lo = peak + int(np.ceil(lag_days))
     hi = rises.recession_end
     post_day = np.clip(np.rint(target).astype(int), lo, np.maximum(hi, lo))
-    post_day = _nearest_clean(x, post_day, lo, hi)
+    post_day = _nearest_clean(x, post_day, lo, hi, clean)
     has_post = post_day >= 0
     safe_post = np.where(has_post, post_day, 0)
     post_span = np.where(has_post, safe_post - target, np.nan)
@@ -215,13 +216,27 @@ def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days):
     }
 
 
-def _nearest_clean(x, wanted, lo, hi):
+class CleanDays:
+    """For every day, the nearest clean (usable) day at or before it, and at or after it.
+
+    Worked out once per record and shared by every run of the displacement on it.
+    """
+
+    def __init__(self, logq):
+        x = np.asarray(logq, dtype=float)
+        n = x.size
+        clean = np.isfinite(x)
+        idx = np.arange(n)
+        self.n = n
+        self.before = np.maximum.accumulate(np.where(clean, idx, -1))
+        self.after = np.minimum.accumulate(np.where(clean, idx, n)[::-1])[::-1]
+
+
+def _nearest_clean(x, wanted, lo, hi, clean=None):
     """For each event, the clean day in [lo, hi] nearest to ``wanted`` (−1 when none)."""
-    n = x.size
-    clean = np.isfinite(x)
-    idx = np.arange(n)
-    prev_clean = np.maximum.accumulate(np.where(clean, idx, -1))
-    next_clean = np.minimum.accumulate(np.where(clean, idx, n)[::-1])[::-1]
+    clean = clean if clean is not None else CleanDays(x)
+    n = clean.n
+    prev_clean, next_clean = clean.before, clean.after
     w = np.clip(wanted, 0, n - 1)
     before = prev_clean[w]
     after = next_clean[w]

@@ -18,7 +18,7 @@ from . import annual as annual_mod
 from .baseflow import BFIMAX_TYPICAL, METHODS, baseflow_index, separate_baseflow
 from .basins import LINK_TOLERANCE_M, geodesic_area_km2, link_by_id, link_spatially, repair_polygons
 from .discharge import MIN_DAY_COVERAGE, GaugeRecord, gauge_id_text, require_columns, tidy_discharge
-from .displacement import EVENT_COLUMNS, event_columns, event_volumes
+from .displacement import EVENT_COLUMNS, CleanDays, event_columns, event_volumes
 from .errors import InputError
 from .nesting import OVERLAP_TOLERANCE, find_nesting, incremental_recharge
 from .recession import (
@@ -77,9 +77,9 @@ AREA_MISMATCH = 0.10
 
 #: Drainage areas the method is commonly applied to, km² (common practice, not a published limit).
 USUAL_AREA_KM2 = (3.0, 1300.0)
-#: Below this Lyne–Hollick baseflow index a stream is too flashy for the method (our own rule).
-#: A parameter-free filter is used, whatever the chosen method, so the check does not move
-#: with BFImax.
+#: Below this baseflow index a stream is too flashy for the method (our own rule). The index is
+#: the Institute of Hydrology (1980) one, by smoothed minima, whatever the chosen method: it has
+#: no parameter, so the check does not move with BFImax.
 FLASHY_BASEFLOW_INDEX = 0.2
 #: Fewer measured events than this in the whole record is flagged (our own rule).
 FEW_EVENTS = 10
@@ -592,7 +592,8 @@ def gauge_hydrology(
     quality.extend(master_recession_warnings(master))
     k = recession.days
 
-    events = event_columns(usable, day0, x, rises, k, lag)
+    clean = CleanDays(x)
+    events = event_columns(usable, day0, x, rises, k, lag, clean=clean)
     event_table = dict(events.columns)
     event_table["event"] = np.arange(1, len(events) + 1, dtype=np.int64)
     event_table["recharge_mm"] = (
@@ -604,7 +605,7 @@ def gauge_hydrology(
         """The events' volumes with another K (for the ends of its interval)."""
         if not np.isfinite(k_days) or not len(events):
             return None
-        volume, used = event_volumes(usable, x, rises, k_days, lag)
+        volume, used = event_volumes(usable, x, rises, k_days, lag, clean=clean)
         return {"peak_date": event_table["peak_date"], "recharge_m3": volume, "used": used}
 
     if np.isfinite(k):
@@ -684,10 +685,10 @@ def _record_quality(record: GaugeRecord, result: GaugeResult, settings: Settings
             f"drainage area {result.area_km2:,.0f} km² is outside the {lo:,.0f}–{hi:,.0f} km² the method is usually applied to"
         )
     flow = record.flow.to_numpy()
-    reference = baseflow_index(flow, separate_baseflow(flow, "lyne_hollick"))
+    reference = baseflow_index(flow, separate_baseflow(flow, "smoothed_minima"))
     if np.isfinite(reference) and reference < FLASHY_BASEFLOW_INDEX:
         notes.append(
-            f"flashy stream (Lyne-Hollick baseflow index {reference:.2f}, under {FLASHY_BASEFLOW_INDEX}): "
+            f"flashy stream (baseflow index {reference:.2f} by smoothed minima, under {FLASHY_BASEFLOW_INDEX}): "
             "the method suits baseflow-dominated streams"
         )
     return notes
