@@ -38,12 +38,28 @@ def _python_executable():
     return sys.executable
 
 
+#: Data the forked workers inherit instead of receiving it (see :func:`map_groups`).
+_SHARED = None
+
+
+def shared():
+    """The data a forked worker inherited from the process that started it."""
+    return _SHARED
+
+
+def forks():
+    """True where workers are forked copies of this process (Linux, outside QGIS)."""
+    return (
+        sys.platform.startswith("linux") and "qgis" not in os.path.basename(sys.executable).lower()
+    )
+
+
 def process_pool(workers):
     """A pool of ``workers`` processes (forked on Linux; spawned elsewhere, with a real Python)."""
     import multiprocessing
     from concurrent.futures import ProcessPoolExecutor
 
-    if sys.platform.startswith("linux") and "qgis" not in os.path.basename(sys.executable).lower():
+    if forks():
         context = multiprocessing.get_context("fork")
     else:
         context = multiprocessing.get_context("spawn")
@@ -67,14 +83,35 @@ def dask_client(address):
         raise InputError(f"could not reach the Dask scheduler at {address}: {exc}") from None
 
 
-def map_groups(function, payloads, workers=1, scheduler=None, cancelled=None, on_done=None):
+def map_groups(
+    function,
+    payloads,
+    workers=1,
+    scheduler=None,
+    cancelled=None,
+    on_done=None,
+    shared_data=None,
+    pack=None,
+):
     """Apply ``function`` to each payload and yield the results in order.
 
     With ``scheduler`` (an address) the payloads go to that Dask cluster; with ``workers`` > 1
     to a local process pool; otherwise they run here. ``cancelled()`` is asked between groups;
     ``on_done(i)`` is told when group ``i`` is back.
+
+    ``shared_data`` is data every group reads (e.g. all daily records). Forked workers inherit
+    it (see :func:`shared`) and their payloads go as they are; everywhere else each payload is
+    first passed through ``pack(payload, shared_data)`` to carry the part it needs.
     """
+    global _SHARED
     from .errors import Cancelled
+
+    local_fork = (
+        not scheduler and workers is not None and int(workers) > 1 and len(payloads) > 1 and forks()
+    )
+    if shared_data is not None and pack is not None and not local_fork:
+        payloads = [pack(payload, shared_data) for payload in payloads]
+    _SHARED = shared_data if local_fork else None
 
     def check():
         if cancelled is not None and cancelled():
@@ -109,3 +146,4 @@ def map_groups(function, payloads, workers=1, scheduler=None, cancelled=None, on
                 on_done(i)
     finally:
         pool.shutdown(wait=True, cancel_futures=True)
+        _SHARED = None

@@ -826,10 +826,19 @@ def _link_basins(gauges, gauge_ids, catchments, settings, reporter) -> _Basins:
 
 
 def _gauge_group(payload):
-    """The hydrology of a group of gauges (run here or in a worker process)."""
+    """The hydrology of a group of gauges (run here or in a worker process).
+
+    The payload's items carry their daily records, or None when a forked worker reads them
+    from the records it inherited.
+    """
+    from .parallel import shared
+
     items, settings, keep_series = payload
+    inherited = shared()
     out = []
     for gid, record, area, given in items:
+        if record is None and inherited is not None:
+            record = inherited.get(gid)
         failure = None
         if record is None:
             result = GaugeResult(gid, area, quality=["no discharge record for this gauge"])
@@ -893,19 +902,37 @@ def compute_gauges(
     serial = int(workers or 1) <= 1 and not scheduler
     # One gauge at a time when serial, so progress and cancel follow every gauge.
     batches = groups(gauge_ids, 1 if serial else GROUP_SIZE)
+    # Payloads name their gauges; the records go along only where workers cannot inherit them.
     payloads = [
         (
-            [(gid, records.get(gid), area_of.get(gid, np.nan), given_k.get(gid)) for gid in batch],
+            [(gid, None, area_of.get(gid, np.nan), given_k.get(gid)) for gid in batch],
             settings,
             keep_series,
         )
         for batch in batches
     ]
+
+    def pack(payload, all_records):
+        items, group_settings, keep = payload
+        return (
+            [(gid, all_records.get(gid), area, given) for gid, _, area, given in items],
+            group_settings,
+            keep,
+        )
+
     results: dict[str, GaugeResult] = {}
     failed = 0
     done = 0
     reporter.progress(0, total, gauge_ids[0] if gauge_ids else None)
-    for group in map_groups(_gauge_group, payloads, workers, scheduler, reporter.cancelled):
+    for group in map_groups(
+        _gauge_group,
+        payloads,
+        workers,
+        scheduler,
+        reporter.cancelled,
+        shared_data=records,
+        pack=pack,
+    ):
         for gid, result, failure in group:
             if failure is not None:
                 failed += 1
