@@ -21,6 +21,8 @@ How the annual terms fit together (all in mm over the drainage area, or m³):
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 import pandas as pd
 
@@ -94,6 +96,65 @@ def _first_day_of_water_year(years, start_month):
         start_month - 1
     )
     return (np.datetime64("1970-01", "M") + months).astype("datetime64[D]")
+
+
+@functools.lru_cache(maxsize=64)
+def _day_slots(day0, n_days, kind, start_month):
+    """For a record of ``n_days`` from day number ``day0``: the first period, each day's slot
+    (position of its water year, month or season) and the days per slot in the record.
+
+    Gauges of a network mostly share their dates, so this is worked out once per date range
+    and kept (the arrays are read-only).
+    """
+    days = np.datetime64(day0, "D") + np.arange(n_days).astype("timedelta64[D]")
+    if kind == "year":
+        index = _water_year_of_days(days, start_month)
+    else:
+        months = days.astype("datetime64[M]").astype(np.int64)
+        index = months if kind == "month" else (months + 1) // 3  # seasons start in December
+    first = int(index[0])
+    slot = (index - first).astype(np.intp)
+    counts = np.bincount(slot)
+    slot.setflags(write=False)
+    counts.setflags(write=False)
+    return first, slot, counts
+
+
+@functools.lru_cache(maxsize=64)
+def _water_year_calendar(first_year, n, start_month):
+    """First days (and the day after the last) and lengths of ``n`` water years (kept)."""
+    years = np.arange(first_year, first_year + n + 1)
+    bounds = _first_day_of_water_year(years, start_month)
+    lengths = np.diff(bounds).astype(int)
+    bounds.setflags(write=False)
+    lengths.setflags(write=False)
+    return bounds, lengths
+
+
+@functools.lru_cache(maxsize=64)
+def _period_calendar(first_period, n, kind, start_month):
+    """Labels, first and last days, lengths and water years of ``n`` months or seasons (kept)."""
+    width = 1 if kind == "month" else 3
+    periods = np.arange(first_period, first_period + n)
+    first_month = periods * width - (0 if width == 1 else 1)
+    bounds = (
+        np.datetime64("1970-01", "M") + np.append(first_month, first_month[-1] + width)
+    ).astype("datetime64[D]")
+    first_dates = bounds[:-1]
+    if width == 1:
+        labels = np.datetime_as_string(first_dates.astype("datetime64[M]"))
+    else:
+        labels = np.array(SEASONS)[periods % 4]
+    calendar = {
+        "lengths": np.diff(bounds).astype(int),
+        "water_year": _water_year_of_days(first_dates, start_month).astype(np.int64),
+        "period": labels.astype(object),
+        "first_date": first_dates.astype("datetime64[ns]"),
+        "last_date": (bounds[1:] - np.timedelta64(1, "D")).astype("datetime64[ns]"),
+    }
+    for values in calendar.values():
+        values.setflags(write=False)
+    return calendar
 
 
 def water_year(dates, start_month=10):
@@ -219,15 +280,14 @@ def annual_columns(
     start_month = _check_month(start_month)
     if len(days) == 0:
         return ColumnTable.empty(ANNUAL_COLUMNS)
-    year_of_day = _water_year_of_days(days, start_month)
-    first_year = int(year_of_day[0])
-    years = np.arange(first_year, int(year_of_day[-1]) + 1)
+    first_year, slot, in_record = _day_slots(
+        int(days[0].astype(np.int64)), len(days), "year", start_month
+    )
+    years = np.arange(first_year, first_year + in_record.size)
     n = years.size
-    slot = (year_of_day - first_year).astype(np.intp)
     q = np.asarray(q, dtype=float)
     has_value = np.isfinite(q)
     seconds = 86400.0
-    in_record = np.bincount(slot, minlength=n)
     with_value = np.bincount(slot, weights=has_value.astype(float), minlength=n)
     flow_m3 = _per_slot(slot, np.where(has_value, q, 0.0) * seconds, n)
 
@@ -249,8 +309,7 @@ def annual_columns(
         else None
     )
 
-    bounds = _first_day_of_water_year(np.r_[years, years[-1] + 1], start_month)
-    lengths = np.diff(bounds).astype(int)
+    bounds, lengths = _water_year_calendar(first_year, n, start_month)
     missing = lengths - with_value.astype(int)
     complete = (in_record == lengths) & (missing <= max_missing_share * lengths) & (skipped == 0)
 
@@ -329,12 +388,14 @@ def _seasonal_recession(slot, baseflow, k, n_years):
     if not np.isfinite(b).any():
         return out
     # Lowest day of each year (the first of equals); days of a year are contiguous.
-    starts = np.r_[0, np.flatnonzero(np.diff(slot)) + 1]
+    starts = np.concatenate(([0], np.flatnonzero(np.diff(slot)) + 1))
     years_present = slot[starts]
     filled = np.where(np.isfinite(b), b, np.inf)
     lowest_value = np.minimum.reduceat(filled, starts)
     at_lowest = np.where(
-        filled == np.repeat(lowest_value, np.diff(np.r_[starts, b.size])), np.arange(b.size), b.size
+        filled == np.repeat(lowest_value, np.diff(np.append(starts, b.size))),
+        np.arange(b.size),
+        b.size,
     )
     lowest = np.full(n_years, -1)
     found = np.isfinite(lowest_value)
@@ -344,7 +405,7 @@ def _seasonal_recession(slot, baseflow, k, n_years):
     t0, t1 = lowest[:-1], lowest[1:]
     pairs = np.flatnonzero((t0 >= 0) & (t1 > t0))
     if pairs.size:
-        marks = np.unique(np.r_[t0[pairs], t1[pairs]])
+        marks = np.unique(np.concatenate((t0[pairs], t1[pairs])))
         peaks = np.maximum.reduceat(np.where(np.isfinite(b), b, -np.inf), marks)
         # Each span [t0, t1] ends on the next mark; its own end day counts too.
         top = np.maximum(peaks[np.searchsorted(marks, t0[pairs])], b[t1[pairs]])
@@ -397,13 +458,11 @@ def period_columns(
         months = days.astype("datetime64[M]").astype(np.int64)
         return months if width == 1 else (months + 1) // 3  # seasons start in December
 
-    index = period_of(days)
-    first_period = int(index[0])
-    periods = np.arange(first_period, int(index[-1]) + 1)
-    n = periods.size
-    slot = (index - first_period).astype(np.intp)
+    first_period, slot, in_record = _day_slots(
+        int(days[0].astype(np.int64)), len(days), kind, start_month
+    )
+    n = in_record.size
     q = np.asarray(q, dtype=float)
-    in_record = np.bincount(slot, minlength=n)
     with_value = np.bincount(slot, weights=np.isfinite(q).astype(float), minlength=n)
     ev_slots = (
         (period_of(np.asarray(events["peak_date"]).astype("datetime64[D]")) - first_period).astype(
@@ -413,24 +472,16 @@ def period_columns(
         else np.empty(0, np.intp)
     )
     recharge, n_events, skipped = _event_sums(events, ev_slots, n)
-    first_month = periods * width - (0 if width == 1 else 1)
-    bounds = (np.datetime64("1970-01", "M") + np.r_[first_month, first_month[-1] + width]).astype(
-        "datetime64[D]"
-    )
-    lengths = np.diff(bounds).astype(int)
+    calendar = _period_calendar(first_period, n, kind, start_month)
+    lengths = calendar["lengths"]
     missing = lengths - with_value.astype(int)
     complete = (in_record == lengths) & (missing <= max_missing_share * lengths) & (skipped == 0)
-    first_dates = bounds[:-1]
-    if width == 1:
-        labels = np.datetime_as_string(first_dates.astype("datetime64[M]"))
-    else:
-        labels = np.array(SEASONS)[periods % 4]
     return ColumnTable(
         {
-            "water_year": _water_year_of_days(first_dates, start_month).astype(np.int64),
-            "period": labels.astype(object),
-            "first_date": first_dates.astype("datetime64[ns]"),
-            "last_date": (bounds[1:] - np.timedelta64(1, "D")).astype("datetime64[ns]"),
+            "water_year": calendar["water_year"],
+            "period": calendar["period"],
+            "first_date": calendar["first_date"],
+            "last_date": calendar["last_date"],
             "recharge_mm": _mm(recharge, area_km2),
             "recharge_m3": recharge,
             "complete": complete.astype(bool),

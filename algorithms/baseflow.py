@@ -87,8 +87,8 @@ def _bounded_recursion(a, u, y_first, bound, upper=True):
     pick = np.minimum if upper else np.maximum
     chunk = min(n - 1, max(1, int(np.floor(600.0 / max(-np.log(a), 1e-12)))))
     # a^s and a^−s for s = 0 … chunk − 1, by running products (exact to ~chunk × 1e-16).
-    grow = np.cumprod(np.r_[1.0, np.full(chunk - 1, 1.0 / a)])
-    shrink = np.cumprod(np.r_[1.0, np.full(chunk - 1, a)])
+    grow = np.cumprod(np.concatenate(([1.0], np.full(chunk - 1, 1.0 / a))))
+    shrink = np.cumprod(np.concatenate(([1.0], np.full(chunk - 1, a))))
     i = 1
     while i < n:
         j = min(n, i + chunk)
@@ -142,7 +142,7 @@ def _lyne_hollick_pass(q, alpha):
     n = q.size
     if n < 2:
         return q.copy()
-    dq = np.r_[0.0, np.diff(q)]
+    dq = np.concatenate(([0.0], np.diff(q)))
     f_first = q[0] - _starting_baseflow(q)
     # Lower limit f ≥ 0 (baseflow ≤ flow) inside the recursion.
     f = _bounded_recursion(alpha, (1.0 + alpha) / 2.0 * dq, f_first, np.zeros(n), upper=False)
@@ -200,7 +200,7 @@ def smoothed_minima(flow, block_days=MINIMA_BLOCK_DAYS, turning_factor=MINIMA_TU
     left, mid, right = minima[:-2], minima[1:-1], minima[2:]
     with np.errstate(invalid="ignore"):
         turning = (turning_factor * mid <= left) & (turning_factor * mid <= right)
-    turning = np.r_[False, turning & np.isfinite(left) & np.isfinite(right), False]
+    turning = np.concatenate(([False], turning & np.isfinite(left) & np.isfinite(right), [False]))
     t_days, t_values = day[turning], minima[turning]
     if t_days.size < 2:
         return out

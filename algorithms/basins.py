@@ -229,7 +229,12 @@ def link_by_id(gauge_ids, catchments, field_name) -> GaugeLinks:
 
 
 def link_spatially(
-    gauge_ids, gauge_points, catchments, tolerance_m=LINK_TOLERANCE_M, overlap_tolerance=0.05
+    gauge_ids,
+    gauge_points,
+    catchments,
+    tolerance_m=LINK_TOLERANCE_M,
+    overlap_tolerance=0.05,
+    reporter=None,
 ) -> GaugeLinks:
     """Link each gauge to the smallest catchment it is the outlet of.
 
@@ -274,7 +279,14 @@ def link_spatially(
     pad = tolerance_m if not crs.is_geographic else tolerance_m / 90_000.0
     links = GaugeLinks(method="spatial")
     chosen = {}
-    for gid, point in zip(gauge_ids, points):
+    total = len(gauge_ids)
+    for done, (gid, point) in enumerate(zip(gauge_ids, points)):
+        if reporter is not None:
+            if reporter.cancelled():
+                from .errors import Cancelled
+
+                raise Cancelled("run cancelled")
+            reporter.progress(done, total, gid)
         if gid is None:
             continue
         if point is None or point.is_empty:

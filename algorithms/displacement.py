@@ -100,7 +100,14 @@ def event_displacements(
 
 
 def event_columns(
-    q, day0, logq, rises: Rises, recession_index_days, lag_days, max_extrapolation_days=None, clean=None
+    q,
+    day0,
+    logq,
+    rises: Rises,
+    recession_index_days,
+    lag_days,
+    max_extrapolation_days=None,
+    clean=None,
 ) -> ColumnTable:
     """:func:`event_displacements` as columns, for a record of flows ``q`` starting on ``day0``.
 
@@ -143,7 +150,13 @@ def event_columns(
 
 
 def event_volumes(
-    flow, logq, rises: Rises, recession_index_days, lag_days, max_extrapolation_days=None, clean=None
+    flow,
+    logq,
+    rises: Rises,
+    recession_index_days,
+    lag_days,
+    max_extrapolation_days=None,
+    clean=None,
 ):
     """Only the recharge volume (m³, NaN when not measured) and the ``used`` flag of each event.
 
@@ -153,12 +166,22 @@ def event_volumes(
     k = float(recession_index_days)
     if len(rises) == 0 or not np.isfinite(k) or k <= 0:
         return np.empty(0), np.empty(0, bool)
-    parts = _displacements(np.asarray(flow, dtype=float), logq, rises, k, lag_days, max_extrapolation_days, clean)
+    parts = _displacements(
+        np.asarray(flow, dtype=float),
+        logq,
+        rises,
+        k,
+        lag_days,
+        max_extrapolation_days,
+        clean,
+        notes=False,
+    )
     return parts["recharge_m3"], parts["used"]
 
 
-def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days, clean=None):
-    """The arrays of the displacement construction, one entry per event."""
+def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days, clean=None, notes=True):
+    """The arrays of the displacement construction, one entry per event (``notes``: with the
+    sentence saying why an event was not measured)."""
     if max_extrapolation_days is None:
         max_extrapolation_days = default_max_extrapolation(k)
     x = np.asarray(logq, dtype=float)
@@ -182,12 +205,13 @@ def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days, clean=No
     post_span = np.where(has_post, safe_post - target, np.nan)
     q2 = np.where(has_post, q[safe_post] * 10.0 ** (post_span / k), np.nan)
 
-    note = np.full(n_events, "", dtype=object)
+    note = np.full(n_events, "", dtype=object) if notes else None
     used = np.ones(n_events, bool)
 
     def refuse(mask, text):
         fresh = mask & used
-        note[fresh] = text
+        if notes:
+            note[fresh] = text
         used[fresh] = False
 
     refuse(
@@ -201,7 +225,8 @@ def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days, clean=No
         np.abs(np.nan_to_num(post_span)) > max_extrapolation_days,
         "post-event extrapolation longer than the limit",
     )
-    note[used & (rises.peaks_merged > 1)] = "peaks merged"
+    if notes:
+        note[used & (rises.peaks_merged > 1)] = "peaks merged"
     recharge = np.where(used, displacement_recharge_m3(q1, q2, k), np.nan)
     return {
         "tc": tc,

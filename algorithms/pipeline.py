@@ -65,6 +65,8 @@ CATCHMENT_FIELDS = [
     "quality",
 ]
 
+#: Fields the gauge table has besides the catchment ones.
+GAUGE_EXTRA_FIELDS = ["events_skipped", "mean_event_recharge_m3", "mean_event_recharge_mm"]
 #: Columns of the daily table.
 DAILY_COLUMNS = ["gauge_id", "date", "discharge_m3s", "baseflow_m3s"]
 #: Columns of the event table as the run reports it (the event number first, the depth last).
@@ -452,11 +454,52 @@ class AtlasResult:
         for gid, result in self.gauges.items():
             row = {"gauge_id": gid}
             row.update(_catchment_values(result, result.area_km2))
+            events = result.table("events")
+            used = np.asarray(events["used"], dtype=bool)
+            row["events_skipped"] = int(used.size - used.sum())
+            row["mean_event_recharge_m3"] = (
+                float(np.mean(events["recharge_m3"][used])) if used.any() else np.nan
+            )
+            row["mean_event_recharge_mm"] = (
+                float(np.mean(events["recharge_mm"][used])) if used.any() else np.nan
+            )
             row["quality"] = result.quality_text
             rows.append(row)
-        fields = [c for c in CATCHMENT_FIELDS if c in rows[0]] if rows else ["gauge_id", "quality"]
-        table = pd.DataFrame(rows, columns=fields) if rows else empty_table(fields)
-        return table
+        fields = [
+            c
+            for c in CATCHMENT_FIELDS
+            if c != "quality" and c in _catchment_values(None, np.nan) or c == "gauge_id"
+        ]
+        fields += GAUGE_EXTRA_FIELDS + ["quality"]
+        return pd.DataFrame(rows, columns=fields) if rows else empty_table(fields)
+
+    def gauge_layer(self, gauges, id_field="gauge_id"):
+        """The gauges layer (points or a plain table) with :meth:`gauge_table` joined on.
+
+        Rows keep their order and own fields; a row without a gauge id, or whose gauge was not
+        run, gets empty values and a quality saying so.
+        """
+        table = self.gauge_table().set_index("gauge_id")
+        ids = gauge_id_text(gauges[id_field].to_numpy())
+        out = gauges.copy()
+        known = [g is not None and g in table.index for g in ids]
+        for name in table.columns:
+            column = table[name]
+            if name == "quality":
+                values = [
+                    column.at[g] if ok else ("no gauge id" if g is None else "gauge not run")
+                    for g, ok in zip(ids, known)
+                ]
+                out[name] = pd.Series(values, index=out.index, dtype=object)
+                continue
+            # An integer field reads 0 where there is no gauge, as on the catchments layer.
+            empty = 0 if pd.api.types.is_integer_dtype(column) else np.nan
+            values = [column.at[g] if ok else empty for g, ok in zip(ids, known)]
+            out[name] = pd.Series(values, index=out.index, dtype=column.dtype)
+        if hasattr(out, "geometry"):
+            geometry_name = out.geometry.name
+            out = out[[c for c in out.columns if c != geometry_name] + [geometry_name]]
+        return out
 
     def incremental_areas(self):
         """The incremental area of each linked gauge as a polygon layer (no overlaps).
@@ -788,8 +831,14 @@ class _Basins:
         return {gid: float(self.areas[row]) for gid, row in self.links.catchment_of.items()}
 
 
-def _link_basins(gauges, gauge_ids, catchments, settings, reporter) -> _Basins:
-    """Repair the catchments, measure them, link the gauges and find the nesting."""
+def _link_basins(
+    gauges, gauge_ids, catchments, settings, reporter, report_progress=False
+) -> _Basins:
+    """Repair the catchments, measure them, link the gauges and find the nesting.
+
+    With ``report_progress`` the spatial linking reports progress and can be cancelled per
+    gauge (when linking is the whole job).
+    """
     import geopandas as gpd
 
     method = settings.link_method(list(catchments.columns))
@@ -809,6 +858,7 @@ def _link_basins(gauges, gauge_ids, catchments, settings, reporter) -> _Basins:
             geometry,
             settings.link_tolerance_m,
             settings.overlap_tolerance,
+            reporter if report_progress else None,
         )
     for gid in links.unlinked + list(links.several) + list(links.ambiguous):
         reporter.warning(f"gauge {gid}: {links.notes.get(gid, 'not linked to a catchment')}")
@@ -1015,13 +1065,25 @@ def _compute_in_groups(
 
 
 def _summary(results, failed):
-    flagged = sum(1 for r in results.values() if r.quality)
+    """Counts of a run. A gauge is skipped when it has no hydrology at all (no discharge
+    record, no usable value, or a failure inside the computation); it is flagged when it was
+    computed but its quality is not ok."""
+    skipped = sum(1 for r in results.values() if r.recession is None)
+    flagged = sum(1 for r in results.values() if r.recession is not None and r.quality)
     return {
         "gauges": len(results),
-        "computed": len(results) - failed,
+        "computed": len(results) - skipped,
         "flagged": flagged,
+        "skipped": skipped,
         "failed": failed,
     }
+
+
+def _summary_text(summary):
+    text = f"{summary['gauges']} gauges: {summary['computed']} computed ({summary['flagged']} flagged), {summary['skipped']} skipped"
+    if summary["failed"]:
+        text += f" ({summary['failed']} of them failed)"
+    return text
 
 
 def run_atlas(
@@ -1102,7 +1164,7 @@ def run_atlas(
         }
     )
     reporter.info(
-        f"{summary['gauges']} gauges: {summary['computed']} computed ({summary['flagged']} flagged), {failed} failed; "
+        f"{_summary_text(summary)}; "
         f"{len(links.catchment_of)} linked to catchments ({links.method}); "
         f"{len(links.without_gauge)} catchments without a gauge"
     )
@@ -1158,9 +1220,7 @@ def run_gauges(
         if result.quality:
             reporter.warning(f"gauge {gid}: {result.quality_text}")
     summary = _summary(results, failed)
-    reporter.info(
-        f"{summary['gauges']} gauges: {summary['computed']} computed ({summary['flagged']} flagged), {failed} failed"
-    )
+    reporter.info(_summary_text(summary))
     return AtlasResult(
         catchments=None,
         annual=_stack(results, "annual"),
@@ -1191,8 +1251,12 @@ def check_links(
     settings = (settings or Settings()).resolved()
     reporter = reporter or Reporter()
     gauge_ids = _gauge_ids(gauges, settings)
-    basins = _link_basins(gauges, gauge_ids, catchments, settings, reporter)
-    placeholders = {gid: GaugeResult(gid, area) for gid, area in basins.area_of().items()}
+    basins = _link_basins(gauges, gauge_ids, catchments, settings, reporter, report_progress=True)
+    area_of = basins.area_of()
+    placeholders = {gid: GaugeResult(gid, area) for gid, area in area_of.items()}
+    for gid, note in _reported_area_notes(gauges, settings, area_of).items():
+        placeholders[gid].quality.append(note)
+    reporter.progress(len(gauge_ids), len(gauge_ids), None)
     full = _catchment_layer(catchments, basins, placeholders, settings, {})
     keep = [
         "gauge_id",

@@ -169,15 +169,17 @@ class _Sums:
     """Running sums of a record for least-squares fits on any span (computed once)."""
 
     def __init__(self, x):
-        t = np.arange(x.size, dtype=float)
         finite = np.isfinite(x)
         xf = np.where(finite, x, 0.0)
         self.bad = ~finite
         self.next_bad = _next_true(self.bad)
-        self.sums = [
-            np.concatenate([[0.0], np.cumsum(v)])
-            for v in (np.ones_like(t), t, xf, t * t, t * xf, xf * xf)
-        ]
+        # Sums of x, t·x and x² from the start; sums over t alone have closed forms.
+        stacked = np.empty((3, x.size + 1))
+        stacked[:, 0] = 0.0
+        np.cumsum(xf, out=stacked[0, 1:])
+        np.cumsum(np.arange(x.size) * xf, out=stacked[1, 1:])
+        np.cumsum(xf * xf, out=stacked[2, 1:])
+        self.sums = stacked
 
 
 def segment_columns(x, rises: Rises, lag_days, min_days, sums: _Sums) -> ColumnTable:
@@ -215,12 +217,15 @@ def _segment_fits(sums, first, last):
     """Least-squares slope, r² and mean of x against day number on each [first, last] span."""
     if first.size == 0:
         return np.empty(0), np.empty(0), np.empty(0)
-    s1, st, sx, stt, stx, sxx = sums.sums
+    sx, stx, sxx = sums.sums
     a, b = first, last + 1
-    n = s1[b] - s1[a]
-    sum_t, sum_x = st[b] - st[a], sx[b] - sx[a]
-    ctt = stt[b] - stt[a] - sum_t**2 / n
-    ctx = stx[b] - stx[a] - sum_t * sum_x / n
+    n = (b - a).astype(float)
+    sum_x = sx[b] - sx[a]
+    # With local time u = t − a on each span: Σu = n(n−1)/2, and Σ(u − ū)² = n(n² − 1)/12.
+    sum_u = n * (n - 1.0) / 2.0
+    sum_ux = stx[b] - stx[a] - a * sum_x
+    ctt = n * (n * n - 1.0) / 12.0
+    ctx = sum_ux - sum_u * sum_x / n
     cxx = sxx[b] - sxx[a] - sum_x**2 / n
     slope = ctx / ctt
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -259,18 +264,35 @@ def combine_segments(segments, quantile=0.5, n_boot=200, seed=0):
     return k, float(low), float(high)
 
 
-@functools.lru_cache(maxsize=64)
+@functools.lru_cache(maxsize=256)
 def _resample_counts(n, n_boot, seed):
     """How often each of ``n`` segments is drawn in each of ``n_boot`` resamples (read-only).
 
     The seed is fixed, so a given number of segments always gets the same resamples: they are
-    drawn once and kept.
+    worked out once and kept (as small integers, so keeping many costs little).
     """
-    rng = np.random.default_rng(seed)
-    picks = rng.integers(0, n, size=(n_boot, n)) + (np.arange(n_boot) * n)[:, None]
-    counts = np.bincount(picks.ravel(), minlength=n_boot * n).reshape(n_boot, n).astype(float)
+    uniform = _uniform_draws(n_boot, seed, n)
+    picks = (uniform[:, :n] * n).astype(np.int64) + (np.arange(n_boot) * n)[:, None]
+    counts = np.bincount(picks.ravel(), minlength=n_boot * n).reshape(n_boot, n).astype(np.uint16)
     counts.setflags(write=False)
     return counts
+
+
+_UNIFORM = {}
+
+
+def _uniform_draws(n_boot, seed, at_least):
+    """One block of uniform draws shared by every resample size (grown when too narrow).
+
+    Drawn segment by segment (column by column), so a wider block starts with the same columns:
+    the draws for a given number of segments never depend on what was drawn before.
+    """
+    block = _UNIFORM.get((n_boot, seed))
+    if block is None or block.shape[1] < at_least:
+        width = max(at_least, 512 if block is None else 2 * block.shape[1])
+        block = np.random.default_rng(seed).random((width, n_boot)).T
+        _UNIFORM[(n_boot, seed)] = block
+    return block
 
 
 def _k_from(sorted_slopes, weights, quantile):
@@ -365,17 +387,17 @@ def master_columns(segments, bins=6) -> ColumnTable:
     days = np.asarray(segments["days"], dtype=float)[keep]
     k_each = -1.0 / slope
     level = np.log10(np.asarray(segments["mean_flow_m3s"], dtype=float)[keep])
-    edges = np.unique(np.quantile(level, np.linspace(0.0, 1.0, min(bins, slope.size) + 1)))
+    edges = np.unique(_quantiles(level, np.linspace(0.0, 1.0, min(bins, slope.size) + 1)))
     which = np.clip(np.searchsorted(edges, level, side="right") - 1, 0, max(edges.size - 2, 0))
     # Sort by class, then by slope: each class is a run of sorted slopes (and of sorted K).
     order = np.lexsort((slope, which))
     which, slope, days, k_each = which[order], slope[order], days[order], k_each[order]
-    starts = np.r_[0, np.flatnonzero(np.diff(which)) + 1]
-    counts = np.diff(np.r_[starts, which.size])
+    starts = np.concatenate(([0], np.flatnonzero(np.diff(which)) + 1))
+    counts = np.diff(np.append(starts, which.size))
     # Length-weighted median slope of each class: the first slope whose share of the class's
     # days reaches one half (as combine_segments does for the whole record).
     cum = np.cumsum(days)
-    before = np.r_[0.0, cum][starts]
+    before = np.concatenate(([0.0], cum))[starts]
     within = cum - np.repeat(before, counts)
     half = np.repeat(0.5 * np.add.reduceat(days, starts), counts)
     below = np.add.reduceat((within < half).astype(np.int64), starts)
@@ -392,6 +414,15 @@ def master_columns(segments, bins=6) -> ColumnTable:
         "recession_index_q75": _sorted_quantile(k_each, starts, counts, 0.75),
     }
     return ColumnTable(table, columns)
+
+
+def _quantiles(values, probabilities):
+    """Quantiles with linear interpolation (numpy's default), by one sort."""
+    ordered = np.sort(values)
+    position = probabilities * (ordered.size - 1)
+    low = np.floor(position).astype(np.int64)
+    high = np.minimum(low + 1, ordered.size - 1)
+    return ordered[low] + (ordered[high] - ordered[low]) * (position - low)
 
 
 def _sorted_quantile(values, starts, counts, p):

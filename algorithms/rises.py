@@ -91,12 +91,12 @@ def _turning_points(x, threshold):
         tail = x[tail_from:]
         low = tail_from + int(np.argmin(tail))
         if x[n - 1] >= tail.max() and x[n - 1] - x[low] >= threshold and low < n - 1:
-            peaks = np.r_[peaks, n - 1]
+            peaks = np.append(peaks, n - 1)
     if peaks.size == 0:
         return np.empty(0, int), np.empty(0, int)
     # Trough of each peak: the lowest day between the previous peak (exclusive) and this one,
     # the latest of equals. The spans tile x[: last peak + 1], so reduceat covers them at once.
-    starts = np.r_[0, peaks[:-1] + 1]
+    starts = np.concatenate(([0], peaks[:-1] + 1))
     lengths = peaks - starts + 1
     span = x[: peaks[-1] + 1]
     lowest = np.repeat(np.minimum.reduceat(span, starts), lengths)
@@ -181,7 +181,7 @@ def find_rises(logq, lag_days, threshold) -> Rises:
         if hidden is not None:
             # The flow rose during the gap: keep the event so its year is not taken as
             # complete, anchored on the last day before the gap (and flagged).
-            t, p = np.r_[b0, t], np.r_[hidden, p]
+            t, p = np.concatenate(([b0], t)), np.concatenate(([hidden], p))
         rise.append(t)
         peak.append(p)
         block_start.append(np.full(t.size, b0))
@@ -200,7 +200,7 @@ def find_rises(logq, lag_days, threshold) -> Rises:
     joins[1:] = (rise[1:] - peak[:-1] < lag_days) & (block_start[1:] == block_start[:-1])
     group = np.cumsum(~joins) - 1
     first = np.flatnonzero(~joins)
-    last = np.r_[first[1:] - 1, rise.size - 1]
+    last = np.append(first[1:] - 1, rise.size - 1)
     merged_rise = rise[first]
     # The event's peak is its highest day (the first of equals).
     counts = (last - first + 1).astype(int)
@@ -211,8 +211,8 @@ def find_rises(logq, lag_days, threshold) -> Rises:
     merged_peak = peak[hits[first_hit]]
     g_block_start = block_start[first]
     g_block_end = block_end[first]
-    next_rise = np.r_[merged_rise[1:], -1]
-    same_block = np.r_[g_block_start[1:] == g_block_start[:-1], False]
+    next_rise = np.append(merged_rise[1:], -1)
+    same_block = np.append(g_block_start[1:] == g_block_start[:-1], False)
     recession_end = np.where(same_block, next_rise, g_block_end)
     # Within N days of a gap or of the record's start, the flow may still carry runoff from an
     # event nobody saw, so the lowest day before the rise is no sound anchor.

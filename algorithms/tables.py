@@ -85,7 +85,8 @@ class ColumnTable:
             if len(self) == 0:
                 self._frame = empty_table(self.order)
             else:
-                self._frame = pd.DataFrame({c: self.columns[c] for c in self.order})
+                # A copy: some columns are shared, read-only arrays (cached calendars).
+                self._frame = pd.DataFrame({c: self.columns[c] for c in self.order}, copy=True)
         return self._frame
 
     @classmethod
