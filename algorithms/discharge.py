@@ -156,38 +156,151 @@ def tidy_discharge(
 
     ids = gauge_id_text(table[gauge_field].to_numpy())
     raw = table[value_field]
-    stamps = pd.to_datetime(pd.Series(table[date_field].to_numpy()), errors="coerce")
+    dates = table[date_field]
+    if pd.api.types.is_datetime64_any_dtype(dates):
+        stamps = pd.Series(dates.to_numpy())
+    else:
+        stamps = pd.to_datetime(pd.Series(dates.to_numpy()), errors="coerce")
     if getattr(stamps.dt, "tz", None) is not None:
         stamps = stamps.dt.tz_localize(None)
 
-    numeric = pd.to_numeric(pd.Series(raw.to_numpy(), dtype=object), errors="coerce").astype(float)
-    was_missing = pd.Series(raw.isna().to_numpy())
-    non_numeric = numeric.isna() & ~was_missing
-    values = to_cubic_metres_per_second(numeric.to_numpy(), units)
-    bad_sign = (~np.isfinite(values) & ~np.isnan(values)) | (values < 0)
+    was_missing = raw.isna().to_numpy()
+    if pd.api.types.is_numeric_dtype(raw) and not pd.api.types.is_bool_dtype(raw):
+        numeric = raw.to_numpy(dtype=float, na_value=np.nan)
+    else:
+        numeric = pd.to_numeric(pd.Series(raw.to_numpy(), dtype=object), errors="coerce").to_numpy(
+            dtype=float, na_value=np.nan
+        )
+    non_numeric = np.isnan(numeric) & ~was_missing
+    values = to_cubic_metres_per_second(numeric, units)
+    with np.errstate(invalid="ignore"):
+        bad_sign = (~np.isfinite(values) & ~np.isnan(values)) | (values < 0)
     values[bad_sign] = np.nan
+    flagged = _flagged(table[flag_field], flag_values) if flag_field else np.zeros(len(table), bool)
 
-    frame = pd.DataFrame(
-        {
-            "gauge": ids,
-            "stamp": stamps.to_numpy(),
-            "q": values,
-            "missing": was_missing.to_numpy(),
-            "non_numeric": non_numeric.to_numpy(),
-            "negative": bad_sign,
-            "flagged": _flagged(table[flag_field], flag_values) if flag_field else False,
-        }
-    )
-    if frame["stamp"].isna().all() and len(frame):
+    stamp = stamps.to_numpy(dtype="datetime64[ns]")
+    has_stamp = ~np.isnat(stamp)
+    if len(table) and not has_stamp.any():
         raise InputError(
             f"no value in the date field {date_field!r} could be read as a date", field=date_field
         )
-    frame = frame[frame["gauge"].notna() & frame["stamp"].notna()]
-    frame["date"] = frame["stamp"].dt.floor("D")
+    keep = has_stamp & (ids != None)  # noqa: E711 (element-wise comparison)
+    codes, names = pd.factorize(pd.Series(ids[keep], dtype=object), sort=False)
+    return _split_gauges(
+        [str(n) for n in names],
+        codes.astype(np.int64),
+        stamp[keep].astype(np.int64),
+        values[keep],
+        {
+            "missing": was_missing[keep],
+            "non_numeric": non_numeric[keep],
+            "negative": bad_sign[keep],
+        },
+        flagged[keep],
+        float(min_day_coverage),
+    )
 
+
+_NS_PER_DAY = 86_400 * 10**9
+
+
+def _split_gauges(names, codes, stamps_ns, values, problems, flagged, min_day_coverage):
+    """One GaugeRecord per gauge, from the rows of all gauges at once (no loop over rows).
+
+    Rows are sorted by gauge and time; values of one day are averaged (sub-daily days with too
+    few values are dropped); each gauge's days are laid on a complete daily range.
+    """
+    order = np.lexsort((stamps_ns, codes))
+    codes, stamps_ns, values, flagged = (
+        codes[order],
+        stamps_ns[order],
+        values[order],
+        flagged[order],
+    )
+    problems = {k: v[order] for k, v in problems.items()}
+    day = np.floor_divide(stamps_ns, _NS_PER_DAY)
+    n_gauges = len(names)
+    problem_counts = {
+        k: np.bincount(codes, weights=v.astype(float), minlength=n_gauges).astype(int)
+        for k, v in problems.items()
+    }
+
+    # Typical step between distinct time stamps of each gauge (sub-daily when under a day).
+    distinct = np.ones(codes.size, bool)
+    distinct[1:] = (codes[1:] != codes[:-1]) | (stamps_ns[1:] != stamps_ns[:-1])
+    d_codes, d_stamps = codes[distinct], stamps_ns[distinct]
+    same = d_codes[1:] == d_codes[:-1]
+    steps = (
+        pd.Series((d_stamps[1:] - d_stamps[:-1])[same] / _NS_PER_DAY)
+        .groupby(d_codes[1:][same])
+        .median()
+    )
+    step_of = np.full(n_gauges, np.nan)
+    step_of[steps.index.to_numpy(dtype=np.int64)] = steps.to_numpy()
+
+    # Daily means of the usable values: one run of rows per gauge and day.
+    new_day = np.ones(codes.size, bool)
+    new_day[1:] = (codes[1:] != codes[:-1]) | (day[1:] != day[:-1])
+    starts = np.flatnonzero(new_day)
+    usable = np.isfinite(values)
+    sums = np.add.reduceat(np.where(usable, values, 0.0), starts) if starts.size else np.empty(0)
+    counts = (
+        np.add.reduceat(usable.astype(np.int64), starts) if starts.size else np.empty(0, np.int64)
+    )
+    day_flagged = (
+        np.maximum.reduceat(flagged.astype(np.int8), starts).astype(bool)
+        if starts.size
+        else np.empty(0, bool)
+    )
+    day_code, day_number = codes[starts], day[starts]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.where(counts > 0, sums / np.maximum(counts, 1), np.nan)
+    sub_daily = step_of[day_code] < 1.0
+    expected = np.where(
+        sub_daily, np.maximum(np.rint(1.0 / np.where(sub_daily, step_of[day_code], 1.0)), 1.0), 1.0
+    )
+    short = sub_daily & (counts > 0) & (counts < min_day_coverage * expected)
+    mean[short] = np.nan
+    averaged = np.bincount(day_code, weights=(counts > 1).astype(float), minlength=n_gauges).astype(
+        int
+    )
+    incomplete = np.bincount(day_code, weights=short.astype(float), minlength=n_gauges).astype(int)
+
+    bounds = np.searchsorted(day_code, np.arange(n_gauges + 1))
+    index_of = {}
     records: dict[str, GaugeRecord] = {}
-    for gauge, rows in frame.groupby("gauge", sort=False):
-        records[str(gauge)] = _one_gauge(str(gauge), rows, float(min_day_coverage))
+    for g, name in enumerate(names):
+        a, b = bounds[g], bounds[g + 1]
+        if a == b:
+            flow = pd.Series(
+                [], dtype=float, index=pd.DatetimeIndex([], name="date"), name="discharge_m3s"
+            )
+            flags = pd.Series([], dtype=bool, index=flow.index, name="flagged")
+        else:
+            first, last = int(day_number[a]), int(day_number[b - 1])
+            key = (first, last)
+            index = index_of.get(key)
+            if index is None:
+                index = pd.date_range(
+                    np.datetime64(first, "D"), np.datetime64(last, "D"), freq="D", name="date"
+                )
+                index_of[key] = index
+            daily = np.full(last - first + 1, np.nan)
+            daily[day_number[a:b] - first] = mean[a:b]
+            marks = np.zeros(last - first + 1, bool)
+            marks[day_number[a:b] - first] = day_flagged[a:b]
+            flow = pd.Series(daily, index=index, name="discharge_m3s")
+            flags = pd.Series(marks, index=index, name="flagged")
+        counts_g = {k: int(v[g]) for k, v in problem_counts.items()}
+        counts_g.update(
+            {
+                "days_averaged": int(averaged[g]),
+                "days_incomplete": int(incomplete[g]),
+                "days_flagged": int(flags.sum()),
+                "sub_daily": bool(step_of[g] < 1.0),
+            }
+        )
+        records[name] = GaugeRecord(name, flow, counts_g, flags)
     return records
 
 
@@ -199,45 +312,3 @@ def _flagged(codes, flag_values):
         return (text.notna() & (text != "")).to_numpy()
     wanted = {str(v).strip() for v in flag_values}
     return text.isin(wanted).to_numpy()
-
-
-def _one_gauge(gauge, rows, min_day_coverage):
-    usable = rows[np.isfinite(rows["q"].to_numpy())]
-    per_day = usable.groupby("date", sort=True)["q"]
-    daily = per_day.mean()
-    count = per_day.size()
-    step = _typical_step_days(rows["stamp"])
-    incomplete = 0
-    if step is not None and step < 1.0:
-        expected = max(int(round(1.0 / step)), 1)
-        short = count < min_day_coverage * expected
-        incomplete = int(short.sum())
-        daily = daily[~short]
-    flagged_days = rows.loc[rows["flagged"].to_numpy(bool), "date"].unique()
-    all_days = rows["date"]
-    if all_days.empty:
-        flow = pd.Series([], dtype=float, index=pd.DatetimeIndex([], name="date"))
-    else:
-        full = pd.date_range(all_days.min(), all_days.max(), freq="D", name="date")
-        flow = daily.reindex(full).astype(float)
-    flow.name = "discharge_m3s"
-    flagged = pd.Series(flow.index.isin(flagged_days), index=flow.index, name="flagged")
-    counts = {
-        "missing": int(rows["missing"].sum()),
-        "non_numeric": int(rows["non_numeric"].sum()),
-        "negative": int(rows["negative"].sum()),
-        "days_averaged": int((count > 1).sum()),
-        "days_incomplete": incomplete,
-        "days_flagged": int(flagged.sum()),
-        "sub_daily": bool(step is not None and step < 1.0),
-    }
-    return GaugeRecord(gauge, flow, counts, flagged)
-
-
-def _typical_step_days(stamps):
-    """Median step between distinct time stamps, in days (None with fewer than two)."""
-    unique = np.unique(stamps.to_numpy(dtype="datetime64[ns]"))
-    if unique.size < 2:
-        return None
-    steps = np.diff(unique).astype("timedelta64[s]").astype(float) / 86400.0
-    return float(np.median(steps))

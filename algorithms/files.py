@@ -301,23 +301,30 @@ def _gpkg_type(series):
     return "TEXT"
 
 
-def _cell(value, kind):
-    if value is None or value is pd.NaT:
-        return None
-    if kind == "DATE":
-        return pd.Timestamp(value).strftime("%Y-%m-%d")
-    if kind == "DATETIME":
-        return pd.Timestamp(value).strftime("%Y-%m-%dT%H:%M:%SZ")
+def _cells(series, kind):
+    """A column's values as SQLite takes them (None for missing), converted column-wise."""
+    if kind in ("DATE", "DATETIME"):
+        values = series.to_numpy(dtype="datetime64[ns]")
+        missing = np.isnat(values)
+        unit, suffix = ("D", "") if kind == "DATE" else ("s", "Z")
+        text = np.char.add(np.datetime_as_string(values.astype(f"datetime64[{unit}]")), suffix)
+        out = text.astype(object)
+        out[missing] = None
+        return out.tolist()
     if kind == "BOOLEAN":
-        return int(bool(value))
+        return series.to_numpy(dtype=bool).astype(np.int64).tolist()
     if kind == "INTEGER":
-        return int(value)
+        return series.to_numpy(dtype=np.int64).tolist()
     if kind == "DOUBLE":
-        value = float(value)
-        return value if np.isfinite(value) else None
-    if isinstance(value, float) and np.isnan(value):
-        return None
-    return str(value)
+        values = series.to_numpy(dtype=float)
+        out = values.astype(object)
+        out[~np.isfinite(values)] = None
+        return out.tolist()
+    out = series.to_numpy(dtype=object)
+    missing = pd.isna(out)
+    text = np.array([str(v) for v in out], dtype=object) if len(out) else out
+    text[missing] = None
+    return text.tolist()
 
 
 def add_attribute_table(db, name, frame, description=""):
@@ -331,7 +338,7 @@ def add_attribute_table(db, name, frame, description=""):
     if len(frame):
         placeholders = ", ".join("?" for _ in kinds)
         names = ", ".join(f'"{c}"' for c in kinds)
-        rows = zip(*[[_cell(v, kinds[c]) for v in frame[c].tolist()] for c in kinds])
+        rows = zip(*[_cells(frame[c], kinds[c]) for c in kinds])
         db.executemany(f'INSERT INTO "{name}" ({names}) VALUES ({placeholders})', rows)
     now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.000Z")
     db.execute("DELETE FROM gpkg_contents WHERE table_name = ?", (name,))

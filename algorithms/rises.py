@@ -19,9 +19,10 @@ MAD_TO_SIGMA = 1.4826
 def log_flow(flow) -> np.ndarray:
     """log10 of daily flow, NaN where the flow is missing, zero or negative."""
     q = np.asarray(flow, dtype=float)
-    out = np.full(q.shape, np.nan)
-    good = np.isfinite(q) & (q > 0)
-    out[good] = np.log10(q[good])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out = np.log10(q)
+    # log10 gives -inf at zero and NaN below it or on NaN; +inf stays for an infinite flow.
+    out[~np.isfinite(out)] = np.nan
     return out
 
 

@@ -1,0 +1,58 @@
+"""The result object's helpers: per-gauge table, gauges layer, summary counts."""
+
+import numpy as np
+import pytest
+
+from recharge_atlas.algorithms.pipeline import Settings, check_links, run_atlas
+
+
+@pytest.fixture(scope="module")
+def result(demo_region):
+    return run_atlas(demo_region.gauges, demo_region.catchments, demo_region.discharge)
+
+
+def test_gauge_table_has_event_summaries(result):
+    table = result.gauge_table().set_index("gauge_id")
+    events = result.events[result.events["gauge_id"] == "QM01"]
+    used = events[events["used"]]
+    assert table.loc["QM01", "events"] == len(used)
+    assert table.loc["QM01", "events_skipped"] == len(events) - len(used)
+    assert table.loc["QM01", "mean_event_recharge_mm"] == pytest.approx(used["recharge_mm"].mean())
+
+
+def test_gauge_layer_keeps_rows_and_says_what_is_missing(result, demo_region):
+    layer = demo_region.gauges.iloc[[0, 1, 5]].assign(gauge_id=["QM01", None, "XX"])
+    out = result.gauge_layer(layer)
+    assert list(out.index) == list(layer.index) and out.geometry.name == "geometry"
+    assert out["quality"].tolist() == ["ok", "no gauge id", "gauge not run"]
+    assert out["events"].tolist()[1:] == [0, 0] and np.isnan(out["recharge_mm_per_year"].iloc[2])
+
+
+def test_summary_counts_skipped_gauges(demo_region):
+    discharge = demo_region.discharge[demo_region.discharge["gauge_id"] != "HB05"]
+    summary = run_atlas(demo_region.gauges, demo_region.catchments, discharge).summary
+    assert summary["gauges"] == 6 and summary["skipped"] == 1 and summary["computed"] == 5
+    assert summary["failed"] == 0
+
+
+def test_check_links_reports_progress_and_reported_areas(demo_region):
+    from recharge_atlas.algorithms.pipeline import Reporter
+
+    class Counting(Reporter):
+        calls = []
+
+        def progress(self, done, total, gauge_id=None):
+            self.calls.append((done, total))
+
+    gauges = demo_region.gauges.assign(reported_km2=[794.0, 400.0, 121.0, 55.0, 204.0, 90.0])
+    reporter = Counting()
+    layer, links = check_links(
+        gauges,
+        demo_region.catchments.drop(columns="gauge_id"),
+        Settings(reported_area_field="reported_km2"),
+        reporter,
+    )
+    assert reporter.calls[-1] == (6, 6) and len(reporter.calls) >= 6
+    assert (
+        "differs from the reported 400.0 km²" in layer.set_index("gauge_id").loc["QM02", "quality"]
+    )
