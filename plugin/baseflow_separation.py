@@ -61,6 +61,7 @@ class BaseflowSeparation(GaugeAlgorithm):
                 self.FLAG_VALUES,
                 self.CLASSES,
                 self.CLASS_COUNT,
+                self.WORKERS,
             ),
             basic=(self.BASEFLOW_METHOD, self.BFI_MAX, self.RECESSION_INDEX),
         )

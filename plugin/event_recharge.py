@@ -65,6 +65,7 @@ class EventRecharge(GaugeAlgorithm):
                 self.FLAG_VALUES,
                 self.CLASSES,
                 self.CLASS_COUNT,
+                self.WORKERS,
             )
         )
         self._table_sink(self.EVENTS, self.tr("Recharge events"), True, optional=False)

@@ -61,6 +61,7 @@ class RecessionIndex(GaugeAlgorithm):
                 self.FLAG_VALUES,
                 self.CLASSES,
                 self.CLASS_COUNT,
+                self.WORKERS,
             )
         )
         self._gauge_sink(self.tr("Gauges with recession index"))

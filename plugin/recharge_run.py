@@ -210,6 +210,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
     AREA_FIELD = "AREA_FIELD"
     CLASSES = "CLASSES"
     CLASS_COUNT = "CLASS_COUNT"
+    WORKERS = "WORKERS"
     UNGAUGED = "UNGAUGED"
     OUTPUT = "OUTPUT"
     ANNUAL = "ANNUAL"
@@ -370,6 +371,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
         REPORTED_AREA_FIELD,
         CLASSES,
         CLASS_COUNT,
+        WORKERS,
     )
 
     def _init_method_parameters(self, link=True, names=None, basic=()):
@@ -410,6 +412,15 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
                 type=compat.NUMBER_DOUBLE,
                 optional=True,
                 minValue=0.0,
+            )
+        if name == self.WORKERS:
+            return number(
+                name,
+                self.tr("Processes that share the gauges (results are identical)"),
+                type=compat.NUMBER_INTEGER,
+                defaultValue=1,
+                minValue=1,
+                maxValue=64,
             )
         if name == self.MIN_SEGMENT_DAYS:
             return number(
@@ -603,6 +614,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
         LINK_TOLERANCE: "link_tolerance_m",
         OVERLAP_TOLERANCE: "overlap_tolerance",
         UNGAUGED: "ungauged",
+        WORKERS: "workers",
     }
 
     def _value_problem(self, parameters, context):

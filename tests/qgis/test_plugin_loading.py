@@ -77,6 +77,7 @@ def test_parameters_are_the_briefs(algorithm):
         "REPORTED_AREA_FIELD",
         "CLASSES",
         "CLASS_COUNT",
+        "WORKERS",
         "OUTPUT",
         "INCREMENTAL_AREAS",
         "ANNUAL",
@@ -116,6 +117,7 @@ ADVANCED = [
     "REPORTED_AREA_FIELD",
     "CLASSES",
     "CLASS_COUNT",
+    "WORKERS",
 ]
 
 

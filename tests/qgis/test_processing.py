@@ -411,3 +411,26 @@ def test_help_describes_every_output_field_and_the_cautions(algorithm, core_resu
         assert words in text, words
     for parameter in algorithm.parameterDefinitions():  # "(NAME)" or "(NAME, optional ...)"
         assert re.search(rf"\({parameter.name()}[,)]", text), parameter.name()
+
+
+def test_two_worker_processes_give_the_same_numbers(qgis_app, processing_run, tmp_path):
+    """WORKERS shares the gauges among processes; the numbers do not change (issue 6)."""
+    import processing
+
+    from support_qgis import gpkg_layer
+
+    out = tmp_path / "workers.gpkg"
+    processing.run(
+        "recharge_atlas:catchmentrecharge",
+        sample_parameters(
+            WORKERS=2,
+            OUTPUT=gpkg_layer(out, "catchments", geometry=True),
+            ANNUAL=gpkg_layer(out, "annual"),
+        ),
+    )
+    one = {r["name"]: r for r in _rows(_layer(processing_run["path"], "catchments"))}
+    two = {r["name"]: r for r in _rows(_layer(out, "catchments"))}
+    assert one.keys() == two.keys()
+    for name, row in two.items():
+        for field in ("recharge_mm_per_year", "recession_index_days", "baseflow_index"):
+            assert _same(_number(row[field]), _number(one[name][field])), (name, field)
