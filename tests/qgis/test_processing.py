@@ -416,7 +416,6 @@ def test_help_describes_every_output_field_and_the_cautions(algorithm, core_resu
 def test_two_worker_processes_give_the_same_numbers(qgis_app, processing_run, tmp_path):
     """WORKERS shares the gauges among processes; the numbers do not change (issue 6)."""
     import processing
-
     from support_qgis import gpkg_layer
 
     out = tmp_path / "workers.gpkg"
