@@ -2,13 +2,15 @@
 
 from __future__ import annotations
 
+import datetime as _dt
 import functools
+import re
 from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 
-from .errors import InputError
+from .errors import InputError, listed, quoted
 from .units import canonical_units, to_cubic_metres_per_second
 
 #: Default share of a day's expected sub-daily values needed for a daily mean (our own rule).
@@ -27,8 +29,14 @@ class GaugeRecord:
         Daily mean discharge in m³/s on a complete daily ``DatetimeIndex`` from the first to the
         last dated value; days without a usable value are NaN.
     counts : dict
-        How many input values were missing (``missing``), not numbers (``non_numeric``),
-        negative or infinite (``negative``); how many days held several values that were
+        How many input rows the gauge had (``rows``); how many values were missing
+        (``missing``), not numbers (``non_numeric``), negative or infinite (``negative``) or
+        missing-value codes such as -999 (``missing_value_code``, the codes in
+        ``missing_value_codes``); how many rows had a date that could not be read
+        (``unreadable_dates``, one of them in ``unreadable_date_example``) and how many a
+        time-zone offset (``dates_with_offset``, ignored); how many rows repeated a time
+        already given (``repeated_rows``) and at how many times the values differed
+        (``conflicting_times``, averaged); how many days held several values that were
         averaged (``days_averaged``), sub-daily days with too few values (``days_incomplete``)
         and flagged days (``days_flagged``); and whether the record is sub-daily.
     flagged : pandas.Series of bool
@@ -90,13 +98,227 @@ def gauge_id_text(values) -> np.ndarray:
     return cleaned[codes]
 
 
-def require_columns(table: pd.DataFrame, columns, what: str):
+def require_columns(table: pd.DataFrame, columns, what: str, file=None):
     """Raise a short :class:`InputError` naming the missing columns and the ones found."""
     missing = [c for c in columns if c not in table.columns]
     if missing:
-        found = ", ".join(str(c) for c in table.columns) or "none"
-        names = ", ".join(repr(c) for c in missing)
-        raise InputError(f"the {what} has no field {names}; fields found: {found}")
+        names = ", ".join(quoted(c) for c in missing)
+        raise InputError(
+            f"the {what} has no field {names}; fields found: {listed(table.columns)}", file=file
+        )
+
+
+# --------------------------------------------------------------------------- dates
+
+_TIME = r"(?:(?:T|\s+)(?P<H>\d{1,2}):(?P<M>\d{2})(?::(?P<S>\d{2}(?:[.,]\d+)?))?)?"
+_ZONE = r"\s*(?P<Z>Z|UTC|GMT|[+-]\d{2}(?::?\d{2})?)?"
+#: Year first: 2020-01-31, 2020/01/31, 2020.01.31, with or without a time and an offset.
+_YEAR_FIRST = (
+    r"^(?P<y>\d{4})(?P<sep>[-/.])(?P<m>\d{1,2})(?P=sep)(?P<d>\d{1,2})" + _TIME + _ZONE + r"$"
+)
+#: Year first without separators: 20200131 (a time may follow).
+_COMPACT = r"^(?P<y>\d{4})(?P<m>\d{2})(?P<d>\d{2})" + _TIME + _ZONE + r"$"
+#: Day and month before a four-digit year: 31/01/2020 or 01/31/2020.
+_YEAR_LAST = (
+    r"^(?P<a>\d{1,2})(?P<sep>[-/.])(?P<b>\d{1,2})(?P=sep)(?P<y>\d{4})" + _TIME + _ZONE + r"$"
+)
+_MONTH_NAME = re.compile(
+    r"\b(jan|feb|mar|apr|may|jun|jul|aug|sep|oct|nov|dec)[a-z]*\b", re.IGNORECASE
+)
+
+
+@dataclass
+class DateReading:
+    """How the values of a date field were read.
+
+    Attributes
+    ----------
+    stamps : numpy.ndarray of datetime64[ns]
+        One per row; NaT where the row has no date or one that could not be read.
+    unreadable : numpy.ndarray of bool
+        Rows holding a value that could not be read as a date (empty cells are not counted).
+    offset : numpy.ndarray of bool
+        Rows whose time carried a time-zone offset (or Z); the offset is ignored.
+    with_offset : int
+        How many rows did.
+    order : str or None
+        For dates written with the year last: ``"day first"`` or ``"month first"``, as the
+        table showed; None when it has none.
+    ambiguous : str or None
+        A value like ``01/02/2020`` that could not be read because nothing in the table says
+        whether the day or the month comes first.
+    """
+
+    stamps: np.ndarray
+    unreadable: np.ndarray
+    offset: np.ndarray
+    with_offset: int = 0
+    order: str | None = None
+    ambiguous: str | None = None
+
+
+def read_dates(values) -> DateReading:
+    """Read a column of dates (or dates and times) the way a hydrologist writes them.
+
+    Each distinct value is read on its own, so one table may mix forms:
+
+    * year first: ``2020-01-31``, ``2020/01/31``, ``2020.01.31``, ``20200131``;
+    * day and month before a four-digit year: ``31/01/2020`` or ``01/31/2020``. Which comes
+      first is decided once for the table: the day, if some value has a first number over 12;
+      the month, if some value has a second number over 12. A table showing both is refused
+      (:class:`InputError`); values the table leaves open (``01/02/2020`` with no other hint)
+      are not read;
+    * with the month's name and a four-digit year: ``31 Jan 2020``, ``January 31, 2020``;
+    * date and time values already typed as such (Parquet, GeoPackage, QGIS).
+
+    A time may follow (``2020-01-31 06:15``, ``2020-01-31T06:15:00``). A time-zone offset
+    (``+02:00``, ``Z``) is ignored: each value keeps the clock time written, so it falls on the
+    calendar day printed in the table (gauges publish daily values by their local day).
+
+    Returns
+    -------
+    DateReading
+    """
+    column = values if isinstance(values, pd.Series) else pd.Series(values)
+    if pd.api.types.is_datetime64_any_dtype(column):
+        stamps = column
+        if getattr(stamps.dt, "tz", None) is not None:
+            stamps = stamps.dt.tz_localize(None)  # the clock time as written
+        none = np.zeros(len(column), dtype=bool)
+        return DateReading(stamps.to_numpy(dtype="datetime64[ns]"), none, none)
+    codes, uniques = pd.factorize(column, use_na_sentinel=True)
+    parsed, bad, offset, order, ambiguous = _read_distinct(list(uniques))
+    codes = np.asarray(codes)
+    has = codes >= 0
+    stamps = np.full(codes.size, np.datetime64("NaT"), dtype="datetime64[ns]")
+    stamps[has] = parsed[codes[has]]
+    unreadable = np.zeros(codes.size, dtype=bool)
+    unreadable[has] = bad[codes[has]]
+    with_offset = np.zeros(codes.size, dtype=bool)
+    if offset.any():
+        with_offset[has] = offset[codes[has]]
+    return DateReading(
+        stamps, unreadable, with_offset, int(np.count_nonzero(with_offset)), order, ambiguous
+    )
+
+
+#: A distinct date value that cannot be a date whatever its form (a boolean, a fraction).
+_NOT_A_DATE = object()
+
+
+def _text_of(value):
+    """A distinct value of a date column as text to read, a Timestamp, None (an empty cell)
+    or :data:`_NOT_A_DATE`."""
+    if value is None or value is pd.NaT:
+        return None
+    if isinstance(value, (pd.Timestamp, _dt.datetime, _dt.date, np.datetime64)):
+        try:
+            stamp = pd.Timestamp(value)
+        except (ValueError, OverflowError):
+            return _NOT_A_DATE
+        if stamp is pd.NaT:
+            return None
+        return stamp.tz_localize(None) if stamp.tzinfo is not None else stamp
+    if isinstance(value, (bool, np.bool_)):
+        return _NOT_A_DATE
+    if isinstance(value, (int, np.integer)):
+        return str(int(value))
+    if isinstance(value, (float, np.floating)):
+        if np.isnan(value):
+            return None
+        return str(int(value)) if float(value).is_integer() and abs(value) < 1e9 else _NOT_A_DATE
+    return str(value).strip() or None
+
+
+def _read_distinct(uniques):
+    """Read the distinct values of a date column (see :func:`read_dates`)."""
+    n = len(uniques)
+    parsed = np.full(n, np.datetime64("NaT"), dtype="datetime64[ns]")
+    bad = np.zeros(n, dtype=bool)
+    offset = np.zeros(n, dtype=bool)
+    texts = [_text_of(v) for v in uniques]
+    typed = [i for i, t in enumerate(texts) if isinstance(t, pd.Timestamp)]
+    if typed:
+        parsed[typed] = np.array([texts[i].asm8 for i in typed], dtype="datetime64[ns]")
+    rows = [i for i, t in enumerate(texts) if isinstance(t, str)]
+    order = ambiguous = None
+    if rows:
+        text = pd.Series([texts[i] for i in rows], index=rows, dtype=object)
+        found = pd.Series(False, index=rows)
+        for pattern in (_YEAR_FIRST, _COMPACT):
+            parts = text[~found].str.extract(pattern)
+            hit = parts["y"].notna()
+            if hit.any():
+                _assemble(parts[hit], parts[hit]["m"], parts[hit]["d"], parsed, offset)
+                found[hit[hit].index] = True
+        parts = text[~found].str.extract(_YEAR_LAST)
+        hit = parts["y"].notna()
+        if hit.any():
+            parts = parts[hit]
+            first, second = parts["a"].astype(int), parts["b"].astype(int)
+            day_first, month_first = bool((first > 12).any()), bool((second > 12).any())
+            if day_first and month_first:
+                a = parts.index[(first > 12).to_numpy()][0]
+                b = parts.index[(second > 12).to_numpy()][0]
+                raise InputError(
+                    f"the dates mix day/month/year ({quoted(texts[a])}) and month/day/year "
+                    f"({quoted(texts[b])}); write them as year-month-day (2020-01-31)"
+                )
+            if day_first or month_first:
+                order = "day first" if day_first else "month first"
+                day, month = (parts["a"], parts["b"]) if day_first else (parts["b"], parts["a"])
+                _assemble(parts, month, day, parsed, offset)
+                found[parts.index] = True
+            else:
+                ambiguous = texts[parts.index[0]]
+        rest = [i for i in text.index[~found.to_numpy()] if _MONTH_NAME.search(texts[i])]
+        for i in rest:
+            if not re.search(r"\b\d{4}\b", texts[i]):
+                continue
+            try:
+                stamp = pd.Timestamp(texts[i])
+            except (ValueError, OverflowError, TypeError):
+                continue
+            if stamp is pd.NaT:
+                continue
+            parsed[i] = (stamp.tz_localize(None) if stamp.tzinfo is not None else stamp).asm8
+        bad[rows] = np.isnat(parsed[rows])
+    for i, t in enumerate(texts):
+        if t is _NOT_A_DATE:
+            bad[i] = True
+    return parsed, bad, offset, order, ambiguous
+
+
+def _assemble(parts, month, day, parsed, offset):
+    """Fill ``parsed`` (at the index of ``parts``) from the captured pieces of a pattern."""
+    numbers = {
+        "year": parts["y"].astype(int).to_numpy(),
+        "month": month.astype(int).to_numpy(),
+        "day": day.astype(int).to_numpy(),
+    }
+    hour = parts["H"].fillna("0").astype(int).to_numpy()
+    minute = parts["M"].fillna("0").astype(int).to_numpy()
+    second = parts["S"].fillna("0").str.replace(",", ".", regex=False).astype(float).to_numpy()
+    dates = pd.to_datetime(pd.DataFrame(numbers), errors="coerce").to_numpy(dtype="datetime64[ns]")
+    # 24:00 is the end of the day (ISO 8601); other times must lie within the day.
+    valid = ((hour < 24) | ((hour == 24) & (minute == 0) & (second == 0))) & (minute < 60)
+    valid &= second < 61
+    seconds = hour * 3600.0 + minute * 60.0 + second
+    stamps = dates + (seconds * 1e9).astype(np.int64).astype("timedelta64[ns]")
+    stamps[~valid] = np.datetime64("NaT")
+    index = parts.index.to_numpy()
+    parsed[index] = stamps
+    offset[index] = parts["Z"].notna().to_numpy()
+
+
+#: Missing-value codes written as numbers: nines, negative or positive (our own list, from
+#: common practice in gauge exports). Negative ones are left out like any negative value; a
+#: positive one only where it repeats and stands far above the gauge's other flows.
+MISSING_VALUE_CODES = (-999999.0, -99999.0, -9999.0, -999.0, -99.0, -9.0)
+POSITIVE_MISSING_VALUE_CODES = (999.0, 9999.0, 99999.0, 999999.0)
+#: A positive code is read as missing only where it stands this many times above the gauge's
+#: median flow (our own rule).
+CODE_ABOVE_MEDIAN = 10.0
 
 
 def tidy_discharge(
@@ -134,9 +356,19 @@ def tidy_discharge(
     dict of str to GaugeRecord
         Keyed by gauge id text, in order of first appearance.
 
+    Raises
+    ------
+    InputError
+        When a field is missing, when the table has rows but no date or no value in it can be
+        read, or when its dates mix day-first and month-first forms.
+
     Notes
     -----
-    Missing, non-numeric, negative and infinite values become missing and are counted. Several
+    Dates are read by :func:`read_dates`; rows whose date cannot be read are left out and
+    counted. Missing, non-numeric, negative and infinite values become missing and are counted;
+    so are missing-value codes (:data:`MISSING_VALUE_CODES`, and a positive code of nines that
+    repeats far above the gauge's median flow). Rows with the same gauge and time are merged:
+    equal values silently (counted), different ones averaged and counted as conflicting. Several
     values on one day are averaged into the daily mean. A record is taken as sub-daily when the
     typical step between its time stamps is shorter than a day; the expected count of values a
     day is then one day over that step.
@@ -156,13 +388,14 @@ def tidy_discharge(
 
     ids = gauge_id_text(table[gauge_field].to_numpy())
     raw = table[value_field]
-    dates = table[date_field]
-    if pd.api.types.is_datetime64_any_dtype(dates):
-        stamps = pd.Series(dates.to_numpy())
-    else:
-        stamps = pd.to_datetime(pd.Series(dates.to_numpy()), errors="coerce")
-    if getattr(stamps.dt, "tz", None) is not None:
-        stamps = stamps.dt.tz_localize(None)
+    try:
+        dates = read_dates(table[date_field])
+    except InputError as exc:
+        raise exc.located(field=date_field) from None
+    stamp = dates.stamps
+    has_stamp = ~np.isnat(stamp)
+    if len(table) and not has_stamp.any():
+        raise InputError(_no_dates_message(table[date_field], dates), field=date_field)
 
     was_missing = raw.isna().to_numpy()
     if pd.api.types.is_numeric_dtype(raw) and not pd.api.types.is_bool_dtype(raw):
@@ -172,33 +405,146 @@ def tidy_discharge(
             dtype=float, na_value=np.nan
         )
     non_numeric = np.isnan(numeric) & ~was_missing
+    if len(table) and not (has_stamp & ~np.isnan(numeric)).any() and non_numeric.any():
+        raise InputError(_no_numbers_message(raw, non_numeric), field=value_field)
+    code = np.isin(numeric, MISSING_VALUE_CODES)
     values = to_cubic_metres_per_second(numeric, units)
     with np.errstate(invalid="ignore"):
-        bad_sign = (~np.isfinite(values) & ~np.isnan(values)) | (values < 0)
-    values[bad_sign] = np.nan
+        bad_sign = ((~np.isfinite(values) & ~np.isnan(values)) | (values < 0)) & ~code
+    values[bad_sign | code] = np.nan
     flagged = _flagged(table[flag_field], flag_values) if flag_field else np.zeros(len(table), bool)
 
-    stamp = stamps.to_numpy(dtype="datetime64[ns]")
-    has_stamp = ~np.isnat(stamp)
-    if len(table) and not has_stamp.any():
-        raise InputError(
-            f"no value in the date field {date_field!r} could be read as a date", field=date_field
-        )
-    keep = has_stamp & (ids != None)  # noqa: E711 (element-wise comparison)
-    codes, names = pd.factorize(pd.Series(ids[keep], dtype=object), sort=False)
-    return _split_gauges(
+    named = ids != None  # noqa: E711 (element-wise comparison)
+    positions = np.flatnonzero(named)
+    gauge_of_row, names = pd.factorize(pd.Series(ids[named], dtype=object), sort=False)
+    gauge_of_row = np.asarray(gauge_of_row, dtype=np.int64)
+    n_gauges = len(names)
+    keep = has_stamp[named]
+    kept = positions[keep]
+    codes = gauge_of_row[keep]
+    values = values[kept]
+    positive = _positive_codes(codes, numeric[kept], values, n_gauges)
+    values[positive] = np.nan
+    is_code = code[kept] | positive
+    records = _split_gauges(
         [str(n) for n in names],
-        codes.astype(np.int64),
-        stamp[keep].astype(np.int64),
-        values[keep],
+        codes,
+        stamp[kept].astype(np.int64),
+        values,
         {
-            "missing": was_missing[keep],
-            "non_numeric": non_numeric[keep],
-            "negative": bad_sign[keep],
+            "missing": was_missing[kept],
+            "non_numeric": non_numeric[kept],
+            "negative": bad_sign[kept],
+            "missing_value_code": is_code,
         },
-        flagged[keep],
+        flagged[kept],
         float(min_day_coverage),
     )
+    rows = np.bincount(gauge_of_row, minlength=n_gauges)
+    unreadable = dates.unreadable[named]
+    unread = np.bincount(gauge_of_row, weights=unreadable, minlength=n_gauges).astype(int)
+    examples = _first_of_each(gauge_of_row[unreadable], positions[unreadable], table[date_field])
+    offsets = (
+        np.bincount(gauge_of_row, weights=dates.offset[named], minlength=n_gauges).astype(int)
+        if dates.with_offset
+        else np.zeros(n_gauges, int)
+    )
+    code_values = _code_values(codes, numeric[kept], is_code)
+    for g, record in enumerate(records.values()):
+        record.counts.update(
+            {
+                "rows": int(rows[g]),
+                "unreadable_dates": int(unread[g]),
+                "unreadable_date_example": examples.get(g),
+                "dates_with_offset": int(offsets[g]),
+                "date_order": dates.order,
+                "missing_value_codes": code_values.get(g, []),
+            }
+        )
+    return records
+
+
+def _first_of_each(groups, positions, column):
+    """The value of ``column`` at the first position of each group: {group: text}."""
+    if not groups.size:
+        return {}
+    first_groups, first = np.unique(groups, return_index=True)
+    values = column.iloc[positions[first]].tolist()
+    return {int(g): str(v).strip() for g, v in zip(first_groups, values)}
+
+
+def _positive_codes(codes, numeric, values, n_gauges):
+    """Rows holding a positive missing-value code (9999, ...): the same code on two rows or
+    more of one gauge, standing :data:`CODE_ABOVE_MEDIAN` times above the gauge's median."""
+    candidate = np.isin(numeric, POSITIVE_MISSING_VALUE_CODES)
+    if not candidate.any():
+        return candidate
+    others = ~candidate & np.isfinite(values)
+    median = np.full(n_gauges, np.nan)
+    if others.any():
+        by_gauge = pd.Series(values[others]).groupby(codes[others]).median()
+        median[by_gauge.index.to_numpy(dtype=np.int64)] = by_gauge.to_numpy()
+    pairs = pd.DataFrame({"gauge": codes[candidate], "value": numeric[candidate]})
+    repeats = pairs.groupby(["gauge", "value"]).size()
+    repeated = {key for key, count in repeats.items() if count >= 2}
+    rows = np.flatnonzero(candidate)
+    out = np.zeros(codes.size, dtype=bool)
+    for row in rows:
+        g = int(codes[row])
+        if (g, numeric[row]) not in repeated:
+            continue
+        level = median[g]
+        if not np.isfinite(level) or values[row] > CODE_ABOVE_MEDIAN * level:
+            out[row] = True
+    return out
+
+
+def _code_values(codes, numeric, is_code):
+    """The missing-value codes each gauge used, with how many rows: {gauge: [(code, rows)]}."""
+    if not is_code.any():
+        return {}
+    pairs = pd.DataFrame({"gauge": codes[is_code], "value": numeric[is_code]})
+    out = {}
+    for (g, value), count in pairs.groupby(["gauge", "value"]).size().items():
+        out.setdefault(int(g), []).append((float(value), int(count)))
+    return out
+
+
+def _first_filled(column, mask=None):
+    """(row number counted from 1, value) of the first non-empty cell of ``column`` (where
+    ``mask`` is True, when given); (None, None) when there is none."""
+    values = column.to_numpy(dtype=object)
+    for position, value in enumerate(values):
+        if mask is not None and not mask[position]:
+            continue
+        if value is None or value is pd.NaT or (isinstance(value, float) and np.isnan(value)):
+            continue
+        if str(value).strip():
+            return position + 1, value
+    return None, None
+
+
+def _no_dates_message(column, dates):
+    if dates.ambiguous is not None:
+        return (
+            f"no date could be read: dates like {quoted(dates.ambiguous)} may be day/month or "
+            "month/day and nothing in the table tells which; write them as 2020-01-31"
+        )
+    row, value = _first_filled(column)
+    if row is None:
+        return "the date field is empty in every row"
+    return (
+        f"no value of the date field could be read as a date (row {row}: {quoted(value)}); "
+        "write dates as 2020-01-31"
+    )
+
+
+def _no_numbers_message(column, non_numeric):
+    row, value = _first_filled(column, non_numeric)
+    text = f"no value of the discharge field is a number (row {row}: {quoted(value)})"
+    if re.fullmatch(r"\s*[-+]?\d+,\d+\s*", str(value)):
+        text += "; decimal commas are not read: write 1.5, not 1,5"
+    return text
 
 
 _NS_PER_DAY = 86_400 * 10**9
@@ -228,6 +574,20 @@ def _split_gauges(names, codes, stamps_ns, values, problems, flagged, min_day_co
     # Typical step between distinct time stamps of each gauge (sub-daily when under a day).
     distinct = np.ones(codes.size, bool)
     distinct[1:] = (codes[1:] != codes[:-1]) | (stamps_ns[1:] != stamps_ns[:-1])
+    # Rows repeating a time already given: merged (their mean is the day's value), counted,
+    # and counted as conflicting where their values differ.
+    runs = np.flatnonzero(distinct)
+    if runs.size < codes.size:
+        length = np.diff(np.append(runs, codes.size))
+        with np.errstate(invalid="ignore"):
+            high = np.fmax.reduceat(values, runs)
+            low = np.fmin.reduceat(values, runs)
+            differ = (length > 1) & (high - low > 1e-6 * np.maximum(np.abs(high), 1e-12))
+        run_code = codes[runs]
+        repeated = np.bincount(run_code, weights=length - 1, minlength=n_gauges).astype(int)
+        conflicting = np.bincount(run_code, weights=differ, minlength=n_gauges).astype(int)
+    else:
+        repeated = conflicting = np.zeros(n_gauges, dtype=int)
     d_codes, d_stamps = codes[distinct], stamps_ns[distinct]
     same = d_codes[1:] == d_codes[:-1]
     steps = (
@@ -294,6 +654,8 @@ def _split_gauges(names, codes, stamps_ns, values, problems, flagged, min_day_co
         counts_g = {k: int(v[g]) for k, v in problem_counts.items()}
         counts_g.update(
             {
+                "repeated_rows": int(repeated[g]),
+                "conflicting_times": int(conflicting[g]),
                 "days_averaged": int(averaged[g]),
                 "days_incomplete": int(incomplete[g]),
                 "days_flagged": int(flags.sum()),
