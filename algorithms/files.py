@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .errors import InputError
+from .errors import InputError, describe, listed, quoted
 
 #: File suffixes read as delimited text.
 TEXT_SUFFIXES = {".csv", ".txt", ".tsv"}
@@ -38,7 +38,37 @@ def _existing(path, what):
         raise InputError(f"the {what} file does not exist", file=str(file_path))
     if file_path.is_dir() and file_path.suffix.lower() not in {".gdb"}:
         raise InputError(f"the {what} path is a folder, not a file", file=str(file_path))
+    if file_path.is_file():
+        if not os.access(file_path, os.R_OK):
+            raise InputError(f"the {what} file cannot be read (no permission)", file=str(file_path))
+        if file_path.stat().st_size == 0:
+            raise InputError(f"the {what} file is empty", file=str(file_path))
+        _check_signature(file_path, what)
     return file_path, layer
+
+
+#: How files of a format begin (the first bytes), by file suffix, and the format's name.
+_SIGNATURES = {
+    ".gpkg": (b"SQLite format 3\x00", "GeoPackage"),
+    ".sqlite": (b"SQLite format 3\x00", "SQLite/SpatiaLite database"),
+    ".parquet": (b"PAR1", "Parquet file"),
+    ".shp": (b"\x00\x00\x27\x0a", "shapefile"),
+}
+
+
+def _check_signature(file_path, what):
+    """A clear error when a file's first bytes are not those of the format its name says."""
+    expected = _SIGNATURES.get(file_path.suffix.lower())
+    if expected is None:
+        return
+    start, kind = expected
+    with open(file_path, "rb") as handle:
+        head = handle.read(len(start))
+    if head != start:
+        raise InputError(
+            f"the {what} file is not a {kind}, though its name ends in {file_path.suffix}",
+            file=str(file_path),
+        )
 
 
 def read_layer(path, what="layer"):
@@ -49,11 +79,48 @@ def read_layer(path, what="layer"):
     try:
         frame = gpd.read_file(file_path, layer=layer) if layer else gpd.read_file(file_path)
     except Exception as exc:  # the readers raise many types; the user needs one sentence
-        raise InputError(
-            f"the {what} file could not be read as a vector layer: {_first_line(exc)}",
-            file=str(file_path),
-        ) from None
+        raise _layer_error(exc, file_path, layer, what) from None
     return frame
+
+
+def _layer_error(exc, file_path, layer, what):
+    """The InputError for a layer GDAL could not read, in our words where we know them."""
+    text = _first_line(exc)
+    lower = text.lower()
+    if "not recognized as" in lower and "format" in lower:
+        message = f"the {what} file is not in a vector format that GDAL reads"
+    elif layer is not None and ("layer" in lower or "not found" in lower):
+        names = _layer_names(file_path)
+        message = f"the {what} file has no layer {quoted(layer)}"
+        if names:
+            message += f"; layers found: {listed(names)}"
+    else:
+        message = f"the {what} file could not be read as a vector layer: {_reason(exc, file_path)}"
+    return InputError(message, file=str(file_path))
+
+
+def _layer_names(file_path):
+    """The layers of a vector file ([] when they cannot be listed)."""
+    try:
+        import pyogrio
+
+        return [str(name) for name in pyogrio.list_layers(file_path)[:, 0]]
+    except Exception:
+        pass
+    try:
+        import fiona
+
+        return list(fiona.listlayers(str(file_path)))
+    except Exception:
+        return []
+
+
+def _reason(exc, file_path=None):
+    """The first line of a reader's error, without the file path it repeats."""
+    text = _first_line(exc)
+    if file_path is not None:
+        text = text.replace(f"'{file_path}'", "the file").replace(str(file_path), "the file")
+    return text
 
 
 def read_table(path, what="discharge table"):
@@ -66,8 +133,13 @@ def read_table(path, what="discharge table"):
     suffix = file_path.suffix.lower()
     try:
         if suffix in TEXT_SUFFIXES:
+            encoding = _text_encoding(file_path, what)
             return pd.read_csv(
-                file_path, dtype=str, sep=_separator(file_path), skipinitialspace=True
+                file_path,
+                dtype=str,
+                sep=_separator(file_path, encoding),
+                skipinitialspace=True,
+                encoding=encoding,
             )
         if suffix == ".parquet":
             return pd.read_parquet(file_path)
@@ -76,18 +148,41 @@ def read_table(path, what="discharge table"):
         raise
     except Exception as exc:
         raise InputError(
-            f"the {what} file could not be read: {_first_line(exc)}", file=str(file_path)
+            f"the {what} file could not be read: {_reason(exc, file_path)}", file=str(file_path)
         ) from None
     if "geometry" in frame.columns:
         frame = pd.DataFrame(frame.drop(columns="geometry"))
     return frame
 
 
-def _separator(file_path):
+#: Bytes looked at to tell a text table from a binary file and to find its encoding.
+_SNIFF_BYTES = 1 << 20
+
+
+def _text_encoding(file_path, what):
+    """The encoding of a text table: UTF-8 (with or without a byte-order mark), else Latin-1
+    (Windows exports). A file holding NUL bytes is not text: a clear error says so."""
+    with open(file_path, "rb") as handle:
+        head = handle.read(_SNIFF_BYTES)
+    if b"\x00" in head:
+        raise InputError(
+            f"the {what} file is not a text table (it holds binary data; is it another format "
+            f"renamed {file_path.suffix}?)",
+            file=str(file_path),
+        )
+    try:
+        head.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        if exc.start < len(head) - 4:  # not just a character cut at the end of the sample
+            return "latin-1"
+    return "utf-8-sig"
+
+
+def _separator(file_path, encoding="utf-8-sig"):
     """The column separator of a text table, judged from its first line (comma by default)."""
     if file_path.suffix.lower() == ".tsv":
         return "\t"
-    with open(file_path, encoding="utf-8", errors="replace") as handle:
+    with open(file_path, encoding=encoding, errors="replace") as handle:
         first = handle.readline()
     counts = {sep: first.count(sep) for sep in (",", ";", "\t", "|")}
     best = max(counts, key=counts.get)
@@ -140,7 +235,7 @@ def _parquet_groups(file_path, gauge_field, batches, what):
         ) from None
     if gauge_field not in schema.names:
         raise InputError(
-            f"the {what} has no field {gauge_field!r}; fields found: {', '.join(schema.names)}",
+            f"the {what} has no field {quoted(gauge_field)}; fields found: {listed(schema.names)}",
             file=str(file_path),
         )
     kind = schema.field(gauge_field).type
@@ -167,18 +262,24 @@ def _text_groups(file_path, gauge_field, batches, what):
     from .discharge import gauge_id_text
 
     group_of = {gid: i for i, batch in enumerate(batches) for gid in batch}
-    sep = _separator(file_path)
+    encoding = _text_encoding(file_path, what)
+    sep = _separator(file_path, encoding)
     with tempfile.TemporaryDirectory(prefix="recharge-atlas-groups-") as folder:
         written = set()
         reader = pd.read_csv(
-            file_path, dtype=str, sep=sep, skipinitialspace=True, chunksize=500_000
+            file_path,
+            dtype=str,
+            sep=sep,
+            skipinitialspace=True,
+            chunksize=500_000,
+            encoding=encoding,
         )
         try:
             for chunk in reader:
                 if gauge_field not in chunk.columns:
-                    found = ", ".join(str(c) for c in chunk.columns)
                     raise InputError(
-                        f"the {what} has no field {gauge_field!r}; fields found: {found}",
+                        f"the {what} has no field {quoted(gauge_field)}; "
+                        f"fields found: {listed(chunk.columns)}",
                         file=str(file_path),
                     )
                 groups = np.array(
@@ -194,7 +295,8 @@ def _text_groups(file_path, gauge_field, batches, what):
             raise
         except Exception as exc:
             raise InputError(
-                f"the {what} file could not be read: {_first_line(exc)}", file=str(file_path)
+                f"the {what} file could not be read: {_reason(exc, file_path)}",
+                file=str(file_path),
             ) from None
         for group in range(len(batches)):
             if group in written:
@@ -209,25 +311,126 @@ def _first_line(exc):
 # --------------------------------------------------------------------------- writing
 
 
-@contextmanager
-def atomic_path(target):
-    """Yield a temporary path beside ``target``; move it into place only on success."""
-    target = Path(target)
+def check_output(path, what="output"):
+    """Raise :class:`InputError` unless ``path`` can be written: its folder exists and is
+    writable, and the path itself is not a folder. Called before a run, so a bad output path
+    fails at once rather than after the work."""
+    target = Path(path)
     folder = target.parent if str(target.parent) else Path(".")
+    if target.is_dir():
+        raise InputError(f"the {what} path is a folder; give a file name", file=str(target))
     if not folder.exists():
         raise InputError("the output folder does not exist", file=str(folder))
+    if not folder.is_dir():
+        raise InputError("the output folder is a file, not a folder", file=str(folder))
     if not os.access(folder, os.W_OK):
         raise InputError("the output folder is not writable", file=str(folder))
-    handle, temp = tempfile.mkstemp(prefix=f".{target.stem}.", suffix=target.suffix, dir=folder)
+    return target
+
+
+def _temporary_beside(target):
+    """A free temporary name beside ``target`` (hidden, same suffix); the file is not created."""
+    folder = target.parent if str(target.parent) else Path(".")
+    try:
+        handle, temp = tempfile.mkstemp(prefix=f".{target.stem}.", suffix=target.suffix, dir=folder)
+    except OSError as exc:
+        raise InputError(
+            f"the output could not be written: {exc.strerror or describe(exc)}",
+            file=str(target),
+        ) from None
     os.close(handle)
     os.unlink(temp)  # writers want to create the file themselves
+    return temp
+
+
+def _remove_leftovers(temp):
+    for leftover in (temp, temp + "-journal", temp + "-wal", temp + "-shm"):
+        if os.path.lexists(leftover):
+            try:
+                os.unlink(leftover)
+            except OSError:
+                pass
+
+
+@contextmanager
+def atomic_path(target):
+    """Yield a temporary path beside ``target``; move it into place only on success.
+
+    On any failure the temporary file (and SQLite's journal files) is removed, so no partial
+    output remains; a failure of the disk or the file system (:class:`OSError`: full,
+    read-only, no permission) becomes an :class:`InputError` naming the target.
+    """
+    target = check_output(target)
+    temp = _temporary_beside(target)
     try:
         yield Path(temp)
         os.replace(temp, target)
+    except OSError as exc:
+        raise InputError(
+            f"the output could not be written: {exc.strerror or describe(exc)}",
+            file=str(target),
+        ) from None
     finally:
-        for leftover in (temp, temp + "-journal", temp + "-wal", temp + "-shm"):
-            if os.path.exists(leftover):
-                os.unlink(leftover)
+        _remove_leftovers(temp)
+
+
+class StagedOutputs:
+    """Several outputs written to temporary files beside their targets and moved into place
+    together, once every one of them is complete (see :func:`staged_outputs`)."""
+
+    def __init__(self):
+        self.moves = []
+
+    def path(self, target, what="output") -> Path:
+        """The temporary path to write ``target`` to."""
+        target = check_output(target, what)
+        temp = _temporary_beside(target)
+        self.moves.append((temp, target))
+        return Path(temp)
+
+    def commit(self):
+        for temp, target in self.moves:
+            try:
+                os.replace(temp, target)
+            except OSError as exc:
+                raise InputError(
+                    f"the output could not be written: {exc.strerror or describe(exc)}",
+                    file=str(target),
+                ) from None
+
+    def discard(self):
+        for temp, _target in self.moves:
+            _remove_leftovers(temp)
+
+
+@contextmanager
+def staged_outputs():
+    """Write several outputs all or nothing.
+
+    >>> with staged_outputs() as stage:                    # doctest: +SKIP
+    ...     write_geopackage(result, stage.path("out.gpkg"))
+    ...     save_figure(figure, stage.path("map.png"))
+
+    Each ``stage.path(target)`` is a temporary name beside the target. When the block ends
+    normally, every file moves into place; when it fails or is interrupted, every temporary
+    file is removed and no target is touched.
+    """
+    stage = StagedOutputs()
+    try:
+        yield stage
+        stage.commit()
+    except InputError as exc:  # name the output the user gave, not its temporary file
+        for temp, target in stage.moves:
+            if exc.file is not None and str(exc.file) == str(temp):
+                exc.file = None
+                exc.located(file=str(target))
+        raise
+    except OSError as exc:
+        raise InputError(
+            f"the output could not be written: {exc.strerror or describe(exc)}"
+        ) from None
+    finally:
+        stage.discard()
 
 
 #: Tables of a run's GeoPackage: name, result attribute, description.
@@ -327,19 +530,25 @@ def _cells(series, kind):
     return text.tolist()
 
 
+def _identifier(name) -> str:
+    """A table or column name quoted for SQLite (a double quote inside is doubled)."""
+    return '"' + str(name).replace('"', '""') + '"'
+
+
 def add_attribute_table(db, name, frame, description=""):
     """Add a non-spatial table to an open GeoPackage (data type ``attributes``, GPKG 1.2+)."""
     kinds = {column: _gpkg_type(frame[column]) for column in frame.columns}
-    columns_sql = ", ".join(f'"{c}" {k}' for c, k in kinds.items())
-    db.execute(f'DROP TABLE IF EXISTS "{name}"')
+    table = _identifier(name)
+    columns_sql = ", ".join(f"{_identifier(c)} {k}" for c, k in kinds.items())
+    db.execute(f"DROP TABLE IF EXISTS {table}")
     db.execute(
-        f'CREATE TABLE "{name}" (fid INTEGER PRIMARY KEY AUTOINCREMENT NOT NULL{", " if kinds else ""}{columns_sql})'
+        f"CREATE TABLE {table} (fid INTEGER PRIMARY KEY AUTOINCREMENT NOT NULL{', ' if kinds else ''}{columns_sql})"
     )
     if len(frame):
         placeholders = ", ".join("?" for _ in kinds)
-        names = ", ".join(f'"{c}"' for c in kinds)
+        names = ", ".join(_identifier(c) for c in kinds)
         rows = zip(*[_cells(frame[c], kinds[c]) for c in kinds])
-        db.executemany(f'INSERT INTO "{name}" ({names}) VALUES ({placeholders})', rows)
+        db.executemany(f"INSERT INTO {table} ({names}) VALUES ({placeholders})", rows)
     now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.000Z")
     db.execute("DELETE FROM gpkg_contents WHERE table_name = ?", (name,))
     db.execute(
@@ -358,5 +567,5 @@ def add_attribute_table(db, name, frame, description=""):
 def read_attribute_table(path, name):
     """Read a non-spatial table written by :func:`add_attribute_table` (for tests and reports)."""
     with sqlite3.connect(f"file:{Path(path)}?mode=ro", uri=True) as db:
-        frame = pd.read_sql_query(f'SELECT * FROM "{name}"', db)
+        frame = pd.read_sql_query(f"SELECT * FROM {_identifier(name)}", db)
     return frame.drop(columns="fid")
