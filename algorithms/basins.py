@@ -14,18 +14,31 @@ import numpy as np
 import pandas as pd
 
 from .discharge import gauge_id_text, require_columns
-from .errors import InputError
+from .errors import InputError, quoted
 
 #: Default distance (m) within which a gauge may lie from its catchment's boundary.
 LINK_TOLERANCE_M = 100.0
 
 
 def _layer_crs(geometries, what):
+    """The layer's CRS, or a clear error when it has none (or one that says "undefined", as a
+    GeoPackage written without a CRS reads back) or one not tied to the earth."""
     from pyproj import CRS
 
     if geometries.crs is None:
         raise InputError(f"the {what} layer has no coordinate reference system (CRS)")
-    return CRS(geometries.crs)
+    crs = CRS(geometries.crs)
+    name = crs.name or ""
+    if name.lower().startswith("undefined"):
+        raise InputError(
+            f"the {what} layer has no coordinate reference system (CRS): it says {quoted(name)}"
+        )
+    if crs.geodetic_crs is None:
+        raise InputError(
+            f"the {what} layer's coordinate reference system ({quoted(name)}) is not tied to the "
+            "earth, so areas cannot be measured; give the layer its real CRS"
+        )
+    return crs
 
 
 def geodesic_area_km2(geometries, what="catchments") -> np.ndarray:
@@ -50,7 +63,22 @@ def geodesic_area_km2(geometries, what="catchments") -> np.ndarray:
     crs = _layer_crs(geometries, what)
     lonlat = geometries.to_crs(crs.geodetic_crs)
     geod = crs.get_geod()
-    return np.array([_polygon_area(geod, g) for g in lonlat], dtype=float) / 1e6
+    areas = np.array([_polygon_area(geod, g) for g in lonlat], dtype=float) / 1e6
+    areas[~fits_the_earth(lonlat)] = np.nan
+    return areas
+
+
+def fits_the_earth(lonlat) -> np.ndarray:
+    """Whether each geometry (in longitude and latitude) has finite coordinates with latitudes
+    within ±90°: coordinates beyond mean a wrong CRS (metres read as degrees) or a bad vertex.
+    Missing and empty geometries count as fitting."""
+    if not len(lonlat):
+        return np.zeros(0, dtype=bool)
+    bounds = np.asarray(lonlat.bounds, dtype=float)
+    empty = np.asarray([g is None or g.is_empty for g in lonlat], dtype=bool)
+    with np.errstate(invalid="ignore"):
+        fine = np.isfinite(bounds).all(axis=1) & (bounds[:, 1] >= -90.0) & (bounds[:, 3] <= 90.0)
+    return fine | empty
 
 
 def _polygon_area(geod, geometry):
@@ -305,6 +333,10 @@ def link_spatially(
             r for r in near if catchments.iloc[r] is not None and not catchments.iloc[r].is_empty
         ]
         lon, lat = to_lonlat.transform(point.x, point.y)
+        if not (np.isfinite(lon) and np.isfinite(lat) and -90.0 <= lat <= 90.0):
+            links.unlinked.append(gid)
+            links.notes[gid] = "gauge location lies outside its CRS's range of the earth"
+            continue
         local = CRS.from_proj4(f"+proj=aeqd +lat_0={lat} +lon_0={lon} +datum=WGS84 +units=m")
         shapes = gpd.GeoSeries([point] + [catchments.iloc[r] for r in near], crs=crs).to_crs(local)
         origin = shapes.iloc[0]
