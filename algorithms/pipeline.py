@@ -19,7 +19,7 @@ from .baseflow import BFIMAX_TYPICAL, METHODS, baseflow_index, separate_baseflow
 from .basins import LINK_TOLERANCE_M, geodesic_area_km2, link_by_id, link_spatially, repair_polygons
 from .discharge import MIN_DAY_COVERAGE, GaugeRecord, gauge_id_text, require_columns, tidy_discharge
 from .displacement import EVENT_COLUMNS, CleanDays, event_columns, event_volumes
-from .errors import InputError
+from .errors import InputError, counted, describe, quoted
 from .nesting import OVERLAP_TOLERANCE, find_nesting, incremental_recharge
 from .recession import (
     MASTER_RECESSION_COLUMNS,
@@ -737,6 +737,65 @@ def _record_quality(record: GaugeRecord, result: GaugeResult, settings: Settings
     return notes
 
 
+#: Values that are not usable numbers (text, negative, infinite, missing-value codes) are
+#: flagged when they are more than this share of a gauge's rows (our own rule).
+MANY_BAD_VALUES = 0.01
+#: Flow is flagged as ephemeral when it is zero on at least this share of the days with a
+#: value (our own rule; the method suits perennial streams).
+EPHEMERAL_ZERO_SHARE = 0.10
+#: A record shorter than this many days is flagged as too short for the method (our own rule:
+#: the recession index needs several recessions, the annual sums a water year).
+SHORT_RECORD_DAYS = 365
+
+
+def record_notes(record: GaugeRecord) -> list:
+    """Plain-language flags about a gauge's input rows: what was left out or merged, and why.
+
+    They lead the gauge's ``quality``: unreadable dates, values that are not usable numbers
+    (when many), missing-value codes that repeat, times given twice with different values, a
+    record that is dry, ephemeral or shorter than a year.
+    """
+    counts = record.counts
+    notes = []
+    rows = counts.get("rows") or 0
+    unreadable = counts.get("unreadable_dates", 0)
+    if unreadable:
+        example = counts.get("unreadable_date_example")
+        notes.append(
+            f"{counted(unreadable, 'row')} with a date that could not be read left out"
+            + (f" (e.g. {quoted(example)})" if example else "")
+        )
+    for value, count in counts.get("missing_value_codes", []):
+        if count >= 2:
+            notes.append(f"{value:g} used as a missing-value code on {count:,} rows (left out)")
+    bad = counts.get("non_numeric", 0) + counts.get("negative", 0)
+    if bad and bad > MANY_BAD_VALUES * max(rows, 1):
+        notes.append(f"{counted(bad, 'value')} that are text, negative or infinite left out")
+    conflicting = counts.get("conflicting_times", 0)
+    if conflicting:
+        what = ("time", "times") if counts.get("sub_daily") else ("day", "days")
+        notes.append(
+            f"{counted(conflicting, *what)} given more than once with different values (averaged)"
+        )
+    flow = record.flow.to_numpy(dtype=float)
+    with_value = flow[np.isfinite(flow)]
+    if with_value.size:
+        zero = int(np.count_nonzero(with_value == 0))
+        if zero == with_value.size:
+            notes.append("flow is zero on every day with a value (a dry or ephemeral record)")
+        elif zero >= EPHEMERAL_ZERO_SHARE * with_value.size:
+            notes.append(
+                f"flow is zero on {100 * zero / with_value.size:.0f}% of the days with a value: "
+                "an ephemeral stream (the method suits perennial streams)"
+            )
+    if 0 < record.days < SHORT_RECORD_DAYS:
+        notes.append(
+            f"record only {counted(record.days, 'day')} long: too short for the method "
+            "(a year or more)"
+        )
+    return notes
+
+
 def _given_recession_index(gauges, settings):
     """K per gauge from the gauges layer's field, when the settings name one."""
     if not settings.recession_index_field:
@@ -844,10 +903,30 @@ def _link_basins(
     method = settings.link_method(list(catchments.columns))
     if method == "id":
         require_columns(catchments, [settings.catchment_gauge_field], "catchments layer")
+    if not len(catchments):
+        raise InputError("the catchments layer has no features")
     geometry, repairs = repair_polygons(catchments.geometry)
+    if len(repairs) == len(catchments) and all(g is None for g in geometry):
+        kinds = sorted({_kind_of(g) for g in catchments.geometry})
+        raise InputError(
+            f"the catchments layer holds no polygon (its geometries are {', '.join(kinds)})"
+        )
+    areas = geodesic_area_km2(geometry)
+    outside = [
+        row for row, g in enumerate(geometry) if g is not None and not np.isfinite(areas[row])
+    ]
+    if outside and len(outside) == sum(g is not None for g in geometry):
+        raise InputError(
+            "the catchments layer's coordinates do not fit its coordinate reference system "
+            f"({quoted(str(getattr(geometry.crs, 'name', geometry.crs)))}): is it the right one?"
+        )
+    if outside:
+        geometry = geometry.copy()
+        for row in outside:
+            geometry.iloc[row] = None
+            repairs[row] = "coordinates outside the earth's range in the layer's CRS: no area"
     for row, note in repairs.items():
         reporter.warning(f"catchment in row {row}: {note}")
-    areas = geodesic_area_km2(geometry)
     if method == "id":
         links = link_by_id(gauge_ids, catchments, settings.catchment_gauge_field)
     else:
@@ -860,8 +939,9 @@ def _link_basins(
             settings.overlap_tolerance,
             reporter if report_progress else None,
         )
-    for gid in links.unlinked + list(links.several) + list(links.ambiguous):
-        reporter.warning(f"gauge {gid}: {links.notes.get(gid, 'not linked to a catchment')}")
+    if report_progress:  # linking is the whole job; otherwise each gauge's quality says it
+        for gid in links.unlinked + list(links.several) + list(links.ambiguous):
+            reporter.warning(f"gauge {gid}: {links.notes.get(gid, 'not linked to a catchment')}")
     linked = [
         gid
         for gid in gauge_ids
@@ -873,6 +953,13 @@ def _link_basins(
     return _Basins(
         geometry, repairs, areas, links, find_nesting(basins, settings.overlap_tolerance)
     )
+
+
+def _kind_of(geometry):
+    """A geometry's type in words, for messages ("empty" for none)."""
+    if geometry is None or geometry.is_empty:
+        return "empty"
+    return geometry.geom_type
 
 
 def _gauge_group(payload):
@@ -896,8 +983,11 @@ def _gauge_group(payload):
             try:
                 result = gauge_hydrology(record, area, settings, given)
             except Exception as exc:  # one bad gauge never spoils the run
-                failure = str(exc)
-                result = GaugeResult(gid, area, quality=[f"could not be computed: {exc}"])
+                failure = describe(exc)
+                result = GaugeResult(
+                    gid, area, quality=[f"could not be computed (internal error: {failure})"]
+                )
+            result.quality[:0] = record_notes(record)
         if not keep_series:
             result.flow = result.baseflow = None
         out.append((gid, result, failure))
@@ -1031,8 +1121,10 @@ def _compute_in_groups(
     wanted = set(gauge_ids)
     results: dict[str, GaugeResult] = {}
     failed = 0
+    tally = _Tally()
     for chunk in chunks:
         records = _records(chunk, settings)
+        tally.add(len(chunk), records, wanted)
         here = [gid for gid in gauge_ids if gid in records and gid not in results]
         extra = {gid: record for gid, record in records.items() if gid not in wanted}
         part, lost = compute_gauges(
@@ -1061,22 +1153,107 @@ def _compute_in_groups(
             keep_series=keep_series,
         )
         results.update(rest)
-    return {gid: results[gid] for gid in gauge_ids}, failed
+    if not tally.rows:
+        raise InputError("the discharge table has no rows")
+    tally.report(reporter)
+    return {gid: results[gid] for gid in gauge_ids}, failed, tally
 
 
-def _summary(results, failed):
+class _Tally:
+    """What reading the discharge table left out or merged, over all its gauge groups: said
+    once in the run's log, and the gauge ids it holds that match no gauge."""
+
+    COUNTS = (
+        ("unreadable_dates", "rows with an unreadable date left out"),
+        ("repeated_rows", "rows repeating a date (or time) already given merged"),
+        ("conflicting_times", "of them with a different value (averaged)"),
+        ("missing_value_code", "missing-value codes such as -999 left out"),
+        ("non_numeric", "values that are not numbers left out"),
+        ("negative", "negative or infinite values left out"),
+        ("dates_with_offset", "time-zone offsets ignored (clock time as written)"),
+    )
+
+    def __init__(self):
+        self.rows = 0
+        self.totals = {name: 0 for name, _ in self.COUNTS}
+        self.unmatched = []
+        self.matched = 0
+        self.order = None
+
+    def add(self, rows, records, wanted):
+        self.rows += int(rows)
+        for gid, record in records.items():
+            for name in self.totals:
+                self.totals[name] += int(record.counts.get(name) or 0)
+            self.order = self.order or record.counts.get("date_order")
+            if gid in wanted:
+                self.matched += 1
+            else:
+                self.unmatched.append(gid)
+
+    def report(self, reporter):
+        parts = [f"{self.totals[name]:,} {text}" for name, text in self.COUNTS if self.totals[name]]
+        if self.order:
+            parts.append(f"dates with the year last read {self.order}")
+        if parts:
+            reporter.info(f"discharge table: {'; '.join(parts)}")
+
+
+def _summary(results, failed, tally=None):
     """Counts of a run. A gauge is skipped when it has no hydrology at all (no discharge
     record, no usable value, or a failure inside the computation); it is flagged when it was
-    computed but its quality is not ok."""
+    computed but its quality is not ok. ``with_record`` counts the gauges the discharge table
+    holds rows for; ``unmatched_ids`` lists (some of) the table's gauge ids that match no
+    gauge, ``unmatched`` how many there are."""
     skipped = sum(1 for r in results.values() if r.recession is None)
     flagged = sum(1 for r in results.values() if r.recession is not None and r.quality)
-    return {
+    summary = {
         "gauges": len(results),
         "computed": len(results) - skipped,
         "flagged": flagged,
         "skipped": skipped,
         "failed": failed,
     }
+    if tally is not None:
+        summary.update(
+            {
+                "with_record": tally.matched,
+                "unmatched": len(tally.unmatched),
+                "unmatched_ids": tally.unmatched[:5],
+            }
+        )
+    return summary
+
+
+def _some(ids, total, shown=3):
+    """A few ids and how many there are: ``'a', 'b', 'c' … (12)``."""
+    text = ", ".join(quoted(i) for i in ids[:shown])
+    return text + (f" … ({total})" if total > shown else "")
+
+
+def require_records(result: AtlasResult) -> None:
+    """Raise :class:`InputError` when no gauge of the run has a row in the discharge table.
+
+    The run itself goes on in that case (every gauge flagged "no discharge record"), so a
+    script can still look at its links; the command line and the QGIS algorithms call this
+    before writing anything, as a result without any hydrology is almost always a wrong field
+    or a gauge id written differently in the two files (``0123`` and ``123``).
+    """
+    summary = result.summary
+    if summary.get("with_record", 1) or not summary.get("gauges"):
+        return
+    settings = result.settings
+    if summary.get("unmatched"):
+        theirs = _some(summary["unmatched_ids"], summary["unmatched"])
+        ours = _some(list(result.gauges), len(result.gauges))
+        message = (
+            f"no gauge id of the discharge table matches the gauges layer: "
+            f"the table has {theirs}, the layer {ours}"
+        )
+    else:
+        message = "the discharge table holds no row with a gauge id and a readable date"
+    field = settings.discharge_gauge_field if settings is not None else None
+    raise InputError(message, field=field)
 
 
 def _summary_text(summary):
@@ -1132,9 +1309,14 @@ def run_atlas(
     def unlinked(gid):
         return f"no single catchment linked ({links.notes.get(gid, 'not linked')}): depths not computed"
 
-    results, failed = _compute_in_groups(
+    results, failed, tally = _compute_in_groups(
         discharge, gauge_ids, area_of, settings, reporter, given_k, unlinked, keep_series
     )
+    for gid, row in links.catchment_of.items():
+        if gid in results and not np.isfinite(area_of.get(gid, np.nan)):
+            results[gid].quality.insert(
+                0, f"its catchment (row {row}) has no area: depths not computed"
+            )
     for gid, note in _reported_area_notes(gauges, settings, area_of).items():
         results[gid].quality.append(note)
     annual = _stack(results, "annual")
@@ -1154,7 +1336,7 @@ def run_atlas(
             reporter.warning(f"gauge {gid}: {result.quality_text}")
 
     out = _catchment_layer(catchments, basins, results, settings, incremental)
-    summary = _summary(results, failed)
+    summary = _summary(results, failed, tally)
     summary.update(
         {
             "catchments": len(catchments),
@@ -1213,13 +1395,13 @@ def run_gauges(
         area_of = {
             g: float(v) for g, v in zip(ids, values) if g is not None and np.isfinite(v) and v > 0
         }
-    results, failed = _compute_in_groups(
+    results, failed, tally = _compute_in_groups(
         discharge, gauge_ids, area_of, settings, reporter, given_k, None, keep_series
     )
     for gid, result in results.items():
         if result.quality:
             reporter.warning(f"gauge {gid}: {result.quality_text}")
-    summary = _summary(results, failed)
+    summary = _summary(results, failed, tally)
     reporter.info(_summary_text(summary))
     return AtlasResult(
         catchments=None,
