@@ -2,14 +2,18 @@
 
 A thin shell over :func:`recharge_atlas.algorithms.pipeline.run_atlas`, the same pipeline the
 QGIS plugin uses. Exit codes: 0 on success (even when some gauges are flagged), 2 on bad input
-or usage, with a short message on stderr and no traceback.
+or usage, with a short message on stderr and no traceback; 1 on an internal error, with a
+one-line message (``--debug`` prints the full trace); 130 when interrupted. Whatever the exit
+code, either every output is written completely or none is touched.
 """
 
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import time
+import warnings
 from pathlib import Path
 
 from recharge_atlas.algorithms.units import DISCHARGE_UNITS, UNIT_ALIASES
@@ -26,12 +30,36 @@ BASEFLOW_METHODS = {
 }
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with usage errors in two lines (what is wrong, where to find the options)
+    instead of the whole usage text; exit code 2 as argparse's own."""
+
+    def error(self, message):
+        from recharge_atlas.algorithms.errors import one_line
+
+        self.exit(
+            EXIT_BAD_INPUT,
+            f"{self.prog}: error: {one_line(message)}\n"
+            f"{self.prog}: run '{self.prog} --help' for the options\n",
+        )
+
+
+def _debug_option(parser, default):
+    parser.add_argument(
+        "--debug",
+        action="store_true",
+        default=default,
+        help="on an internal error, print the full trace (and show library warnings)",
+    )
+
+
 def _parser():
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="recharge-atlas",
         description="Groundwater recharge from streamflow records, mapped across catchments.",
     )
-    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    _debug_option(parser, False)
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     sub.required = True
 
     run = sub.add_parser(
@@ -39,6 +67,7 @@ def _parser():
         help="estimate recharge for gauges and catchments",
         description="Estimate recharge for every gauge by recession-curve displacement and write a GeoPackage.",
     )
+    _debug_option(run, argparse.SUPPRESS)
     files = run.add_argument_group("inputs and outputs")
     files.add_argument(
         "--gauges",
@@ -133,6 +162,7 @@ def _parser():
         metavar="DIR",
         help="folder for the results (default: demo_output)",
     )
+    _debug_option(demo, argparse.SUPPRESS)
     return parser
 
 
@@ -378,68 +408,130 @@ def run_files(
     """
     from recharge_atlas.algorithms import files
     from recharge_atlas.algorithms.errors import InputError
-    from recharge_atlas.algorithms.pipeline import run_atlas, run_atlas_subbasins
+    from recharge_atlas.algorithms.pipeline import (
+        require_records,
+        run_atlas,
+        run_atlas_subbasins,
+    )
 
     out = Path(out)
     basins = subbasins if subbasins is not None else catchments
-    inputs = [files.split_layer(p)[0] for p in (gauges, basins, discharge)]
-    extras = [Path(p) for p in (map_path, year_maps_path, report_path) if p]
-    for target in [out, *extras]:
-        if any(_same_file(target, p) for p in inputs):
-            raise InputError("the output path is one of the input files", file=str(target))
+    what = "subbasins" if subbasins is not None else "catchments"
+    sources = {
+        "gauges": files.split_layer(gauges)[0],
+        what: files.split_layer(basins)[0],
+        "discharge table": files.split_layer(discharge)[0],
+    }
+    outputs = [(out, "output"), (map_path, "map"), (year_maps_path, "per-year map")]
+    outputs = [(Path(p), w) for p, w in outputs + [(report_path, "report")] if p]
+    for n, (target, kind) in enumerate(outputs):
+        if any(_same_file(target, p) for p in sources.values()):
+            raise InputError(f"the {kind} path is one of the input files", file=str(target))
+        if any(_same_file(target, other) for other, _ in outputs[:n]):
+            raise InputError(f"the {kind} path is also another output's", file=str(target))
     if out.suffix.lower() != ".gpkg":
         raise InputError("the output must be a GeoPackage ending in .gpkg", file=str(out))
-    for path, suffixes, what in (
+    for path, suffixes, kind in (
         (map_path, (".png",), "map"),
         (year_maps_path, (".png",), "per-year map"),
         (report_path, (".html", ".htm"), "report"),
     ):
         if path and Path(path).suffix.lower() not in suffixes:
             raise InputError(
-                f"the {what} must be a file ending in {' or '.join(suffixes)}", file=str(path)
+                f"the {kind} must be a file ending in {' or '.join(suffixes)}", file=str(path)
             )
+    for target, kind in outputs:  # a bad output path fails now, not after the work
+        files.check_output(target, kind)
     from recharge_atlas.algorithms.maps import class_breaks
 
     class_breaks([1.0, 2.0], scheme, classes)  # a bad scheme or class count fails before the run
     settings = settings.resolved()  # bad settings fail before any file is read
-    gauge_layer = files.read_layer(gauges, "gauges")
-    what = "subbasins" if subbasins is not None else "catchments"
-    basin_layer = files.read_layer(basins, what)
-    table = _discharge(files, discharge, gauge_layer, settings, gauges_per_group)
-    # Daily series are kept only when an output needs them: a large run then holds its tables.
-    keep_series = bool(daily or report_path)
-    if subbasins is not None:
-        result = run_atlas_subbasins(
-            gauge_layer, basin_layer, table, settings, reporter, keep_series
-        )
-    else:
-        result = run_atlas(gauge_layer, basin_layer, table, settings, reporter, keep_series)
-    files.write_geopackage(result, out, daily=daily)
+    try:
+        gauge_layer = files.read_layer(gauges, "gauges")
+        basin_layer = files.read_layer(basins, what)
+        _require_fields(gauge_layer, basin_layer, what, settings, sources, subbasins is not None)
+        table = _discharge(files, discharge, gauge_layer, settings, gauges_per_group)
+        if hasattr(table, "columns"):  # read whole (groups check their gauge field)
+            _require_discharge_fields(table, settings, sources["discharge table"])
+        # Daily series are kept only when an output needs them: a large run then holds its tables.
+        keep_series = bool(daily or report_path)
+        if subbasins is not None:
+            result = run_atlas_subbasins(
+                gauge_layer, basin_layer, table, settings, reporter, keep_series
+            )
+        else:
+            result = run_atlas(gauge_layer, basin_layer, table, settings, reporter, keep_series)
+        require_records(result)
+    except InputError as exc:
+        raise _located(exc, sources, settings) from None
     from recharge_atlas.algorithms.maps import recharge_map, year_maps
 
-    if map_path:
-        mapped = result.subbasins if result.subbasins is not None else result.catchments
-        files.save_figure(
-            recharge_map(mapped, gauge_layer, scheme=scheme, classes=classes), map_path
-        )
-    if year_maps_path:
-        figure = year_maps(
-            result.catchments, result.annual, gauge_layer, scheme=scheme, classes=classes
-        )
-        files.save_figure(figure, year_maps_path, dpi=100)
-    if report_path:
-        from recharge_atlas.algorithms.report import write_report
+    # Every output is written to a temporary file beside it and all move into place together
+    # at the end: a failure or an interrupt leaves none half-written and touches none.
+    with files.staged_outputs() as stage:
+        files.write_geopackage(result, stage.path(out), daily=daily)
+        if map_path:
+            mapped = result.subbasins if result.subbasins is not None else result.catchments
+            figure = recharge_map(mapped, gauge_layer, scheme=scheme, classes=classes)
+            files.save_figure(figure, stage.path(map_path, "map"))
+        if year_maps_path:
+            figure = year_maps(
+                result.catchments, result.annual, gauge_layer, scheme=scheme, classes=classes
+            )
+            files.save_figure(figure, stage.path(year_maps_path, "per-year map"), dpi=100)
+        if report_path:
+            from recharge_atlas.algorithms.report import write_report
 
-        write_report(
-            result,
-            report_path,
-            gauges=gauge_layer,
-            settings=result.settings,
-            scheme=scheme,
-            classes=classes,
-            reporter=reporter,
-        )
+            write_report(
+                result,
+                stage.path(report_path, "report"),
+                gauges=gauge_layer,
+                settings=result.settings,
+                scheme=scheme,
+                classes=classes,
+                reporter=reporter,
+            )
     return result
+
+
+def _require_fields(gauge_layer, basin_layer, what, settings, sources, subbasins):
+    """The fields the settings name, checked on each layer with its file in the message."""
+    from recharge_atlas.algorithms.discharge import require_columns
+
+    wanted = [settings.gauge_id_field, settings.recession_index_field]
+    wanted += [settings.reported_area_field]
+    require_columns(
+        gauge_layer, [f for f in wanted if f], "gauges layer", file=str(sources["gauges"])
+    )
+    if subbasins:
+        fields = [settings.subbasin_id_field, settings.downstream_field]
+    elif settings.link_method(list(basin_layer.columns)) == "id":
+        fields = [settings.catchment_gauge_field]
+    else:
+        fields = []
+    require_columns(basin_layer, fields, f"{what} layer", file=str(sources[what]))
+
+
+def _require_discharge_fields(table, settings, path):
+    from recharge_atlas.algorithms.discharge import require_columns
+
+    fields = [settings.discharge_gauge_field, settings.date_field, settings.value_field]
+    fields += [settings.flag_field] if settings.flag_field else []
+    require_columns(table, fields, "discharge table", file=str(path))
+
+
+def _located(exc, sources, settings):
+    """``exc`` with the file it is about, when the core named the layer or the field but could
+    not know the file (it works on tables)."""
+    if exc.file is not None:
+        return exc
+    for what, path in sources.items():
+        if exc.message.startswith((f"the {what} ", f"no gauge id of the {what} ")):
+            return exc.located(file=str(path))
+    about_discharge = ("no value of the", "the date field", "the dates ")
+    if exc.message.startswith(about_discharge):
+        return exc.located(file=str(sources["discharge table"]))
+    return exc
 
 
 def _discharge(files, path, gauge_layer, settings, gauges_per_group):
@@ -465,7 +557,10 @@ def _discharge(files, path, gauge_layer, settings, gauges_per_group):
 
 
 def _same_file(a, b):
+    """Whether two paths name one file (through links, relative parts or hard links)."""
     try:
+        if os.path.exists(a) and os.path.exists(b):
+            return os.path.samefile(a, b)
         return Path(a).resolve() == Path(b).resolve()
     except OSError:
         return False
@@ -542,41 +637,67 @@ def main(argv=None):
     """Entry point of the ``recharge-atlas`` command; returns the exit code."""
     parser = _parser()
     args = parser.parse_args(argv)
-    from recharge_atlas.algorithms.errors import InputError
+    debug = bool(getattr(args, "debug", False))
+    from recharge_atlas.algorithms.errors import InputError, describe
 
     try:
-        if args.command == "demo":
-            _demo(args)
-            return EXIT_OK
-        run_files(
-            args.gauges,
-            args.catchments,
-            args.discharge,
-            args.out,
-            _settings(args),
-            args.map,
-            _StderrReporter(),
-            args.daily,
-            subbasins=args.subbasins,
-            report_path=args.report,
-            year_maps_path=args.year_maps,
-            scheme=args.classes.replace("-", "_"),
-            classes=args.class_count,
-            gauges_per_group=args.gauges_per_group,
-        )
-        written = [p for p in (args.out, args.map, args.year_maps, args.report) if p]
-        print("wrote " + ", ".join(written))
-        return EXIT_OK
+        with warnings.catch_warnings():
+            if not debug:  # library warnings are noise to users; our cautions are printed
+                warnings.simplefilter("ignore")
+            return _command(args)
     except InputError as exc:
         print(f"recharge-atlas: error: {exc}", file=sys.stderr)
+        if debug:
+            _print_trace()
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
         print("recharge-atlas: interrupted; no output written", file=sys.stderr)
         return 130
     except Exception as exc:  # the last line of defence: a short message, never a traceback
-        print(f"recharge-atlas: internal error: {type(exc).__name__}: {exc}", file=sys.stderr)
-        print("recharge-atlas: please report this with the command you ran", file=sys.stderr)
+        print(f"recharge-atlas: internal error: {describe(exc)}", file=sys.stderr)
+        if debug:
+            _print_trace()
+            print(
+                "recharge-atlas: please report this trace and the command you ran", file=sys.stderr
+            )
+        else:
+            print(
+                "recharge-atlas: no output was written; rerun with --debug for the full trace, "
+                "and please report it",
+                file=sys.stderr,
+            )
         return EXIT_INTERNAL
+
+
+def _print_trace():
+    import traceback
+
+    traceback.print_exc(file=sys.stderr)
+
+
+def _command(args):
+    if args.command == "demo":
+        _demo(args)
+        return EXIT_OK
+    run_files(
+        args.gauges,
+        args.catchments,
+        args.discharge,
+        args.out,
+        _settings(args),
+        args.map,
+        _StderrReporter(),
+        args.daily,
+        subbasins=args.subbasins,
+        report_path=args.report,
+        year_maps_path=args.year_maps,
+        scheme=args.classes.replace("-", "_"),
+        classes=args.class_count,
+        gauges_per_group=args.gauges_per_group,
+    )
+    written = [p for p in (args.out, args.map, args.year_maps, args.report) if p]
+    print("wrote " + ", ".join(written))
+    return EXIT_OK
 
 
 if __name__ == "__main__":
