@@ -823,6 +823,10 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
                 parameters, self.DAILY, context
             )
             result = self._run(tables, settings, reporter)
+            if getattr(result, "summary", None) is not None:
+                from ..algorithms.pipeline import require_records
+
+                require_records(result)
             if report_path:
                 self._write_report(result, tables, settings, scheme, classes, report_path, feedback)
         except InputError as exc:
@@ -831,12 +835,25 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             raise QgsProcessingException(
                 self.tr("Run cancelled: no outputs were written.")
             ) from None
+        except QgsProcessingException:
+            raise
+        except Exception as exc:  # a fault of ours: one line, the trace in the log
+            raise self._internal_error(exc, feedback) from None
 
         # Sinks are created only now, so a bad input or a cancel leaves no partial layers.
         feedback.setProgressText(self.tr("Writing the outputs"))
         outputs = {}
-        self._write_basins(parameters, context, basins, tables, result, outputs)
-        self._write_tables(parameters, context, result, outputs, feedback)
+        try:
+            self._write_basins(parameters, context, basins, tables, result, outputs)
+            self._write_tables(parameters, context, result, outputs, feedback)
+        except Exception as exc:
+            if report_path:  # no report without its layers
+                Path(report_path).unlink(missing_ok=True)
+            if isinstance(exc, QgsProcessingException):
+                raise
+            if isinstance(exc, InputError):
+                raise QgsProcessingException(str(exc)) from None
+            raise self._internal_error(exc, feedback) from None
         if report_path:
             outputs[self.REPORT] = report_path
         feedback.setProgress(100.0)
@@ -849,6 +866,22 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
                 )
         self._summarize(result, feedback)
         return outputs
+
+    def _internal_error(self, exc, feedback):
+        """A QgsProcessingException for an unexpected error: one line saying what happened
+        (the same words as the command line's), the full trace in the log."""
+        import traceback
+
+        from ..algorithms.errors import describe
+
+        trace = "".join(traceback.format_exception(type(exc), exc, exc.__traceback__))
+        feedback.reportError(trace, False)
+        return QgsProcessingException(
+            self.tr(
+                "internal error: {}; no output was written. The full trace is in the log; "
+                "please report it"
+            ).format(describe(exc))
+        )
 
     def _explain_settings(self, settings, feedback, push_warning):
         """Say in the log when a setting has no effect, or how two of them combine."""
