@@ -131,6 +131,10 @@ def repair_polygons(geometries):
             notes[row] = f"geometry is a {geometry.geom_type}, not a polygon: no area"
             out.append(None)
             continue
+        if not np.isfinite(np.asarray(geometry.bounds, dtype=float)).all():
+            notes[row] = "polygon with coordinates that are not finite numbers: no area"
+            out.append(None)
+            continue
         if geometry.is_valid:
             out.append(geometry)
             continue
