@@ -5,6 +5,7 @@ from __future__ import annotations
 import datetime as _dt
 import functools
 import re
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -30,7 +31,8 @@ class GaugeRecord:
         last dated value; days without a usable value are NaN.
     counts : dict
         How many input rows the gauge had (``rows``); how many values were missing
-        (``missing``), not numbers (``non_numeric``), negative or infinite (``negative``) or
+        (``missing``), not numbers (``non_numeric``), negative or infinite (``negative``),
+        impossibly large (``implausible``, over :data:`MAX_DISCHARGE_M3S`) or
         missing-value codes such as -999 (``missing_value_code``, the codes in
         ``missing_value_codes``); how many rows had a date that could not be read
         (``unreadable_dates``, one of them in ``unreadable_date_example``) and how many a
@@ -171,7 +173,8 @@ def read_dates(values) -> DateReading:
     * with the month's name and a four-digit year: ``31 Jan 2020``, ``January 31, 2020``;
     * date and time values already typed as such (Parquet, GeoPackage, QGIS).
 
-    A time may follow (``2020-01-31 06:15``, ``2020-01-31T06:15:00``). A time-zone offset
+    A time may follow (``2020-01-31 06:15``, ``2020-01-31T06:15:00``; ``24:00`` is the end of
+    the day written and stays on it). A time-zone offset
     (``+02:00``, ``Z``) is ignored: each value keeps the clock time written, so it falls on the
     calendar day printed in the table (gauges publish daily values by their local day).
 
@@ -186,7 +189,9 @@ def read_dates(values) -> DateReading:
             stamps = stamps.dt.tz_localize(None)  # the clock time as written
         none = np.zeros(len(column), dtype=bool)
         return DateReading(stamps.to_numpy(dtype="datetime64[ns]"), none, none)
-    codes, uniques = pd.factorize(column, use_na_sentinel=True)
+    with warnings.catch_warnings():  # pandas 1.5 warns of a change to come for mixed objects
+        warnings.simplefilter("ignore", FutureWarning)
+        codes, uniques = pd.factorize(column, use_na_sentinel=True)
     parsed, bad, offset, order, ambiguous = _read_distinct(list(uniques))
     codes = np.asarray(codes)
     has = codes >= 0
@@ -242,6 +247,8 @@ def _read_distinct(uniques):
         parsed[typed] = np.array([texts[i].asm8 for i in typed], dtype="datetime64[ns]")
     rows = [i for i, t in enumerate(texts) if isinstance(t, str)]
     order = ambiguous = None
+    if rows and _plain_iso(texts, rows, parsed):
+        rows = []  # all read (the common case, kept fast)
     if rows:
         text = pd.Series([texts[i] for i in rows], index=rows, dtype=object)
         found = pd.Series(False, index=rows)
@@ -289,6 +296,28 @@ def _read_distinct(uniques):
     return parsed, bad, offset, order, ambiguous
 
 
+def _plain_iso(texts, rows, parsed) -> bool:
+    """Read the values at ``rows`` at once when every one is a plain ISO 8601 date or date and
+    time (``2020-01-31``, ``2020-01-31 06:15``, ``2020-01-31T06:15:00``); False (nothing
+    read) when one is anything else, for the general reader to take."""
+    lengths = (10, 16, 19)
+    for i in rows:
+        t = texts[i]
+        if (
+            len(t) not in lengths
+            or t[4] != "-"
+            or t[7] != "-"
+            or (len(t) > 10 and t[10] not in "T ")
+        ):
+            return False
+    try:
+        values = np.array([texts[i] for i in rows], dtype="datetime64[s]")
+    except ValueError:
+        return False
+    parsed[rows] = values.astype("datetime64[ns]")
+    return True
+
+
 def _assemble(parts, month, day, parsed, offset):
     """Fill ``parsed`` (at the index of ``parts``) from the captured pieces of a pattern."""
     numbers = {
@@ -300,10 +329,11 @@ def _assemble(parts, month, day, parsed, offset):
     minute = parts["M"].fillna("0").astype(int).to_numpy()
     second = parts["S"].fillna("0").str.replace(",", ".", regex=False).astype(float).to_numpy()
     dates = pd.to_datetime(pd.DataFrame(numbers), errors="coerce").to_numpy(dtype="datetime64[ns]")
-    # 24:00 is the end of the day (ISO 8601); other times must lie within the day.
-    valid = ((hour < 24) | ((hour == 24) & (minute == 0) & (second == 0))) & (minute < 60)
-    valid &= second < 61
-    seconds = hour * 3600.0 + minute * 60.0 + second
+    # 24:00 is the end of the day written (some exports stamp daily means so): read it as the
+    # day's last millisecond, so the value stays on that day. Other times lie within the day.
+    end_of_day = (hour == 24) & (minute == 0) & (second == 0)
+    valid = ((hour < 24) | end_of_day) & (minute < 60) & (second < 61)
+    seconds = np.where(end_of_day, 86_400.0 - 1e-3, hour * 3600.0 + minute * 60.0 + second)
     stamps = dates + (seconds * 1e9).astype(np.int64).astype("timedelta64[ns]")
     stamps[~valid] = np.datetime64("NaT")
     index = parts.index.to_numpy()
@@ -311,6 +341,8 @@ def _assemble(parts, month, day, parsed, offset):
     offset[index] = parts["Z"].notna().to_numpy()
 
 
+#: Text that marks a missing value (compared in lower case, without spaces around).
+MISSING_MARKERS = ("", "-", "na", "n/a", "nan", "null", "none", "#n/a", "<na>")
 #: Missing-value codes written as numbers: nines, negative or positive (our own list, from
 #: common practice in gauge exports). Negative ones are left out like any negative value; a
 #: positive one only where it repeats and stands far above the gauge's other flows.
@@ -319,6 +351,9 @@ POSITIVE_MISSING_VALUE_CODES = (999.0, 9999.0, 99999.0, 999999.0)
 #: A positive code is read as missing only where it stands this many times above the gauge's
 #: median flow (our own rule).
 CODE_ABOVE_MEDIAN = 10.0
+#: Discharges above this (m³/s) are left out as impossible: some thirty times the largest flood
+#: any river is known to have carried (our own bound; it also keeps yearly volumes finite).
+MAX_DISCHARGE_M3S = 1.0e7
 
 
 def tidy_discharge(
@@ -365,7 +400,8 @@ def tidy_discharge(
     Notes
     -----
     Dates are read by :func:`read_dates`; rows whose date cannot be read are left out and
-    counted. Missing, non-numeric, negative and infinite values become missing and are counted;
+    counted. Missing, non-numeric, negative, infinite and impossibly large values (over
+    :data:`MAX_DISCHARGE_M3S`) become missing and are counted;
     so are missing-value codes (:data:`MISSING_VALUE_CODES`, and a positive code of nines that
     repeats far above the gauge's median flow). Rows with the same gauge and time are merged:
     equal values silently (counted), different ones averaged and counted as conflicting. Several
@@ -397,13 +433,17 @@ def tidy_discharge(
     if len(table) and not has_stamp.any():
         raise InputError(_no_dates_message(table[date_field], dates), field=date_field)
 
-    was_missing = raw.isna().to_numpy()
+    was_missing = np.array(raw.isna().to_numpy(), dtype=bool)  # a copy: marked below
     if pd.api.types.is_numeric_dtype(raw) and not pd.api.types.is_bool_dtype(raw):
         numeric = raw.to_numpy(dtype=float, na_value=np.nan)
     else:
         numeric = pd.to_numeric(pd.Series(raw.to_numpy(), dtype=object), errors="coerce").to_numpy(
             dtype=float, na_value=np.nan
         )
+        texts = np.flatnonzero(np.isnan(numeric) & ~was_missing)
+        if texts.size:  # blanks and markers such as "n/a" are missing values, not bad ones
+            words = pd.Series(raw.to_numpy()[texts], dtype=object).astype(str).str.strip()
+            was_missing[texts[words.str.lower().isin(MISSING_MARKERS).to_numpy()]] = True
     non_numeric = np.isnan(numeric) & ~was_missing
     if len(table) and not (has_stamp & ~np.isnan(numeric)).any() and non_numeric.any():
         raise InputError(_no_numbers_message(raw, non_numeric), field=value_field)
@@ -411,7 +451,8 @@ def tidy_discharge(
     values = to_cubic_metres_per_second(numeric, units)
     with np.errstate(invalid="ignore"):
         bad_sign = ((~np.isfinite(values) & ~np.isnan(values)) | (values < 0)) & ~code
-    values[bad_sign | code] = np.nan
+        implausible = np.isfinite(values) & (values > MAX_DISCHARGE_M3S) & ~code
+    values[bad_sign | code | implausible] = np.nan
     flagged = _flagged(table[flag_field], flag_values) if flag_field else np.zeros(len(table), bool)
 
     named = ids != None  # noqa: E711 (element-wise comparison)
@@ -435,6 +476,7 @@ def tidy_discharge(
             "missing": was_missing[kept],
             "non_numeric": non_numeric[kept],
             "negative": bad_sign[kept],
+            "implausible": implausible[kept],
             "missing_value_code": is_code,
         },
         flagged[kept],

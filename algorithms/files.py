@@ -21,6 +21,10 @@ from .errors import InputError, describe, listed, quoted
 
 #: File suffixes read as delimited text.
 TEXT_SUFFIXES = {".csv", ".txt", ".tsv"}
+#: Text tables: only an empty cell is missing; ``NA`` or ``None`` stay text (a gauge may be
+#: called NA), and the core reads markers such as ``n/a`` in a value field as missing values,
+#: the same whether the table came from here or from QGIS.
+TEXT_MISSING = {"keep_default_na": False, "na_values": [""]}
 
 
 def split_layer(path):
@@ -140,6 +144,7 @@ def read_table(path, what="discharge table"):
                 sep=_separator(file_path, encoding),
                 skipinitialspace=True,
                 encoding=encoding,
+                **TEXT_MISSING,
             )
         if suffix == ".parquet":
             return pd.read_parquet(file_path)
@@ -273,6 +278,7 @@ def _text_groups(file_path, gauge_field, batches, what):
             skipinitialspace=True,
             chunksize=500_000,
             encoding=encoding,
+            **TEXT_MISSING,
         )
         try:
             for chunk in reader:
@@ -300,7 +306,7 @@ def _text_groups(file_path, gauge_field, batches, what):
             ) from None
         for group in range(len(batches)):
             if group in written:
-                yield pd.read_csv(Path(folder) / f"{group}.csv", dtype=str)
+                yield pd.read_csv(Path(folder) / f"{group}.csv", dtype=str, **TEXT_MISSING)
 
 
 def _first_line(exc):
