@@ -771,6 +771,12 @@ def record_notes(record: GaugeRecord) -> list:
     bad = counts.get("non_numeric", 0) + counts.get("negative", 0)
     if bad and bad > MANY_BAD_VALUES * max(rows, 1):
         notes.append(f"{counted(bad, 'value')} that are text, negative or infinite left out")
+    implausible = counts.get("implausible", 0)
+    if implausible:
+        notes.append(
+            f"{counted(implausible, 'value')} over 10 million m³/s left out (no river carries "
+            "so much: wrong units or a code?)"
+        )
     conflicting = counts.get("conflicting_times", 0)
     if conflicting:
         what = ("time", "times") if counts.get("sub_daily") else ("day", "days")
@@ -1170,6 +1176,7 @@ class _Tally:
         ("missing_value_code", "missing-value codes such as -999 left out"),
         ("non_numeric", "values that are not numbers left out"),
         ("negative", "negative or infinite values left out"),
+        ("implausible", "values over 10 million m³/s left out"),
         ("dates_with_offset", "time-zone offsets ignored (clock time as written)"),
     )
 
@@ -1232,17 +1239,25 @@ def _some(ids, total, shown=3):
 
 
 def require_records(result: AtlasResult) -> None:
-    """Raise :class:`InputError` when no gauge of the run has a row in the discharge table.
+    """Raise :class:`InputError` when no gauge of the run has a row in the discharge table,
+    or none has a single usable value.
 
-    The run itself goes on in that case (every gauge flagged "no discharge record"), so a
-    script can still look at its links; the command line and the QGIS algorithms call this
-    before writing anything, as a result without any hydrology is almost always a wrong field
-    or a gauge id written differently in the two files (``0123`` and ``123``).
+    The run itself goes on in those cases (every gauge flagged "no discharge record" or "no
+    usable discharge values"), so a script can still look at its links; the command line and
+    the QGIS algorithms call this before writing anything, as a result without any hydrology is
+    almost always a wrong field, or a gauge id written differently in the two files (``0123``
+    and ``123``).
     """
     summary = result.summary
+    settings = result.settings
+    if summary.get("with_record") and not summary.get("computed") and not summary.get("failed"):
+        raise InputError(
+            "no gauge has a usable discharge value: the field is empty (or holds only missing "
+            "values) in every row",
+            field=settings.value_field if settings is not None else None,
+        )
     if summary.get("with_record", 1) or not summary.get("gauges"):
         return
-    settings = result.settings
     if summary.get("unmatched"):
         theirs = _some(summary["unmatched_ids"], summary["unmatched"])
         ours = _some(list(result.gauges), len(result.gauges))
