@@ -28,16 +28,14 @@ SIDE = 10_000.0
 def flows(days: int, seed: int, recession_index_days: float = 40.0) -> np.ndarray:
     """Daily discharge (m³/s) of an invented perennial stream: storms recharge a linear
     reservoir whose outflow falls tenfold in ``recession_index_days``, plus quickflow."""
+    from scipy.signal import lfilter
+
     rng = np.random.default_rng(seed)
     decay = 10.0 ** (-1.0 / recession_index_days)
     storms = (rng.random(days) < 0.06) * rng.exponential(4.0, days)
-    base = np.empty(days)
-    quick = np.empty(days)
-    b, q = 2.0, 0.0
-    for t in range(days):
-        b = b * decay + storms[t] * (1.0 - decay) * 12.0
-        q = q * 0.3 + storms[t] * 3.0
-        base[t], quick[t] = b, q
+    # b[t] = decay b[t-1] + 12 (1 - decay) storms[t], from b = 2; q[t] = 0.3 q[t-1] + 3 storms[t]
+    base, _ = lfilter([12.0 * (1.0 - decay)], [1.0, -decay], storms, zi=[2.0 * decay])
+    quick = lfilter([3.0], [1.0, -0.3], storms)
     noisy = (base + quick) * (1.0 + 0.01 * rng.standard_normal(days))
     return np.round(noisy, 4)
 

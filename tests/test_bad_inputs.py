@@ -323,6 +323,34 @@ def test_no_value_a_number_is_an_error(case, capsys):
     )
 
 
+def test_every_value_missing_is_an_error(case, capsys):
+    frame = case.discharge()
+    frame["discharge"] = np.resize(["", "NA", "n/a", "NaN", " - "], len(frame))
+    case.write_discharge(frame)
+    case.run(capsys)
+    case.error("no gauge has a usable discharge value", "field 'discharge'", "discharge.csv")
+
+
+def test_missing_value_markers_and_a_gauge_called_na(case, capsys):
+    """Only blanks and markers in the value field are missing: a gauge may be called NA."""
+    frame = case.discharge()
+    frame.loc[_rows(frame, "CD2")[[3, 30]], "discharge"] = ["n/a", "null"]
+    frame.loc[_rows(frame), "gauge_id"] = "NA"
+    case.write_discharge(frame)
+    layer = case.layer("gauges")
+    layer.loc[layer["gauge_id"] == SPOILT, "gauge_id"] = "NA"
+    case.write_layer("gauges", layer)
+    layer = case.layer("catchments")
+    layer.loc[layer["gauge_id"] == SPOILT, "gauge_id"] = "NA"
+    case.write_layer("catchments", layer)
+    case.run(capsys)
+    out = case.result()
+    assert out.loc["NA", "recharge_mm_per_year"] == pytest.approx(
+        case.clean.loc[SPOILT, "recharge_mm_per_year"], rel=1e-9
+    )
+    assert "values that are not numbers" not in case.stderr  # markers are missing values
+
+
 # --------------------------------------------------------------------------- records
 
 
@@ -678,3 +706,43 @@ def test_a_real_process_prints_one_line(case):
         f"write dates as 2020-01-31 (file {case.paths['discharge']}, field 'date')"
     ]
     assert digests(case.inputs) == before and list(case.outdir.iterdir()) == []
+
+
+@pytest.mark.parametrize(
+    "words",
+    [
+        "the discharge table file does not exist",
+        "is not a GeoPackage, though its name ends in .gpkg",
+        "is not a text table",
+        "has no layer 'stations'; layers found",
+        "has no field 'flow'; fields found",
+        "the discharge table has no rows",
+        "no value of the date field could be read as a date",
+        "may be day/month or month/day",
+        "the dates mix day/month/year",
+        "no value of the discharge field is a number",
+        "no gauge has a usable discharge value",
+        "no gauge id of the discharge table matches the gauges layer",
+        "holds no polygon (its geometries are Point)",
+        "has no coordinate reference system (CRS)",
+        "coordinates do not fit its coordinate reference system",
+        "the output path is one of the input files",
+        "the output folder does not exist",
+        "is not writable",
+        "the output could not be written",
+        "rows with a date that could not be read left out",
+        "used as a missing-value code on",
+        "that are text, negative or infinite left out",
+        "over 10 million m³/s left out",
+        "given more than once with different values (averaged)",
+        "flow is zero on every day with a value",
+        "too short for the method",
+        "has no area: depths not computed",
+        "could not be computed (internal error:",
+        "rerun with --debug for the full trace",
+    ],
+)
+def test_readme_says_what_to_do_about_each_message(words):
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    section = readme.split("## When things go wrong", 1)[1].split("\n## ", 1)[0]
+    assert words in section.replace("\n", " ")
