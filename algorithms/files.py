@@ -209,7 +209,9 @@ def discharge_groups(
     processed. Parquet is filtered by gauge id (row groups whose statistics rule the gauges out
     are skipped); text tables are read once in chunks and split into one temporary file per
     group beside nothing else, removed afterwards. Other formats are read whole. Rows of gauges
-    that are not in ``gauge_ids`` are left out.
+    that are not in ``gauge_ids`` are left out; when no row belongs to any of them, a last
+    group of a few rows of other ids is given instead, so the run can say which ids the table
+    holds.
     """
     file_path, _layer = _existing(path, what)
     gauge_ids = list(gauge_ids)
@@ -244,6 +246,7 @@ def _parquet_groups(file_path, gauge_field, batches, what):
             file=str(file_path),
         )
     kind = schema.field(gauge_field).type
+    found = False
     for batch in batches:
         if pa.types.is_integer(kind) or pa.types.is_floating(kind):
             values = [
@@ -253,7 +256,18 @@ def _parquet_groups(file_path, gauge_field, batches, what):
             values = [str(g) for g in batch]
         if not values:
             continue
-        yield pq.read_table(file_path, filters=[(gauge_field, "in", values)]).to_pandas()
+        frame = pq.read_table(file_path, filters=[(gauge_field, "in", values)]).to_pandas()
+        found = found or len(frame) > 0
+        yield frame
+    if not found:  # no row of any gauge: a few rows say which ids the table holds
+        for rows in pq.ParquetFile(file_path).iter_batches(batch_size=10_000):
+            yield rows.to_pandas().drop_duplicates(gauge_field).head(_SAMPLE_IDS)
+            break
+
+
+#: When no row of a table read in gauge groups belongs to a gauge, rows of this many other ids
+#: are passed on, so the run can say which ids the table holds.
+_SAMPLE_IDS = 5
 
 
 def _is_number(text):
@@ -271,6 +285,7 @@ def _text_groups(file_path, gauge_field, batches, what):
     sep = _separator(file_path, encoding)
     with tempfile.TemporaryDirectory(prefix="recharge-atlas-groups-") as folder:
         written = set()
+        samples = []
         reader = pd.read_csv(
             file_path,
             dtype=str,
@@ -297,6 +312,9 @@ def _text_groups(file_path, gauge_field, batches, what):
                         target, mode="a", header=group not in written, index=False
                     )
                     written.add(int(group))
+                if len(samples) < _SAMPLE_IDS and (groups < 0).any():
+                    others = chunk[groups < 0].drop_duplicates(gauge_field)
+                    samples.append(others.head(_SAMPLE_IDS - len(samples)))
         except InputError:
             raise
         except Exception as exc:
@@ -307,6 +325,8 @@ def _text_groups(file_path, gauge_field, batches, what):
         for group in range(len(batches)):
             if group in written:
                 yield pd.read_csv(Path(folder) / f"{group}.csv", dtype=str, **TEXT_MISSING)
+        if not written and samples:  # no row of any gauge: a few rows say which ids it holds
+            yield pd.concat(samples, ignore_index=True)
 
 
 def _first_line(exc):

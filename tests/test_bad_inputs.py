@@ -746,3 +746,36 @@ def test_readme_says_what_to_do_about_each_message(words):
     readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
     section = readme.split("## When things go wrong", 1)[1].split("\n## ", 1)[0]
     assert words in section.replace("\n", " ")
+
+
+@pytest.mark.parametrize("kind", ["flagged", "no match", "no rows", "no field"])
+def test_reading_in_gauge_groups_gives_the_same_answers(case, capsys, kind):
+    """Large tables are read a gauge group at a time (--gauges-per-group): same outcomes."""
+    frame = case.discharge()
+    if kind == "flagged":
+        frame.loc[_rows(frame)[[7, 8]], "date"] = "unknown"
+    elif kind == "no match":
+        frame["gauge_id"] = frame["gauge_id"] + "-X"
+    elif kind == "no rows":
+        frame = frame.iloc[:0]
+    case.write_discharge(frame)
+    extra = ["--gauges-per-group", "1"] + (["--value-field", "flow"] if kind == "no field" else [])
+    case.run(capsys, *extra)
+    if kind == "flagged":
+        case.flagged(SPOILT, "2 rows with a date that could not be read left out")
+    elif kind == "no match":
+        case.error("no gauge id of the discharge table matches the gauges layer", "discharge.csv")
+    elif kind == "no rows":
+        case.error("the discharge table has no rows", "discharge.csv")
+    else:
+        case.error("the discharge table has no field 'flow'", "discharge.csv")
+
+
+def test_parquet_in_gauge_groups_no_match(case, capsys):
+    pytest.importorskip("pyarrow")
+    frame = case.discharge()
+    frame["gauge_id"] = "Q-" + frame["gauge_id"]
+    table = case.inputs / "discharge.parquet"
+    frame.to_parquet(table)
+    case.run(capsys, "--gauges-per-group", "2", discharge=table)
+    case.error("no gauge id of the discharge table matches the gauges layer", "'Q-AB1'")
