@@ -173,6 +173,30 @@ def _option_text(value, options):
     return value
 
 
+def _file_of(source: str):
+    """The file behind a layer source or an output destination (``/a/b.gpkg|layername=x``,
+    ``ogr:dbname='/a/b.gpkg' table="x" (geom)``); None for memory layers and databases."""
+    text = str(source or "").strip()
+    match = re.match(r"^ogr:dbname='((?:[^']|'')*)'", text)
+    if match:
+        text = match.group(1).replace("''", "'")
+    text = text.split("|", 1)[0]
+    if not text or text.startswith("memory:") or "dbname=" in text or text == "TEMPORARY_OUTPUT":
+        return None
+    return Path(text)
+
+
+def _same_file(a, b) -> bool:
+    import os
+
+    try:
+        if os.path.exists(a) and os.path.exists(b):
+            return os.path.samefile(a, b)
+        return Path(a).resolve() == Path(b).resolve()
+    except OSError:
+        return False
+
+
 # Share of the progress bar for each stage.
 _READ_END, _RUN_END, _REPORT_END = 15.0, 85.0, 90.0
 
@@ -805,6 +829,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
 
         settings = self._settings(parameters, context)
         try:
+            self._check_outputs_are_not_inputs(parameters, context)
             settings = settings.resolved()
             if scheme not in MAP_CLASSES:
                 raise InputError(self._unknown_choice(self.CLASSES, scheme))
@@ -866,6 +891,35 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
                 )
         self._summarize(result, feedback)
         return outputs
+
+    #: The input parameters whose files no output may be written into.
+    _INPUTS = ("GAUGES", "DISCHARGE", "CATCHMENTS", "SUBBASINS")
+
+    def _check_outputs_are_not_inputs(self, parameters, context):
+        """Raise InputError when an output would be written into one of the input files (a
+        GeoPackage output over the catchments' file would replace or change it), in the
+        command line's words."""
+        from ..algorithms.errors import InputError
+
+        inputs = []
+        for name in self._INPUTS:
+            if not self._has(name):
+                continue
+            layer = self.parameterAsVectorLayer(parameters, name, context)
+            path = _file_of(layer.source()) if layer is not None else None
+            if path:
+                inputs.append(path)
+        for definition in self.destinationParameterDefinitions():
+            name = definition.name()
+            if definition.type() == "fileDestination":
+                target = self.parameterAsFileOutput(parameters, name, context)
+            else:
+                target = self.parameterAsOutputLayer(parameters, name, context)
+            path = _file_of(target) if target else None
+            if path and any(_same_file(path, other) for other in inputs):
+                raise InputError(
+                    f"the output path is one of the input files ({name})", file=str(path)
+                )
 
     def _internal_error(self, exc, feedback):
         """A QgsProcessingException for an unexpected error: one line saying what happened

@@ -228,3 +228,22 @@ def test_flagged_gauge_same_quality(copy, tmp_path, capsys):
     assert "flow is zero on every day with a value" in cli["AB1"]
     assert "2 rows with a date that could not be read left out (e.g. 'not yet')" in cli["AB1"]
     assert cli["CD2"] == "ok" and cli["EF3"] == "ok"
+
+
+@pytest.mark.parametrize("output", ["OUTPUT", "ANNUAL"])
+def test_output_into_an_input_file_is_refused(copy, tmp_path, output):
+    """Writing a layer into the catchments' GeoPackage would change an input: refused, in the
+    command line's words, before any work."""
+    import processing
+    from support_qgis import gpkg_layer
+
+    before = digests(copy["gauges"].parent)
+    target = gpkg_layer(copy["catchments"], "recharge", geometry=output == "OUTPUT")
+    parameters = _parameters(copy, tmp_path / "out", **{output: target})
+    with pytest.raises(QgsProcessingException) as caught:
+        processing.run(ALGORITHM, parameters, feedback=QgsProcessingFeedback())
+    assert str(caught.value) == (
+        f"the output path is one of the input files ({output}) (file {copy['catchments']})"
+    )
+    assert digests(copy["gauges"].parent) == before
+    assert list((tmp_path / "out").iterdir()) == []
