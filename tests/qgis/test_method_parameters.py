@@ -277,7 +277,7 @@ def test_negative_recession_index_in_the_field_is_named(qgis_app, tmp_path_facto
     with pytest.raises(QgsProcessingException) as caught:
         processing.run(ALGORITHM, parameters, feedback=QgsProcessingFeedback())
     message = str(caught.value)
-    for words in ("recession index -5", "not a positive number", "'k_days'", "'QM02'"):
+    for words in ("recession index -5", "not a positive number", "'k_days'", "gauge QM02"):
         assert words in message
     assert "Traceback" not in message
     assert list(out.iterdir()) == []
