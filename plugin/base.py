@@ -12,21 +12,41 @@ from qgis.PyQt.QtCore import QCoreApplication
 from . import compat, dependencies
 
 HELP_DIR = Path(__file__).resolve().parent / "help"
+#: Snippets that several helps share, each included where a help says ``<!-- include: NAME -->``.
+SHARED_HELP_DIR = HELP_DIR / "shared"
+_INCLUDE = re.compile(r"<!--\s*include:\s*([a-z_]+)\s*-->")
+_COMMENT = re.compile(r"<!--.*?-->", re.S)
+
+
+def _read(path: Path) -> str:
+    try:
+        return path.read_text(encoding="utf-8")
+    except OSError:
+        return ""
+
+
+def _folded(text: str) -> str:
+    return re.sub(r"\s*\n\s*", " ", text).strip()
+
+
+@cache
+def shared_help(name: str) -> str:
+    """The shared help snippet ``plugin/help/shared/<name>.html``, its comments left out and
+    its line breaks folded ("" when absent)."""
+    return _folded(_COMMENT.sub("", _read(SHARED_HELP_DIR / f"{name}.html")))
 
 
 @cache
 def help_text(name: str) -> str:
     """The HTML help of algorithm ``name`` from ``plugin/help/<name>.html`` ("" when absent).
 
-    Line breaks are folded into spaces: the Processing dialog shows each one as a new line,
-    while the file keeps short lines for reading and review.
+    Each ``<!-- include: NAME -->`` is replaced by the shared snippet
+    ``plugin/help/shared/NAME.html`` (the cautions every algorithm states live in
+    ``shared/cautions.html``). Line breaks are folded into spaces: the Processing dialog
+    shows each one as a new line, while the files keep short lines for reading and review.
     """
-    path = HELP_DIR / f"{name}.html"
-    try:
-        text = path.read_text(encoding="utf-8")
-    except OSError:
-        return ""
-    return re.sub(r"\s*\n\s*", " ", text).strip()
+    text = _read(HELP_DIR / f"{name}.html")
+    return _folded(_INCLUDE.sub(lambda match: shared_help(match.group(1)), text))
 
 
 class RechargeAtlasAlgorithm(QgsProcessingAlgorithm):
