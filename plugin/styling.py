@@ -3,6 +3,7 @@
 The class limits come from the core's :func:`recharge_atlas.algorithms.maps.class_breaks` and
 the colours from :func:`~recharge_atlas.algorithms.maps.class_colours`, the functions the
 command line's PNG map and the report use, so QGIS draws the same classes in the same colours.
+Features without a value are drawn in the maps' grey, in a last class labelled "no estimate".
 """
 
 from __future__ import annotations
@@ -14,6 +15,7 @@ from qgis.core import (
     QgsClassificationEqualInterval,
     QgsClassificationJenks,
     QgsClassificationQuantile,
+    QgsExpression,
     QgsFeatureRequest,
     QgsGradientColorRamp,
     QgsGradientStop,
@@ -45,6 +47,11 @@ SCHEMES = ("quantiles", "equal_interval", "natural_breaks")
 MARKER_SIZE = 3.0
 #: Polygons are drawn largest first when the layer has this field, so nested basins show.
 AREA_FIELD = "area_km2"
+#: Label of the class of features without a value (NULL), the words of the core's maps.
+NO_ESTIMATE_LABEL = "no estimate"
+#: The number a NULL stands for in the classified expression: far below any value a field
+#: holds, so that only features without a value fall in the "no estimate" class.
+NO_ESTIMATE_VALUE = -1e300
 
 #: QGIS's own classification of each scheme, kept on the renderer so that the layer
 #: properties show the scheme and a user who re-classifies gets the same kind of classes
@@ -58,14 +65,22 @@ _QGIS_METHODS = {
 
 def finite_values(layer, field_name: str) -> list:
     """The field's values that are numbers, NULL and NaN left out."""
+    return _read_values(layer, field_name)[0]
+
+
+def _read_values(layer, field_name: str):
+    """The field's values that are numbers (NULL and NaN left out), and how many features
+    hold NULL."""
     index = layer.fields().lookupField(field_name)
     request = (
         QgsFeatureRequest().setFlags(compat.REQUEST_NO_GEOMETRY).setSubsetOfAttributes([index])
     )
     values = []
+    nulls = 0
     for feature in layer.getFeatures(request):
         value = feature.attributes()[index]
         if compat.is_null(value):
+            nulls += 1
             continue
         try:
             number = float(value)
@@ -73,7 +88,20 @@ def finite_values(layer, field_name: str) -> list:
             continue
         if math.isfinite(number):
             values.append(number)
-    return values
+    return values, nulls
+
+
+def no_estimate_expression(field_name: str) -> str:
+    """What a graduated style classifies when some features have no value in ``field_name``:
+    the field, its NULLs read as :data:`NO_ESTIMATE_VALUE`."""
+    return f"coalesce({QgsExpression.quotedColumnRef(field_name)}, {NO_ESTIMATE_VALUE!r})"
+
+
+def no_estimate_colour() -> QColor:
+    """The core maps' grey for features without a value."""
+    from ..algorithms.maps import NO_ESTIMATE_COLOUR
+
+    return QColor(NO_ESTIMATE_COLOUR)
 
 
 def class_colours(n: int) -> list:
@@ -114,18 +142,26 @@ def apply_graduated_style(
     followed by the units (``120 – 180 mm/yr``; ``units`` defaults to
     :data:`FIELD_UNITS`), the core's ``maps.class_colours`` (those of the PNG maps), and
     larger polygons drawn first so nested catchments show on top of the basins that contain
-    them. Features without a value (NULL) are not drawn. Returns None, leaving the layer as
-    it was, when the layer lacks the field or no feature has a value in it.
+    them. When some features have no value (NULL), a last class labelled "no estimate" draws
+    them in the core maps' grey (``maps.NO_ESTIMATE_COLOUR``), as the PNG maps do. Returns
+    None, leaving the layer as it was, when the layer lacks the field or no feature has a
+    value in it.
 
     Notes
     -----
     The classes are computed here, not with ``updateClasses``: QGIS 3.22 reads NULL numbers
     as 0 when classifying a layer, which would open a false 0 class. A value on a limit
     belongs to the lower class, as in the core.
+
+    A graduated renderer draws no feature whose value is NULL. When the layer has such
+    features, the renderer classifies ``coalesce("field", -1e300)`` instead of the field
+    (:data:`NO_ESTIMATE_VALUE`, far below any real value) and the "no estimate" class holds
+    that one number. A user who re-classifies the layer in QGIS should set the value back to
+    the field first, or the stand-in number joins the classes.
     """
     if layer is None or layer.fields().lookupField(field_name) < 0:
         return None
-    values = finite_values(layer, field_name)
+    values, nulls = _read_values(layer, field_name)
     if not values:
         return None
     from ..algorithms.maps import class_breaks, class_labels
@@ -138,7 +174,8 @@ def apply_graduated_style(
     method.setLabelPrecision(0 if units else 2)
     method.setLabelTrimTrailingZeroes(True)
 
-    renderer = QgsGraduatedSymbolRenderer(field_name)
+    attribute = no_estimate_expression(field_name) if nulls else field_name
+    renderer = QgsGraduatedSymbolRenderer(attribute)
     renderer.setClassificationMethod(method)
     symbol = QgsSymbol.defaultSymbol(layer.geometryType())
     if hasattr(symbol, "setSize"):  # gauge points: markers large enough to see the colour
@@ -150,6 +187,12 @@ def apply_graduated_style(
         one = symbol.clone()
         one.setColor(colour)
         renderer.addClassRange(QgsRendererRange(float(low), float(high), one, f"{label}{suffix}"))
+    if nulls:
+        grey = symbol.clone()
+        grey.setColor(no_estimate_colour())
+        renderer.addClassRange(
+            QgsRendererRange(NO_ESTIMATE_VALUE, NO_ESTIMATE_VALUE, grey, NO_ESTIMATE_LABEL)
+        )
     renderer.setSourceColorRamp(colour_ramp(colours))
     order_by_area(renderer, layer)
     layer.setRenderer(renderer)

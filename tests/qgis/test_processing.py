@@ -282,14 +282,28 @@ def test_optional_tables_can_be_skipped(qgis_app, tmp_path):
 # --------------------------------------------------------------------------- style
 
 
+def _value_ranges(renderer):
+    """The renderer's classes of values, the "no estimate" class (NULL) left out."""
+    from recharge_atlas.plugin.styling import NO_ESTIMATE_LABEL
+
+    return [r for r in renderer.ranges() if r.label() != NO_ESTIMATE_LABEL]
+
+
 def test_style_is_a_graduated_map_of_recharge(processing_run):
-    from recharge_atlas.plugin.styling import apply_recharge_style
+    from recharge_atlas.plugin.styling import (
+        NO_ESTIMATE_LABEL,
+        apply_recharge_style,
+        no_estimate_expression,
+    )
 
     layer = _layer(processing_run["path"], "catchments")
     renderer = apply_recharge_style(layer)
     assert isinstance(layer.renderer(), QgsGraduatedSymbolRenderer)
-    assert renderer.classAttribute() == "recharge_mm_per_year"
-    ranges = renderer.ranges()
+    # The demo has catchments without an estimate: NULL is classified as a stand-in number
+    # that only the last class, "no estimate", holds.
+    assert renderer.classAttribute() == no_estimate_expression("recharge_mm_per_year")
+    assert renderer.ranges()[-1].label() == NO_ESTIMATE_LABEL
+    ranges = _value_ranges(renderer)
     assert len(ranges) >= 3
     assert all("mm/yr" in r.label() for r in ranges)
     lows = [r.lowerValue() for r in ranges]
@@ -313,7 +327,7 @@ def test_style_classes_are_the_cores(processing_run, scheme):
     renderer = apply_recharge_style(layer, scheme=scheme)
     values = [_number(f["recharge_mm_per_year"]) for f in layer.getFeatures()]
     breaks = class_breaks(values, scheme, 5)
-    ranges = renderer.ranges()
+    ranges = _value_ranges(renderer)
     assert [r.lowerValue() for r in ranges] == breaks[:-1].tolist()
     assert [r.upperValue() for r in ranges] == breaks[1:].tolist()
     assert [r.label() for r in ranges] == [f"{t} mm/yr" for t in class_labels(breaks)]
@@ -323,6 +337,7 @@ def test_style_is_applied_when_the_output_loads(algorithm, qgis_app):
     """The post-processor is attached to OUTPUT when it is to be loaded into a project, with
     the classes asked for (CLASSES, CLASS_COUNT): natural breaks give the core's limits."""
     from recharge_atlas.algorithms.maps import class_breaks
+    from recharge_atlas.plugin.styling import no_estimate_expression
 
     project = QgsProject()
     context = QgsProcessingContext()
@@ -345,10 +360,10 @@ def test_style_is_applied_when_the_output_loads(algorithm, qgis_app):
     layer = QgsProcessingUtils.mapLayerFromString(dest, context)
     processor.postProcessLayer(layer, context, feedback)
     assert isinstance(layer.renderer(), QgsGraduatedSymbolRenderer)
-    assert layer.renderer().classAttribute() == "recharge_mm_per_year"
+    assert layer.renderer().classAttribute() == no_estimate_expression("recharge_mm_per_year")
     values = [_number(f["recharge_mm_per_year"]) for f in layer.getFeatures()]
     breaks = class_breaks(values, "natural_breaks", 3)
-    ranges = layer.renderer().ranges()
+    ranges = _value_ranges(layer.renderer())
     assert len(ranges) == 3
     assert [r.upperValue() for r in ranges] == breaks[1:].tolist()
     assert layer.renderer().classificationMethod().id() == "Jenks"

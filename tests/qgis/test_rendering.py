@@ -2,7 +2,8 @@
 by the post-processor that runs when the output loads, rendered offscreen to a PNG. Each
 gauged catchment shows its class's colour (the core's colours, those of the PNG maps) where it
 is not covered by a nested basin, the classes come out in distinct colours, and catchments
-without an estimate are left unfilled."""
+without an estimate (NULL) are drawn in the maps' grey, in a class labelled "no estimate" that
+the legend shows beside the class labels with their units."""
 
 from __future__ import annotations
 
@@ -11,6 +12,9 @@ import pytest
 pytest.importorskip("qgis.core")
 
 from qgis.core import (  # noqa: E402
+    QgsFeature,
+    QgsGeometry,
+    QgsLayerTreeLayer,
     QgsMapRendererSequentialJob,
     QgsMapSettings,
     QgsProcessingContext,
@@ -18,7 +22,7 @@ from qgis.core import (  # noqa: E402
     QgsRectangle,
     QgsVectorLayer,
 )
-from qgis.PyQt.QtCore import QSize  # noqa: E402
+from qgis.PyQt.QtCore import QSize, Qt  # noqa: E402
 from qgis.PyQt.QtGui import QColor  # noqa: E402
 
 #: Size of the rendered map (pixels) and the largest colour difference taken as "the same"
@@ -66,8 +70,8 @@ def _same(a, b):
 
 
 def test_recharge_classes_are_drawn_in_distinct_colours(processing_run, tmp_path):
-    from recharge_atlas.algorithms.maps import class_colours
-    from recharge_atlas.plugin.styling import recharge_post_processor
+    from recharge_atlas.algorithms.maps import NO_ESTIMATE_COLOUR, class_colours
+    from recharge_atlas.plugin.styling import NO_ESTIMATE_LABEL, recharge_post_processor
 
     path = processing_run["path"]
     layer = QgsVectorLayer(f"{path}|layername=catchments", "recharge", "ogr")
@@ -75,7 +79,7 @@ def test_recharge_classes_are_drawn_in_distinct_colours(processing_run, tmp_path
     recharge_post_processor().postProcessLayer(
         layer, QgsProcessingContext(), QgsProcessingFeedback()
     )
-    ranges = layer.renderer().ranges()
+    ranges = [r for r in layer.renderer().ranges() if r.label() != NO_ESTIMATE_LABEL]
     assert len(ranges) == 5
     wanted = [QColor(c) for c in class_colours(len(ranges))]
     assert [r.symbol().color().name() for r in ranges] == [c.name() for c in wanted]
@@ -83,13 +87,16 @@ def test_recharge_classes_are_drawn_in_distinct_colours(processing_run, tmp_path
     image, settings = _render(layer, tmp_path / "recharge.png")
     to_pixel = settings.mapToPixel()
     seen = {}
+    grey = QColor(NO_ESTIMATE_COLOUR)
+    without = 0
     for feature, part in _own_parts(layer):
         inside, _distance = part.poleOfInaccessibility(1.0)
         point = to_pixel.transform(inside.asPoint())
         pixel = QColor(image.pixel(round(point.x()), round(point.y())))
         value = feature["recharge_mm_per_year"]
         if value is None or not isinstance(value, float):
-            assert _same(pixel, WHITE), f"{feature['name']} has no estimate: left unfilled"
+            assert _same(pixel, grey), (feature["name"], "has no estimate: grey", pixel.name())
+            without += 1
             continue
         index = next(
             i
@@ -100,3 +107,84 @@ def test_recharge_classes_are_drawn_in_distinct_colours(processing_run, tmp_path
         seen[index] = pixel.name()
     assert sorted(seen) == list(range(len(ranges))), "every class is drawn"
     assert len(set(seen.values())) == len(ranges), "each class in its own colour"
+    assert without, "the demo region has catchments without an estimate"
+
+
+def _memory_catchments(values):
+    """Side-by-side 1° squares in EPSG:4326 with ``recharge_mm_per_year`` from ``values``
+    (None: NULL, no estimate) and ``area_km2`` (equal, so the drawing order changes
+    nothing)."""
+    layer = QgsVectorLayer(
+        "Polygon?crs=EPSG:4326&field=name:string&field=recharge_mm_per_year:double"
+        "&field=area_km2:double",
+        "catchments",
+        "memory",
+    )
+    features = []
+    for i, value in enumerate(values):
+        feature = QgsFeature(layer.fields())
+        feature.setGeometry(
+            QgsGeometry.fromWkt(f"POLYGON(({i} 0,{i + 1} 0,{i + 1} 1,{i} 1,{i} 0))")
+        )
+        feature.setAttributes([f"C{i}", value, 100.0])
+        features.append(feature)
+    assert layer.dataProvider().addFeatures(features)
+    layer.updateExtents()
+    return layer
+
+
+def _legend_labels(layer):
+    """The labels of the layer's legend entries as the Layers panel shows them."""
+    nodes = layer.legend().createLayerTreeModelLegendNodes(QgsLayerTreeLayer(layer))
+    return [node.data(Qt.ItemDataRole.DisplayRole) for node in nodes]
+
+
+def test_a_catchment_without_an_estimate_is_drawn_grey_and_labelled(qgis_app, tmp_path):
+    """A NULL recharge is drawn in the core maps' grey (``maps.NO_ESTIMATE_COLOUR``, the PNG
+    map's), in a last class labelled "no estimate"; the other classes keep the core's limits,
+    colours and labels with units."""
+    from recharge_atlas.algorithms.maps import (
+        NO_ESTIMATE_COLOUR,
+        class_breaks,
+        class_colours,
+        class_labels,
+    )
+    from recharge_atlas.plugin.styling import NO_ESTIMATE_LABEL, apply_recharge_style
+
+    values = [40.0, 90.0, None, 150.0, 260.0]
+    layer = _memory_catchments(values)
+    renderer = apply_recharge_style(layer, classes=3, scheme="equal_interval")
+    assert renderer is layer.renderer()
+    breaks = class_breaks([v for v in values if v is not None], "equal_interval", 3)
+    labels = [f"{t} mm/yr" for t in class_labels(breaks)]
+    ranges = renderer.ranges()
+    assert [r.label() for r in ranges] == [*labels, NO_ESTIMATE_LABEL]
+    assert [r.upperValue() for r in ranges[:-1]] == breaks[1:].tolist()
+    assert ranges[-1].symbol().color().name() == QColor(NO_ESTIMATE_COLOUR).name()
+    assert _legend_labels(layer) == [*labels, NO_ESTIMATE_LABEL], "the legend shows it"
+
+    image, settings = _render(layer, tmp_path / "no-estimate.png")
+    to_pixel = settings.mapToPixel()
+    wanted = [QColor(c) for c in class_colours(3)]
+    for feature in layer.getFeatures():
+        inside, _distance = feature.geometry().poleOfInaccessibility(0.01)
+        point = to_pixel.transform(inside.asPoint())
+        pixel = QColor(image.pixel(round(point.x()), round(point.y())))
+        value = feature["recharge_mm_per_year"]
+        if feature["name"] == "C2":
+            assert _same(pixel, QColor(NO_ESTIMATE_COLOUR)), pixel.name()
+        else:
+            index = next(i for i in range(3) if value <= breaks[i + 1])
+            assert _same(pixel, wanted[index]), (feature["name"], pixel.name())
+
+
+def test_no_grey_class_when_every_catchment_has_an_estimate(qgis_app):
+    """As on the PNG maps, "no estimate" appears only when some feature has no value."""
+    from recharge_atlas.plugin.styling import NO_ESTIMATE_LABEL, apply_recharge_style
+
+    layer = _memory_catchments([40.0, 90.0, 150.0])
+    renderer = apply_recharge_style(layer, classes=3)
+    assert renderer.classAttribute() == "recharge_mm_per_year"
+    labels = _legend_labels(layer)
+    assert NO_ESTIMATE_LABEL not in labels
+    assert all(label.endswith(" mm/yr") for label in labels), labels
