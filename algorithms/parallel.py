@@ -16,6 +16,17 @@ import sys
 GROUP_SIZE = 32
 
 
+#: Groups per worker at least, so a small run still keeps every worker busy to the end.
+GROUPS_PER_WORKER = 4
+
+
+def group_size(total, workers=1, scheduler=None):
+    """Gauges per group for ``total`` gauges: :data:`GROUP_SIZE`, or fewer so that each worker
+    gets about :data:`GROUPS_PER_WORKER` groups (a cluster counts as eight workers here)."""
+    share = 8 if scheduler else max(int(workers or 1), 1)
+    return max(1, min(GROUP_SIZE, -(-int(total) // (GROUPS_PER_WORKER * share))))
+
+
 def groups(items, size=GROUP_SIZE):
     """Consecutive slices of ``items`` of at most ``size``."""
     items = list(items)

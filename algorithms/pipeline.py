@@ -34,7 +34,7 @@ from .recession import (
 )
 from .rises import find_rises, log_flow, rise_threshold
 from .subbasins import UNGAUGED_CHOICES
-from .tables import ColumnTable, empty_table, stack
+from .tables import ColumnTable, empty_table, pack_tables, stack, unpack_tables
 from .units import canonical_units
 
 #: Fields added to the catchments layer, in order. Later versions add; they never rename.
@@ -972,11 +972,12 @@ def _gauge_group(payload):
     """The hydrology of a group of gauges (run here or in a worker process).
 
     The payload's items carry their daily records, or None when a forked worker reads them
-    from the records it inherited.
+    from the records it inherited. A worker packs the group's results (see
+    :func:`_pack_group`) so they travel back cheaply.
     """
     from .parallel import shared
 
-    items, settings, keep_series = payload
+    items, settings, keep_series, packed = payload
     inherited = shared()
     out = []
     for gid, record, area, given in items:
@@ -997,6 +998,47 @@ def _gauge_group(payload):
         if not keep_series:
             result.flow = result.baseflow = None
         out.append((gid, result, failure))
+    return _pack_group(out) if packed else out
+
+
+#: Marks a gauge group's results packed by :func:`_pack_group`.
+_PACKED = "packed gauge group"
+
+
+def _pack_group(out):
+    """A gauge group's results with each kind of table joined across its gauges.
+
+    Pickling a few long arrays costs a fraction of pickling many short ones; this is what makes
+    the workers' results cheap to send and to receive. :func:`_unpack_group` restores them
+    exactly (same values, same dtypes).
+    """
+    results = [result for _, result, _ in out]
+    tables = {
+        name: pack_tables([result.tables.get(name) for result in results])
+        for name in {name for result in results for name in result.tables}
+    }
+    has_tables = [sorted(result.tables) for result in results]
+    segments = pack_tables(
+        [None if r.recession is None else r.recession.segment_columns for r in results]
+    )
+    for result in results:
+        result.tables = {}
+        if result.recession is not None:
+            result.recession.segment_columns = None
+    return (_PACKED, out, has_tables, tables, segments)
+
+
+def _unpack_group(group):
+    """The ``(gauge id, result, failure)`` list of a gauge group, packed or not."""
+    if not (isinstance(group, tuple) and group and group[0] == _PACKED):
+        return group
+    _, out, has_tables, tables, segments = group
+    unpacked = {name: unpack_tables(packed) for name, packed in tables.items()}
+    for i, ((_, result, _), names) in enumerate(zip(out, has_tables)):
+        result.tables = {name: unpacked[name][i] for name in names}
+    for (_, result, _), columns in zip(out, unpack_tables(segments)):
+        if result.recession is not None:
+            result.recession.segment_columns = columns
     return out
 
 
@@ -1040,30 +1082,32 @@ def compute_gauges(
         In the order of ``gauge_ids``; identical whatever the workers or scheduler.
     failed : int
     """
-    from .parallel import GROUP_SIZE, groups, map_groups
+    from .parallel import group_size, groups, map_groups
 
     workers = settings.workers if workers is None else workers
     scheduler = settings.dask_scheduler if scheduler is None else scheduler
     total = len(gauge_ids)
     serial = int(workers or 1) <= 1 and not scheduler
     # One gauge at a time when serial, so progress and cancel follow every gauge.
-    batches = groups(gauge_ids, 1 if serial else GROUP_SIZE)
+    batches = groups(gauge_ids, 1 if serial else group_size(total, workers, scheduler))
     # Payloads name their gauges; the records go along only where workers cannot inherit them.
     payloads = [
         (
             [(gid, None, area_of.get(gid, np.nan), given_k.get(gid)) for gid in batch],
             settings,
             keep_series,
+            not serial,
         )
         for batch in batches
     ]
 
     def pack(payload, all_records):
-        items, group_settings, keep = payload
+        items, group_settings, keep, packed = payload
         return (
             [(gid, all_records.get(gid), area, given) for gid, _, area, given in items],
             group_settings,
             keep,
+            packed,
         )
 
     results: dict[str, GaugeResult] = {}
@@ -1079,7 +1123,7 @@ def compute_gauges(
         shared_data=records,
         pack=pack,
     ):
-        for gid, result, failure in group:
+        for gid, result, failure in _unpack_group(group):
             if failure is not None:
                 failed += 1
                 reporter.warning(f"gauge {gid}: could not be computed ({failure})")

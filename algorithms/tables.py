@@ -103,3 +103,53 @@ def stack(tables, keys, key_name, order) -> pd.DataFrame:
     for c in order:
         data[c] = np.concatenate([np.asarray(t.columns[c]) for _, t in parts])
     return pd.DataFrame(data)
+
+
+def pack_tables(tables):
+    """Many tables of one kind as one set of columns, to send between processes.
+
+    Pickling a few long arrays costs far less than pickling many short ones, so a worker packs
+    its gauge group's tables before returning them. ``tables`` is a list of
+    :class:`ColumnTable` (or None); :func:`unpack_tables` gives the same list back, every
+    column with its values and dtype unchanged. A column whose dtype differs between the
+    tables is sent as it is (joining it would change a type).
+    """
+    present = [t for t in tables if t is not None]
+    if not present:
+        return ("as_is", list(tables))
+    names = list(present[0].columns)
+    order = present[0].order
+    if any(list(t.columns) != names or t.order != order for t in present):
+        return ("as_is", list(tables))
+    lengths = np.array([-1 if t is None else len(t) for t in tables], dtype=np.int64)
+    columns = {}
+    for name in names:
+        parts = [t.columns[name] for t in present]
+        arrays = all(isinstance(p, np.ndarray) and p.ndim == 1 for p in parts)
+        same = arrays and len({p.dtype for p in parts}) == 1
+        columns[name] = np.concatenate(parts) if same else ("parts", parts)
+    return ("packed", names, order, lengths, columns)
+
+
+def unpack_tables(packed):
+    """The list of tables :func:`pack_tables` packed (columns are views of the joined arrays)."""
+    if packed[0] == "as_is":
+        return packed[1]
+    _, names, order, lengths, columns = packed
+    present = lengths >= 0
+    cuts = np.cumsum(lengths[present])[:-1]
+    split = {}
+    for name, joined in columns.items():
+        if isinstance(joined, tuple):
+            split[name] = joined[1]
+        else:
+            split[name] = np.split(joined, cuts)
+    out = []
+    k = 0
+    for is_present in present:
+        if not is_present:
+            out.append(None)
+            continue
+        out.append(ColumnTable({name: split[name][k] for name in names}, order))
+        k += 1
+    return out

@@ -168,3 +168,44 @@ def test_reading_in_gauge_groups_gives_identical_results(tmp_path, sample_paths,
             read_attribute_table(outputs[0], name), read_attribute_table(outputs[2], name)
         )
     assert not list(tmp_path.glob("recharge-atlas-groups-*"))
+
+
+def test_packed_tables_come_back_unchanged():
+    """Workers join their gauges' tables before sending them; unpacking restores each exactly."""
+    import numpy as np
+
+    from recharge_atlas.algorithms.tables import ColumnTable, pack_tables, unpack_tables
+
+    def table(n, note_dtype=object):
+        return ColumnTable(
+            {
+                "peak_date": np.arange(n).astype("datetime64[D]").astype("datetime64[ns]"),
+                "value": np.linspace(0.0, 1.0, n),
+                "used": np.arange(n) % 2 == 0,
+                "note": np.array(["x"] * n, dtype=note_dtype),
+            },
+            ["value", "peak_date", "used", "note"],
+        )
+
+    tables = [table(3), None, table(0), table(5, note_dtype="<U1")]
+    back = unpack_tables(pack_tables(tables))
+    assert back[1] is None
+    for before, after in zip(tables, back):
+        if before is None:
+            continue
+        assert after.order == before.order and list(after.columns) == list(before.columns)
+        for name, values in before.columns.items():
+            assert after.columns[name].dtype == values.dtype, name
+            assert np.array_equal(after.columns[name], values), name
+    # Tables with other columns are sent as they are.
+    odd = [table(2), ColumnTable({"value": np.ones(2)})]
+    assert unpack_tables(pack_tables(odd)) == odd
+
+
+def test_small_runs_are_shared_among_the_workers():
+    from recharge_atlas.algorithms.parallel import GROUP_SIZE, group_size
+
+    assert group_size(6, 2) == 1  # the demo region: every gauge its own group
+    assert group_size(100, 2) == 13
+    assert group_size(100_000, 2) == GROUP_SIZE
+    assert group_size(100, 1, scheduler="tcp://somewhere:8786") == 4
