@@ -581,10 +581,15 @@ def gauge_hydrology(
     recession_index_days : float, optional
         K for this gauge (overrides ``settings.recession_index_days``).
     """
-    settings = settings.resolved()
+    return _gauge_hydrology(record, area_km2, settings.resolved(), recession_index_days)
+
+
+def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, series=True):
+    """:func:`gauge_hydrology` with ``settings`` already resolved; ``series`` False leaves the
+    daily flow and baseflow out of the result (a large run keeps only its tables)."""
     result = GaugeResult(record.gauge_id, float(area_km2))
     flow = record.flow
-    result.flow = flow
+    result.flow = flow if series else None
     quality = result.quality
     if flow.empty or record.days_with_value == 0:
         quality.append("no usable discharge values")
@@ -596,7 +601,10 @@ def gauge_hydrology(
     else:
         lag = float(runoff_end_lag_days(area if has_area else 100.0))
     q = flow.to_numpy(dtype=float)
-    day0 = np.datetime64(pd.Timestamp(flow.index[0]).date(), "D")
+    first = flow.index[:1]
+    if getattr(first, "tz", None) is not None:
+        first = first.tz_localize(None)  # the local day
+    day0 = first.to_numpy().astype("datetime64[D]")[0]
     days = day0 + np.arange(q.size).astype("timedelta64[D]")
     # Flagged days stay in the flow (and the baseflow) but the method does not use them.
     flagged = record.flagged.to_numpy(dtype=bool)
@@ -657,7 +665,8 @@ def gauge_hydrology(
         baseflow = separate_baseflow(q, settings.baseflow_method)
     else:
         baseflow = np.full(q.size, np.nan)
-    result.baseflow = pd.Series(baseflow, index=flow.index, name="baseflow_m3s")
+    if series:
+        result.baseflow = pd.Series(baseflow, index=flow.index, name="baseflow_m3s")
     result.baseflow_index = baseflow_index(q, baseflow)
 
     annual = annual_mod.annual_columns(
@@ -978,6 +987,7 @@ def _gauge_group(payload):
     from .parallel import shared
 
     items, settings, keep_series, packed = payload
+    settings = settings.resolved()
     inherited = shared()
     out = []
     for gid, record, area, given in items:
@@ -988,7 +998,7 @@ def _gauge_group(payload):
             result = GaugeResult(gid, area, quality=["no discharge record for this gauge"])
         else:
             try:
-                result = gauge_hydrology(record, area, settings, given)
+                result = _gauge_hydrology(record, area, settings, given, keep_series)
             except Exception as exc:  # one bad gauge never spoils the run
                 failure = describe(exc)
                 result = GaugeResult(
