@@ -592,20 +592,40 @@ def _no_numbers_message(column, non_numeric):
 _NS_PER_DAY = 86_400 * 10**9
 
 
+def _by_gauge_and_time(codes, stamps_ns):
+    """The stable order that sorts rows by gauge, then time; None when they already are.
+
+    Exports usually come sorted (gauge codes number the gauges as they first appear), so the
+    check saves a sort of every row; a table of gauges in any order, each in time order, needs
+    only a sort by gauge.
+    """
+    if codes.size < 2:
+        return None
+    same = codes[1:] == codes[:-1]
+    # Each gauge's rows in one block (as many changes of gauge as gauges, less one), in time.
+    blocks = codes.size - 1 - int(same.sum()) == np.count_nonzero(np.bincount(codes)) - 1
+    if blocks and ((stamps_ns[1:] >= stamps_ns[:-1]) | ~same).all():
+        if (codes[1:] >= codes[:-1]).all():
+            return None
+        return np.argsort(codes, kind="stable")
+    return np.lexsort((stamps_ns, codes))
+
+
 def _split_gauges(names, codes, stamps_ns, values, problems, flagged, min_day_coverage):
     """One GaugeRecord per gauge, from the rows of all gauges at once (no loop over rows).
 
     Rows are sorted by gauge and time; values of one day are averaged (sub-daily days with too
     few values are dropped); each gauge's days are laid on a complete daily range.
     """
-    order = np.lexsort((stamps_ns, codes))
-    codes, stamps_ns, values, flagged = (
-        codes[order],
-        stamps_ns[order],
-        values[order],
-        flagged[order],
-    )
-    problems = {k: v[order] for k, v in problems.items()}
+    order = _by_gauge_and_time(codes, stamps_ns)
+    if order is not None:
+        codes, stamps_ns, values, flagged = (
+            codes[order],
+            stamps_ns[order],
+            values[order],
+            flagged[order],
+        )
+        problems = {k: v[order] for k, v in problems.items()}
     day = np.floor_divide(stamps_ns, _NS_PER_DAY)
     n_gauges = len(names)
     problem_counts = {
@@ -628,13 +648,21 @@ def _split_gauges(names, codes, stamps_ns, values, problems, flagged, min_day_co
         run_code = codes[runs]
         repeated = np.bincount(run_code, weights=length - 1, minlength=n_gauges).astype(int)
         conflicting = np.bincount(run_code, weights=differ, minlength=n_gauges).astype(int)
+        # One value per time from here on (the mean of its usable values), so a time given
+        # twice weighs no more than any other in its day's mean.
+        usable = np.isfinite(values)
+        total = np.add.reduceat(np.where(usable, values, 0.0), runs)
+        given = np.add.reduceat(usable.astype(np.int64), runs)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            values = np.where(given > 0, total / np.maximum(given, 1), np.nan)
+        flagged = np.maximum.reduceat(flagged.astype(np.int8), runs).astype(bool)
+        codes, stamps_ns, day = run_code, stamps_ns[runs], day[runs]
     else:
         repeated = conflicting = np.zeros(n_gauges, dtype=int)
-    d_codes, d_stamps = codes[distinct], stamps_ns[distinct]
-    same = d_codes[1:] == d_codes[:-1]
+    same = codes[1:] == codes[:-1]
     steps = (
-        pd.Series((d_stamps[1:] - d_stamps[:-1])[same] / _NS_PER_DAY)
-        .groupby(d_codes[1:][same])
+        pd.Series((stamps_ns[1:] - stamps_ns[:-1])[same] / _NS_PER_DAY)
+        .groupby(codes[1:][same])
         .median()
     )
     step_of = np.full(n_gauges, np.nan)

@@ -104,3 +104,32 @@ def test_quality_codes_flag_days_without_removing_them():
     assert list(any_code.flow) == [1.0, 2.0, 3.0, 4.0]
     only_e = tidy_discharge(table, flag_field="code", flag_values=["E"])["A"]
     assert list(only_e.flagged) == [False, True, False, False]
+
+
+@pytest.mark.parametrize(
+    "arrangement", ["sorted", "gauge blocks reversed", "shuffled", "repeats at the end"]
+)
+def test_row_order_does_not_change_the_records(arrangement):
+    """Sorted exports skip the sort; any other order of rows gives the same daily records."""
+    rng = np.random.default_rng(3)
+    days = pd.date_range("2001-01-01", periods=40, freq="D")
+    rows = []
+    for gauge in ("B7", "A1", "C3"):
+        for i, day in enumerate(days):
+            rows.append((gauge, day, 1.0 + i + rng.random()))
+            if i % 7 == 0:  # a second reading that day, a quarter later
+                rows.append((gauge, day + pd.Timedelta(hours=6), 2.0 + rng.random()))
+    table = pd.DataFrame(rows, columns=["gauge_id", "date", "discharge"])
+    expected = tidy_discharge(table)
+    if arrangement == "gauge blocks reversed":
+        table = pd.concat([table[table.gauge_id == g] for g in ("C3", "A1", "B7")])
+    elif arrangement == "shuffled":
+        table = table.sample(frac=1.0, random_state=5)
+    elif arrangement == "repeats at the end":
+        table = pd.concat([table, table[table.gauge_id == "B7"].iloc[[3, 9]]])
+    got = tidy_discharge(table.reset_index(drop=True))
+    assert set(got) == set(expected)
+    for gauge, record in expected.items():
+        pd.testing.assert_series_equal(got[gauge].flow, record.flow)
+    if arrangement == "repeats at the end":
+        assert got["B7"].counts["repeated_rows"] == 2
