@@ -536,24 +536,29 @@ def _cells(series, kind):
         values = series.to_numpy(dtype="datetime64[ns]")
         missing = np.isnat(values)
         unit, suffix = ("D", "") if kind == "DATE" else ("s", "Z")
-        text = np.char.add(np.datetime_as_string(values.astype(f"datetime64[{unit}]")), suffix)
-        out = text.astype(object)
-        out[missing] = None
-        return out.tolist()
+        text = np.datetime_as_string(values.astype(f"datetime64[{unit}]"))
+        if suffix:
+            text = np.char.add(text, suffix)
+        return _with_none(text.tolist(), missing)
     if kind == "BOOLEAN":
         return series.to_numpy(dtype=bool).astype(np.int64).tolist()
     if kind == "INTEGER":
         return series.to_numpy(dtype=np.int64).tolist()
     if kind == "DOUBLE":
         values = series.to_numpy(dtype=float)
-        out = values.astype(object)
-        out[~np.isfinite(values)] = None
-        return out.tolist()
+        return _with_none(values.tolist(), ~np.isfinite(values))
     out = series.to_numpy(dtype=object)
     missing = pd.isna(out)
     text = np.array([str(v) for v in out], dtype=object) if len(out) else out
     text[missing] = None
     return text.tolist()
+
+
+def _with_none(cells, missing):
+    """``cells`` (a list) with None where ``missing`` is True."""
+    for i in np.flatnonzero(missing).tolist():
+        cells[i] = None
+    return cells
 
 
 def _identifier(name) -> str:

@@ -56,3 +56,37 @@ def test_check_links_reports_progress_and_reported_areas(demo_region):
     assert (
         "differs from the reported 400.0 km²" in layer.set_index("gauge_id").loc["QM02", "quality"]
     )
+
+
+def test_attribute_tables_keep_values_types_and_nulls(tmp_path):
+    """A table written into a GeoPackage reads back with its values; NaN and NaT become NULL."""
+    import sqlite3
+
+    import pandas as pd
+
+    from recharge_atlas.algorithms.files import add_attribute_table, read_attribute_table
+
+    frame = pd.DataFrame(
+        {
+            "gauge_id": ["A1", None, "C3"],
+            "peak_date": pd.to_datetime(["2001-02-03", None, "2001-03-04"]),
+            "recharge_mm": [1.5, np.nan, np.inf],
+            "events": np.array([1, 2, 3], dtype=np.int64),
+            "used": [True, False, True],
+        }
+    )
+    path = tmp_path / "t.gpkg"
+    with sqlite3.connect(path) as db:
+        db.execute(
+            "CREATE TABLE gpkg_contents (table_name TEXT, data_type TEXT, identifier TEXT, description TEXT, last_change TEXT)"
+        )
+        add_attribute_table(db, "t", frame)
+    with sqlite3.connect(path) as db:
+        rows = db.execute("SELECT gauge_id, peak_date, recharge_mm, events, used FROM t").fetchall()
+    assert rows == [
+        ("A1", "2001-02-03", 1.5, 1, 1),
+        (None, None, None, 2, 0),
+        ("C3", "2001-03-04", None, 3, 1),
+    ]
+    back = read_attribute_table(path, "t")
+    assert list(back.columns) == list(frame.columns)
