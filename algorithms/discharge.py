@@ -77,27 +77,47 @@ def gauge_id_text(values) -> np.ndarray:
 
     Returns an object array; missing ids become ``None``. Text ids keep their leading zeros.
     """
+    codes, names = gauge_id_codes(values)
+    return np.array(list(names) + [None], dtype=object)[codes]
 
-    def one(value):
-        if value is None or value is pd.NA or value is pd.NaT:
+
+def _clean_id(value):
+    """One gauge id as clean text (see :func:`gauge_id_text`), None when missing."""
+    if value is None or value is pd.NA or value is pd.NaT:
+        return None
+    if isinstance(value, (float, np.floating)):
+        if np.isnan(value):
             return None
-        if isinstance(value, (float, np.floating)):
-            if np.isnan(value):
-                return None
-            if float(value).is_integer():
-                return str(int(value))
-        if isinstance(value, (int, np.integer)):
+        if float(value).is_integer():
             return str(int(value))
-        text = str(value).strip()
-        return text or None
+    if isinstance(value, (int, np.integer)):
+        return str(int(value))
+    text = str(value).strip()
+    return text or None
 
-    values = np.asarray(values, dtype=object)
-    if values.size == 0:
-        return values
-    # Ids repeat (one per day in a discharge table): clean each distinct value once.
-    codes, uniques = pd.factorize(pd.Series(values, dtype=object), use_na_sentinel=True)
-    cleaned = np.array([one(v) for v in uniques] + [None], dtype=object)
-    return cleaned[codes]
+
+def gauge_id_codes(values):
+    """Gauge ids as numbers: ``(codes, names)`` with ``names[codes[i]]`` the clean text of row
+    ``i`` (see :func:`gauge_id_text`) and −1 where the id is missing.
+
+    Names come in order of first appearance. Each distinct value is cleaned once and the rows
+    are never turned into Python strings one by one, so a column of millions of ids (one per
+    day) costs one integer array.
+    """
+    if isinstance(values, (pd.Series, pd.Index)):
+        column = values
+    else:
+        column = pd.Series(np.asarray(values, dtype=object), dtype=object)
+    if len(column) == 0:
+        return np.empty(0, dtype=np.int64), []
+    raw_codes, uniques = pd.factorize(column, use_na_sentinel=True)
+    names: dict[str, int] = {}
+    remap = np.full(len(uniques) + 1, -1, dtype=np.int64)  # the last entry: missing (−1)
+    for k, value in enumerate(uniques):
+        text = _clean_id(value)
+        if text is not None:
+            remap[k] = names.setdefault(text, len(names))
+    return remap[np.asarray(raw_codes, dtype=np.int64)], list(names)
 
 
 def require_columns(table: pd.DataFrame, columns, what: str, file=None):
@@ -422,7 +442,7 @@ def tidy_discharge(
         "discharge table",
     )
 
-    ids = gauge_id_text(table[gauge_field].to_numpy())
+    id_codes, id_names = gauge_id_codes(table[gauge_field])
     raw = table[value_field]
     try:
         dates = read_dates(table[date_field])
@@ -455,14 +475,19 @@ def tidy_discharge(
     values[bad_sign | code | implausible] = np.nan
     flagged = _flagged(table[flag_field], flag_values) if flag_field else np.zeros(len(table), bool)
 
-    named = ids != None  # noqa: E711 (element-wise comparison)
-    positions = np.flatnonzero(named)
-    gauge_of_row, names = pd.factorize(pd.Series(ids[named], dtype=object), sort=False)
-    gauge_of_row = np.asarray(gauge_of_row, dtype=np.int64)
+    # Rows with a gauge id, and of them those with a date. When every row qualifies (the usual
+    # table) they are taken as slices: views, no copies of millions of values.
+    named = id_codes >= 0
+    positions = _rows_where(named)
+    gauge_of_row, names = id_codes[positions], id_names
     n_gauges = len(names)
-    keep = has_stamp[named]
-    kept = positions[keep]
-    codes = gauge_of_row[keep]
+    keep = has_stamp[positions]
+    if isinstance(positions, slice) and keep.all():
+        kept = positions
+        codes = gauge_of_row
+    else:
+        kept = _row_numbers(positions, named.size)[keep]
+        codes = gauge_of_row[keep]
     values = values[kept]
     positive = _positive_codes(codes, numeric[kept], values, n_gauges)
     values[positive] = np.nan
@@ -470,7 +495,7 @@ def tidy_discharge(
     records = _split_gauges(
         [str(n) for n in names],
         codes,
-        stamp[kept].astype(np.int64),
+        _as_int64(stamp[kept]),
         values,
         {
             "missing": was_missing[kept],
@@ -483,11 +508,15 @@ def tidy_discharge(
         float(min_day_coverage),
     )
     rows = np.bincount(gauge_of_row, minlength=n_gauges)
-    unreadable = dates.unreadable[named]
+    unreadable = dates.unreadable[positions]
     unread = np.bincount(gauge_of_row, weights=unreadable, minlength=n_gauges).astype(int)
-    examples = _first_of_each(gauge_of_row[unreadable], positions[unreadable], table[date_field])
+    examples = _first_of_each(
+        gauge_of_row[unreadable],
+        _row_numbers(positions, named.size)[unreadable],
+        table[date_field],
+    )
     offsets = (
-        np.bincount(gauge_of_row, weights=dates.offset[named], minlength=n_gauges).astype(int)
+        np.bincount(gauge_of_row, weights=dates.offset[positions], minlength=n_gauges).astype(int)
         if dates.with_offset
         else np.zeros(n_gauges, int)
     )
@@ -504,6 +533,25 @@ def tidy_discharge(
             }
         )
     return records
+
+
+def _rows_where(mask):
+    """The rows where ``mask`` holds: all of them as a slice (indexing gives views), or their
+    numbers."""
+    return slice(None) if mask.all() else np.flatnonzero(mask)
+
+
+def _row_numbers(rows, n):
+    """Row numbers of ``rows`` (a slice of all ``n`` rows, or numbers already)."""
+    return np.arange(n) if isinstance(rows, slice) else rows
+
+
+def _as_int64(stamps):
+    """Nanosecond time stamps as int64 (a view when they are datetime64[ns] already)."""
+    stamps = np.asarray(stamps)
+    if stamps.dtype == np.dtype("datetime64[ns]"):
+        return stamps.view(np.int64)
+    return stamps.astype("datetime64[ns]").astype(np.int64)
 
 
 def _first_of_each(groups, positions, column):
@@ -611,6 +659,19 @@ def _by_gauge_and_time(codes, stamps_ns):
     return np.lexsort((stamps_ns, codes))
 
 
+def _median_steps(codes, stamps_ns, n_gauges):
+    """Median step between the successive time stamps of each gauge, in days (NaN with fewer
+    than two); rows are sorted by gauge and time, one per time."""
+    bounds = np.searchsorted(codes, np.arange(n_gauges + 1))
+    steps = np.diff(stamps_ns)  # across a change of gauge too; those are not used
+    out = np.full(n_gauges, np.nan)
+    for g in range(n_gauges):
+        a, b = bounds[g], bounds[g + 1]
+        if b - a >= 2:
+            out[g] = float(np.median(steps[a : b - 1])) / _NS_PER_DAY
+    return out
+
+
 def _split_gauges(names, codes, stamps_ns, values, problems, flagged, min_day_coverage):
     """One GaugeRecord per gauge, from the rows of all gauges at once (no loop over rows).
 
@@ -629,8 +690,7 @@ def _split_gauges(names, codes, stamps_ns, values, problems, flagged, min_day_co
     day = np.floor_divide(stamps_ns, _NS_PER_DAY)
     n_gauges = len(names)
     problem_counts = {
-        k: np.bincount(codes, weights=v.astype(float), minlength=n_gauges).astype(int)
-        for k, v in problems.items()
+        k: np.bincount(codes[v], minlength=n_gauges).astype(int) for k, v in problems.items()
     }
 
     # Typical step between distinct time stamps of each gauge (sub-daily when under a day).
@@ -638,8 +698,8 @@ def _split_gauges(names, codes, stamps_ns, values, problems, flagged, min_day_co
     distinct[1:] = (codes[1:] != codes[:-1]) | (stamps_ns[1:] != stamps_ns[:-1])
     # Rows repeating a time already given: merged (their mean is the day's value), counted,
     # and counted as conflicting where their values differ.
-    runs = np.flatnonzero(distinct)
-    if runs.size < codes.size:
+    if not distinct.all():
+        runs = np.flatnonzero(distinct)
         length = np.diff(np.append(runs, codes.size))
         with np.errstate(invalid="ignore"):
             high = np.fmax.reduceat(values, runs)
@@ -659,42 +719,40 @@ def _split_gauges(names, codes, stamps_ns, values, problems, flagged, min_day_co
         codes, stamps_ns, day = run_code, stamps_ns[runs], day[runs]
     else:
         repeated = conflicting = np.zeros(n_gauges, dtype=int)
-    same = codes[1:] == codes[:-1]
-    steps = (
-        pd.Series((stamps_ns[1:] - stamps_ns[:-1])[same] / _NS_PER_DAY)
-        .groupby(codes[1:][same])
-        .median()
-    )
-    step_of = np.full(n_gauges, np.nan)
-    step_of[steps.index.to_numpy(dtype=np.int64)] = steps.to_numpy()
+    step_of = _median_steps(codes, stamps_ns, n_gauges)
 
     # Daily means of the usable values: one run of rows per gauge and day.
     new_day = np.ones(codes.size, bool)
     new_day[1:] = (codes[1:] != codes[:-1]) | (day[1:] != day[:-1])
-    starts = np.flatnonzero(new_day)
     usable = np.isfinite(values)
-    sums = np.add.reduceat(np.where(usable, values, 0.0), starts) if starts.size else np.empty(0)
-    counts = (
-        np.add.reduceat(usable.astype(np.int64), starts) if starts.size else np.empty(0, np.int64)
-    )
-    day_flagged = (
-        np.maximum.reduceat(flagged.astype(np.int8), starts).astype(bool)
-        if starts.size
-        else np.empty(0, bool)
-    )
-    day_code, day_number = codes[starts], day[starts]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mean = np.where(counts > 0, sums / np.maximum(counts, 1), np.nan)
-    sub_daily = step_of[day_code] < 1.0
-    expected = np.where(
-        sub_daily, np.maximum(np.rint(1.0 / np.where(sub_daily, step_of[day_code], 1.0)), 1.0), 1.0
-    )
-    short = sub_daily & (counts > 0) & (counts < min_day_coverage * expected)
-    mean[short] = np.nan
-    averaged = np.bincount(day_code, weights=(counts > 1).astype(float), minlength=n_gauges).astype(
-        int
-    )
-    incomplete = np.bincount(day_code, weights=short.astype(float), minlength=n_gauges).astype(int)
+    if new_day.all():  # one value a day (the usual table): the rows are the days
+        counts = usable.astype(np.int64)
+        day_flagged, day_code, day_number = flagged, codes, day
+        mean = values.copy()
+    else:
+        starts = np.flatnonzero(new_day)
+        sums = np.add.reduceat(np.where(usable, values, 0.0), starts)
+        counts = np.add.reduceat(usable.astype(np.int64), starts)
+        day_flagged = np.maximum.reduceat(flagged.astype(np.int8), starts).astype(bool)
+        day_code, day_number = codes[starts], day[starts]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = np.where(counts > 0, sums / np.maximum(counts, 1), np.nan)
+        del sums, starts
+    del usable, new_day
+    # Sub-daily gauges: a day needs its share of the values expected in a day.
+    sub_daily = step_of < 1.0  # per gauge (NaN: not sub-daily)
+    if sub_daily.any():
+        expected = np.where(
+            sub_daily, np.maximum(np.rint(1.0 / np.where(sub_daily, step_of, 1.0)), 1.0), 1.0
+        )
+        short = (
+            sub_daily[day_code] & (counts > 0) & (counts < min_day_coverage * expected[day_code])
+        )
+        mean[short] = np.nan
+        incomplete = np.bincount(day_code[short], minlength=n_gauges).astype(int)
+    else:
+        incomplete = np.zeros(n_gauges, dtype=int)
+    averaged = np.bincount(day_code[counts > 1], minlength=n_gauges).astype(int)
 
     bounds = np.searchsorted(day_code, np.arange(n_gauges + 1))
     index_of = {}

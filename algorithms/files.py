@@ -256,13 +256,54 @@ def _parquet_groups(file_path, gauge_field, batches, what):
             values = [str(g) for g in batch]
         if not values:
             continue
-        frame = pq.read_table(file_path, filters=[(gauge_field, "in", values)]).to_pandas()
+        frame = _parquet_rows_of(file_path, gauge_field, values, kind)
         found = found or len(frame) > 0
         yield frame
     if not found:  # no row of any gauge: a few rows say which ids the table holds
         for rows in pq.ParquetFile(file_path).iter_batches(batch_size=10_000):
             yield rows.to_pandas().drop_duplicates(gauge_field).head(_SAMPLE_IDS)
             break
+
+
+def _parquet_rows_of(file_path, gauge_field, values, kind):
+    """Every row of a Parquet file whose gauge is one of ``values``, as a DataFrame.
+
+    Read one row group at a time and filtered at once, so memory holds the rows kept plus one
+    row group; row groups whose statistics rule the gauges out are not read.
+    """
+    import pyarrow as pa
+    import pyarrow.compute as pc
+    import pyarrow.parquet as pq
+
+    source = pq.ParquetFile(file_path)
+    wanted = pa.array(values, type=kind) if not pa.types.is_dictionary(kind) else pa.array(values)
+    column = source.schema_arrow.get_field_index(gauge_field)
+    low, high = min(values), max(values)
+    parts = []
+    for group in range(source.metadata.num_row_groups):
+        if _rules_out(source.metadata.row_group(group).column(column).statistics, low, high):
+            continue
+        table = source.read_row_group(group, use_threads=False)
+        parts.append(table.filter(pc.is_in(table[gauge_field], value_set=wanted)))
+        del table
+    if not parts:
+        return source.schema_arrow.empty_table().to_pandas()
+    frame = pa.concat_tables(parts).to_pandas()
+    del parts
+    pool = pa.default_memory_pool()
+    if hasattr(pool, "release_unused"):
+        pool.release_unused()  # hand the row groups' memory back before the hydrology runs
+    return frame
+
+
+def _rules_out(statistics, low, high):
+    """Whether a row group's statistics show no gauge id between ``low`` and ``high``."""
+    try:
+        if statistics is None or not statistics.has_min_max:
+            return False
+        return bool(statistics.max < low or statistics.min > high)
+    except TypeError:  # statistics of another type than the ids: read the row group
+        return False
 
 
 #: When no row of a table read in gauge groups belongs to a gauge, rows of this many other ids
@@ -566,6 +607,10 @@ def _identifier(name) -> str:
     return '"' + str(name).replace('"', '""') + '"'
 
 
+#: Rows converted and inserted at a time when a table is written into a GeoPackage.
+ROWS_PER_INSERT = 20_000
+
+
 def add_attribute_table(db, name, frame, description=""):
     """Add a non-spatial table to an open GeoPackage (data type ``attributes``, GPKG 1.2+)."""
     kinds = {column: _gpkg_type(frame[column]) for column in frame.columns}
@@ -578,8 +623,11 @@ def add_attribute_table(db, name, frame, description=""):
     if len(frame):
         placeholders = ", ".join("?" for _ in kinds)
         names = ", ".join(_identifier(c) for c in kinds)
-        rows = zip(*[_cells(frame[c], kinds[c]) for c in kinds])
-        db.executemany(f"INSERT INTO {table} ({names}) VALUES ({placeholders})", rows)
+        insert = f"INSERT INTO {table} ({names}) VALUES ({placeholders})"
+        # A slice of rows at a time: the cells exist as Python values only for one slice.
+        for start in range(0, len(frame), ROWS_PER_INSERT):
+            part = frame.iloc[start : start + ROWS_PER_INSERT]
+            db.executemany(insert, zip(*[_cells(part[c], kinds[c]) for c in kinds]))
     now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.000Z")
     db.execute("DELETE FROM gpkg_contents WHERE table_name = ?", (name,))
     db.execute(

@@ -1199,7 +1199,7 @@ def _compute_in_groups(
         )
         results.update(part)
         failed += lost
-        del records
+        del records, chunk  # before the next group is read, not after
     missing = [gid for gid in gauge_ids if gid not in results]
     if missing:
         rest, _ = compute_gauges(

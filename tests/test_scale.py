@@ -209,3 +209,31 @@ def test_small_runs_are_shared_among_the_workers():
     assert group_size(100, 2) == 13
     assert group_size(100_000, 2) == GROUP_SIZE
     assert group_size(100, 1, scheduler="tcp://somewhere:8786") == 4
+
+
+@pytest.mark.parametrize("kind", ["text", "whole numbers", "decimals"])
+def test_parquet_rows_of_a_gauge_group(tmp_path, kind):
+    """Row groups are read one at a time and filtered; those whose statistics rule the gauges
+    out are skipped; ids of every type give exactly the group's rows, in file order."""
+    pytest.importorskip("pyarrow")
+    import numpy as np
+
+    from recharge_atlas.algorithms.files import _parquet_rows_of, discharge_groups
+
+    ids = np.repeat(np.arange(1, 9), 50)
+    column = {"text": ids.astype(str), "whole numbers": ids, "decimals": ids.astype(float)}[kind]
+    table = pd.DataFrame({"gauge_id": column, "discharge": np.arange(ids.size, dtype=float)})
+    path = tmp_path / "q.parquet"
+    table.to_parquet(path, index=False, row_group_size=60)
+    import pyarrow.parquet as pq
+
+    arrow_kind = pq.ParquetFile(path).schema_arrow.field("gauge_id").type
+    wanted = list(column[[0, 150]])  # gauges 1 and 4
+    got = _parquet_rows_of(path, "gauge_id", wanted, arrow_kind)
+    expected = table[table["gauge_id"].isin(wanted)].reset_index(drop=True)
+    pd.testing.assert_frame_equal(got.reset_index(drop=True), expected, check_dtype=False)
+    absent = {"text": "90", "whole numbers": 90, "decimals": 90.0}[kind]
+    none = _parquet_rows_of(path, "gauge_id", [absent], arrow_kind)
+    assert len(none) == 0 and list(none.columns) == ["gauge_id", "discharge"]
+    groups = list(discharge_groups(path, "gauge_id", ["1", "2", "3", "9"], 2))
+    assert [sorted(set(g["gauge_id"].astype(float).astype(int))) for g in groups] == [[1, 2], [3]]
