@@ -135,7 +135,8 @@ def main(argv=None):
             text=True,
         )
         figures = json.loads(measured.stdout.strip().splitlines()[-1])
-        group = per_gauge * min(args.gauges_per_group, args.gauges)
+        # 0 gauges per group: the whole table at once (for comparison).
+        group = per_gauge * min(args.gauges_per_group or args.gauges, args.gauges)
         above = figures["peak"] - figures["baseline"]
         gauge_years = args.gauges * args.years
         print(
