@@ -50,9 +50,11 @@ EVENT_COLUMNS = [
 def default_max_extrapolation(recession_index_days):
     """Longest extrapolation along K we accept: K/2 days (our own rule).
 
-    Over K/2 days an error of 10 % in K changes the extrapolated flow by about 12 %.
+    Over K/2 days an error of 10 % in K changes the extrapolated flow by about 12 %. Several
+    values of K (an array) give one limit each.
     """
-    return 0.5 * float(recession_index_days)
+    k = np.asarray(recession_index_days, dtype=float)
+    return 0.5 * k if k.ndim else 0.5 * float(k)
 
 
 def event_displacements(
@@ -163,30 +165,52 @@ def event_volumes(
     The same computation as :func:`event_displacements`, without building the table: for
     rerunning the events with other values of K.
     """
-    k = float(recession_index_days)
-    if len(rises) == 0 or not np.isfinite(k) or k <= 0:
-        return np.empty(0), np.empty(0, bool)
+    return event_volumes_at(
+        flow, logq, rises, [recession_index_days], lag_days, max_extrapolation_days, clean
+    )[0] or (np.empty(0), np.empty(0, bool))
+
+
+def event_volumes_at(
+    flow, logq, rises: Rises, ks, lag_days, max_extrapolation_days=None, clean=None
+):
+    """:func:`event_volumes` for several values of K in one pass over the events.
+
+    Returns one ``(volume, used)`` pair per K, or None for a K that is not a positive number
+    (or when there are no events). Each pair is what :func:`event_volumes` gives for that K.
+    """
+    ks = [float(k) for k in ks]
+    valid = [i for i, k in enumerate(ks) if np.isfinite(k) and k > 0]
+    out = [None] * len(ks)
+    if len(rises) == 0 or not valid:
+        return out
     parts = _displacements(
         np.asarray(flow, dtype=float),
         logq,
         rises,
-        k,
+        np.array([ks[i] for i in valid])[:, None],
         lag_days,
         max_extrapolation_days,
         clean,
         notes=False,
     )
-    return parts["recharge_m3"], parts["used"]
+    for row, i in enumerate(valid):
+        out[i] = (parts["recharge_m3"][row], parts["used"][row])
+    return out
 
 
 def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days, clean=None, notes=True):
     """The arrays of the displacement construction, one entry per event (``notes``: with the
-    sentence saying why an event was not measured)."""
+    sentence saying why an event was not measured).
+
+    ``k`` is one K, or a column of several (shape ``(m, 1)``, without notes): every array then
+    has one row per K.
+    """
     if max_extrapolation_days is None:
         max_extrapolation_days = default_max_extrapolation(k)
     x = np.asarray(logq, dtype=float)
     n_events = len(rises)
-    tc = float(critical_time_days(k))
+    several = np.ndim(k) > 0
+    tc = critical_time_days(k) if several else float(critical_time_days(k))
     peak = rises.peak
     start = rises.rise_start
     target = peak + tc  # the critical time, as a fractional day position
@@ -206,7 +230,7 @@ def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days, clean=No
     q2 = np.where(has_post, q[safe_post] * 10.0 ** (post_span / k), np.nan)
 
     note = np.full(n_events, "", dtype=object) if notes else None
-    used = np.ones(n_events, bool)
+    used = np.ones(np.shape(target), bool)
 
     def refuse(mask, text):
         fresh = mask & used

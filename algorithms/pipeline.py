@@ -18,7 +18,7 @@ from . import annual as annual_mod
 from .baseflow import BFIMAX_TYPICAL, METHODS, baseflow_index, separate_baseflow
 from .basins import LINK_TOLERANCE_M, geodesic_area_km2, link_by_id, link_spatially, repair_polygons
 from .discharge import MIN_DAY_COVERAGE, GaugeRecord, gauge_id_text, require_columns, tidy_discharge
-from .displacement import EVENT_COLUMNS, CleanDays, event_columns, event_volumes
+from .displacement import EVENT_COLUMNS, CleanDays, event_columns, event_volumes_at
 from .errors import InputError, counted, describe, quoted
 from .nesting import OVERLAP_TOLERANCE, find_nesting, incremental_recharge
 from .recession import (
@@ -652,12 +652,18 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
     )
     events = ColumnTable(event_table, EVENT_COLUMNS_WITH_DEPTH)
 
-    def events_at(k_days):
-        """The events' volumes with another K (for the ends of its interval)."""
-        if not np.isfinite(k_days) or not len(events):
-            return None
-        volume, used = event_volumes(usable, x, rises, k_days, lag, clean=clean)
-        return {"peak_date": event_table["peak_date"], "recharge_m3": volume, "used": used}
+    # The events again with K at both ends of its interval (one pass for the two).
+    ends = (
+        event_volumes_at(usable, x, rises, [recession.low, recession.high], lag, clean=clean)
+        if len(events)
+        else (None, None)
+    )
+    events_low, events_high = (
+        None
+        if end is None
+        else {"peak_date": event_table["peak_date"], "recharge_m3": end[0], "used": end[1]}
+        for end in ends
+    )
 
     if np.isfinite(k):
         baseflow = separate_baseflow(q, settings.baseflow_method, k, settings.bfi_max)
@@ -677,8 +683,8 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
         settings.water_year_start,
         baseflow=baseflow,
         recession_index_days=k if np.isfinite(k) else None,
-        events_low=events_at(recession.low),
-        events_high=events_at(recession.high),
+        events_low=events_low,
+        events_high=events_high,
     )
     periods = annual_mod.period_columns(
         days, q, events, area, settings.period, settings.water_year_start
@@ -1005,8 +1011,6 @@ def _gauge_group(payload):
                     gid, area, quality=[f"could not be computed (internal error: {failure})"]
                 )
             result.quality[:0] = record_notes(record)
-        if not keep_series:
-            result.flow = result.baseflow = None
         out.append((gid, result, failure))
     return _pack_group(out) if packed else out
 
@@ -1027,7 +1031,7 @@ def _pack_group(out):
         name: pack_tables([result.tables.get(name) for result in results])
         for name in {name for result in results for name in result.tables}
     }
-    has_tables = [sorted(result.tables) for result in results]
+    has_tables = [list(result.tables) for result in results]
     segments = pack_tables(
         [None if r.recession is None else r.recession.segment_columns for r in results]
     )

@@ -98,3 +98,26 @@ def test_post_event_recession_missing_for_long_is_refused():
     last = events.iloc[-1]
     assert not last["used"]
     assert "extrapolation" in last["note"] or "clean day" in last["note"]
+
+
+def test_several_k_in_one_pass_give_what_each_gives_alone():
+    """The events rerun at both ends of the K interval in one pass: the same numbers as one K at
+    a time (element by element the same arithmetic), and None for a K that is not a number."""
+    from recharge_atlas.algorithms.displacement import event_volumes, event_volumes_at
+
+    flow = _hydrograph(45.0, {60: 30.0, 200: 12.0, 203: 8.0, 420: 25.0, 700: 5.0})
+    flow.iloc[[300, 301, 302]] = np.nan
+    x = log_flow(flow)
+    lag = float(runoff_end_lag_days(AREA_KM2))
+    rises = find_rises(x, lag, 0.01)
+    ks = [30.0, np.nan, 45.0, 120.0, -1.0]
+    together = event_volumes_at(flow.to_numpy(), x, rises, ks, lag)
+    for k, pair in zip(ks, together):
+        if not (np.isfinite(k) and k > 0):
+            assert pair is None
+            continue
+        volume, used = event_volumes(flow.to_numpy(), x, rises, k, lag)
+        np.testing.assert_array_equal(pair[0], volume)
+        np.testing.assert_array_equal(pair[1], used)
+        table = _events(flow, k)
+        np.testing.assert_array_equal(pair[0], table["recharge_m3"].to_numpy())
