@@ -643,19 +643,15 @@ _NS_PER_DAY = 86_400 * 10**9
 def _by_gauge_and_time(codes, stamps_ns):
     """The stable order that sorts rows by gauge, then time; None when they already are.
 
-    Exports usually come sorted (gauge codes number the gauges as they first appear), so the
-    check saves a sort of every row; a table of gauges in any order, each in time order, needs
-    only a sort by gauge.
+    Exports usually come sorted, each gauge's rows in one block in time order (gauge codes
+    number the gauges as they first appear, so the blocks are then in code order too): the
+    check saves a sort of every row.
     """
     if codes.size < 2:
         return None
     same = codes[1:] == codes[:-1]
-    # Each gauge's rows in one block (as many changes of gauge as gauges, less one), in time.
-    blocks = codes.size - 1 - int(same.sum()) == np.count_nonzero(np.bincount(codes)) - 1
-    if blocks and ((stamps_ns[1:] >= stamps_ns[:-1]) | ~same).all():
-        if (codes[1:] >= codes[:-1]).all():
-            return None
-        return np.argsort(codes, kind="stable")
+    if (codes[1:] >= codes[:-1]).all() and ((stamps_ns[1:] >= stamps_ns[:-1]) | ~same).all():
+        return None
     return np.lexsort((stamps_ns, codes))
 
 
