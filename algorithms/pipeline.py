@@ -601,10 +601,10 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
     else:
         lag = float(runoff_end_lag_days(area if has_area else 100.0))
     q = flow.to_numpy(dtype=float)
-    first = flow.index[:1]
-    if getattr(first, "tz", None) is not None:
+    first = flow.index[0]
+    if first.tzinfo is not None:
         first = first.tz_localize(None)  # the local day
-    day0 = first.to_numpy().astype("datetime64[D]")[0]
+    day0 = np.datetime64(first.to_datetime64(), "D")
     days = day0 + np.arange(q.size).astype("timedelta64[D]")
     # Flagged days stay in the flow (and the baseflow) but the method does not use them.
     flagged = record.flagged.to_numpy(dtype=bool)
@@ -992,8 +992,7 @@ def _gauge_group(payload):
     """
     from .parallel import shared
 
-    items, settings, keep_series, packed = payload
-    settings = settings.resolved()
+    items, settings, keep_series, packed = payload  # settings resolved by compute_gauges
     inherited = shared()
     out = []
     for gid, record, area, given in items:
@@ -1098,6 +1097,7 @@ def compute_gauges(
     """
     from .parallel import group_size, groups, map_groups
 
+    settings = settings.resolved()  # once here, not once per gauge group
     workers = settings.workers if workers is None else workers
     scheduler = settings.dask_scheduler if scheduler is None else scheduler
     total = len(gauge_ids)
