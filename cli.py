@@ -446,6 +446,7 @@ def run_files(
 
     class_breaks([1.0, 2.0], scheme, classes)  # a bad scheme or class count fails before the run
     settings = settings.resolved()  # bad settings fail before any file is read
+    spill = None
     try:
         gauge_layer = files.read_layer(gauges, "gauges")
         basin_layer = files.read_layer(basins, what)
@@ -455,42 +456,56 @@ def run_files(
             _require_discharge_fields(table, settings, sources["discharge table"])
         # Daily series are kept only when an output needs them: a large run then holds its tables.
         keep_series = bool(daily or report_path)
+        # A table read in gauge groups: each group's event, period and segment rows wait on
+        # disk, not in memory (the report needs every gauge's tables, so it keeps them).
+        spill = None if hasattr(table, "columns") or keep_series else files.TableSpill()
+        sink = spill.add if spill is not None else None
         if subbasins is not None:
             result = run_atlas_subbasins(
-                gauge_layer, basin_layer, table, settings, reporter, keep_series
+                gauge_layer, basin_layer, table, settings, reporter, keep_series, sink
             )
         else:
-            result = run_atlas(gauge_layer, basin_layer, table, settings, reporter, keep_series)
+            result = run_atlas(
+                gauge_layer, basin_layer, table, settings, reporter, keep_series, sink
+            )
         require_records(result)
-    except InputError as exc:
-        raise _located(exc, sources, settings) from None
+    except BaseException as exc:
+        if spill is not None:
+            spill.close()
+        if isinstance(exc, InputError):
+            raise _located(exc, sources, settings) from None
+        raise
     from recharge_atlas.algorithms.maps import recharge_map, year_maps
 
     # Every output is written to a temporary file beside it and all move into place together
     # at the end: a failure or an interrupt leaves none half-written and touches none.
-    with files.staged_outputs() as stage:
-        files.write_geopackage(result, stage.path(out), daily=daily)
-        if map_path:
-            mapped = result.subbasins if result.subbasins is not None else result.catchments
-            figure = recharge_map(mapped, gauge_layer, scheme=scheme, classes=classes)
-            files.save_figure(figure, stage.path(map_path, "map"))
-        if year_maps_path:
-            figure = year_maps(
-                result.catchments, result.annual, gauge_layer, scheme=scheme, classes=classes
-            )
-            files.save_figure(figure, stage.path(year_maps_path, "per-year map"), dpi=100)
-        if report_path:
-            from recharge_atlas.algorithms.report import write_report
+    try:
+        with files.staged_outputs() as stage:
+            files.write_geopackage(result, stage.path(out), daily=daily, spill=spill)
+            if map_path:
+                mapped = result.subbasins if result.subbasins is not None else result.catchments
+                figure = recharge_map(mapped, gauge_layer, scheme=scheme, classes=classes)
+                files.save_figure(figure, stage.path(map_path, "map"))
+            if year_maps_path:
+                figure = year_maps(
+                    result.catchments, result.annual, gauge_layer, scheme=scheme, classes=classes
+                )
+                files.save_figure(figure, stage.path(year_maps_path, "per-year map"), dpi=100)
+            if report_path:
+                from recharge_atlas.algorithms.report import write_report
 
-            write_report(
-                result,
-                stage.path(report_path, "report"),
-                gauges=gauge_layer,
-                settings=result.settings,
-                scheme=scheme,
-                classes=classes,
-                reporter=reporter,
-            )
+                write_report(
+                    result,
+                    stage.path(report_path, "report"),
+                    gauges=gauge_layer,
+                    settings=result.settings,
+                    scheme=scheme,
+                    classes=classes,
+                    reporter=reporter,
+                )
+    finally:
+        if spill is not None:
+            spill.close()
     return result
 
 

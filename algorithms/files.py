@@ -515,12 +515,13 @@ RESULT_TABLES = (
 )
 
 
-def write_geopackage(result, path, daily=False):
+def write_geopackage(result, path, daily=False, spill=None):
     """Write a run's results as one GeoPackage.
 
     Layers ``catchments``, ``incremental_areas`` (and ``subbasins`` with a subbasin map); tables ``annual``,
     ``events``, ``periods``, ``segments``, ``master_recession`` and ``links``; with
-    ``daily=True`` also ``daily`` (flow and baseflow of every day).
+    ``daily=True`` also ``daily`` (flow and baseflow of every day). Tables a large run kept on
+    disk as it went (``spill``, a :class:`TableSpill`) are copied from there.
     """
     with atomic_path(path) as temp:
         result.catchments.to_file(temp, layer="catchments", driver="GPKG")
@@ -531,9 +532,14 @@ def write_geopackage(result, path, daily=False):
             incremental.to_file(temp, layer="incremental_areas", driver="GPKG")
         db = sqlite3.connect(temp)
         try:
+            if spill is not None:
+                db.execute("ATTACH DATABASE ? AS spill", (str(spill.path),))
             with db:
                 for name, attribute, description in RESULT_TABLES:
-                    add_attribute_table(db, name, getattr(result, attribute), description)
+                    if spill is not None and spill.holds(name):
+                        spill.copy_into(db, name, description)
+                    else:
+                        add_attribute_table(db, name, getattr(result, attribute), description)
                 if daily:
                     add_attribute_table(
                         db, "daily", result.daily(), "Daily flow and baseflow by gauge"
@@ -614,20 +620,38 @@ ROWS_PER_INSERT = 20_000
 def add_attribute_table(db, name, frame, description=""):
     """Add a non-spatial table to an open GeoPackage (data type ``attributes``, GPKG 1.2+)."""
     kinds = {column: _gpkg_type(frame[column]) for column in frame.columns}
-    table = _identifier(name)
+    _create_table(db, name, kinds)
+    _insert_rows(db, name, frame, kinds)
+    _register_attributes(db, name, description, len(frame))
+
+
+def _create_table(db, name, kinds):
+    """(Re)create table ``name`` with a GeoPackage feature id and columns of ``kinds``."""
+    # Named in ``main``: an attached database (see TableSpill) may hold a table of that name.
+    table = "main." + _identifier(name)
     columns_sql = ", ".join(f"{_identifier(c)} {k}" for c, k in kinds.items())
     db.execute(f"DROP TABLE IF EXISTS {table}")
     db.execute(
         f"CREATE TABLE {table} (fid INTEGER PRIMARY KEY AUTOINCREMENT NOT NULL{', ' if kinds else ''}{columns_sql})"
     )
-    if len(frame):
-        placeholders = ", ".join("?" for _ in kinds)
-        names = ", ".join(_identifier(c) for c in kinds)
-        insert = f"INSERT INTO {table} ({names}) VALUES ({placeholders})"
-        # A slice of rows at a time: the cells exist as Python values only for one slice.
-        for start in range(0, len(frame), ROWS_PER_INSERT):
-            part = frame.iloc[start : start + ROWS_PER_INSERT]
-            db.executemany(insert, zip(*[_cells(part[c], kinds[c]) for c in kinds]))
+
+
+def _insert_rows(db, name, frame, kinds):
+    """Append ``frame``'s rows to table ``name`` (its columns converted as ``kinds`` say)."""
+    if not len(frame):
+        return
+    table = "main." + _identifier(name)
+    placeholders = ", ".join("?" for _ in kinds)
+    names = ", ".join(_identifier(c) for c in kinds)
+    insert = f"INSERT INTO {table} ({names}) VALUES ({placeholders})"
+    # A slice of rows at a time: the cells exist as Python values only for one slice.
+    for start in range(0, len(frame), ROWS_PER_INSERT):
+        part = frame.iloc[start : start + ROWS_PER_INSERT]
+        db.executemany(insert, zip(*[_cells(part[c], kinds[c]) for c in kinds]))
+
+
+def _register_attributes(db, name, description, rows):
+    """List table ``name`` among the GeoPackage's contents, as attributes of ``rows`` rows."""
     now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.000Z")
     db.execute("DELETE FROM gpkg_contents WHERE table_name = ?", (name,))
     db.execute(
@@ -639,8 +663,65 @@ def add_attribute_table(db, name, frame, description=""):
         db.execute("DELETE FROM gpkg_ogr_contents WHERE table_name = ?", (name,))
         db.execute(
             "INSERT INTO gpkg_ogr_contents (table_name, feature_count) VALUES (?, ?)",
-            (name, len(frame)),
+            (name, int(rows)),
         )
+
+
+class TableSpill:
+    """Result tables kept on disk while a large run goes on, then copied into the GeoPackage.
+
+    A run that reads its discharge table a gauge group at a time hands each group's rows
+    here (:meth:`add`) as soon as the group is done, so the result tables never pile up in
+    memory. They wait in a temporary SQLite file, already converted as the GeoPackage takes
+    them; :func:`write_geopackage` copies them across inside SQLite (:meth:`copy_into`), in
+    the order they came. :meth:`close` removes the file (also after a failure).
+    """
+
+    def __init__(self):
+        self.folder = Path(tempfile.mkdtemp(prefix="recharge-atlas-tables-"))
+        self.path = self.folder / "tables.sqlite"
+        self.db = sqlite3.connect(self.path)
+        self.kinds = {}
+        self.rows = {}
+
+    def add(self, name, frame):
+        """Append ``frame``'s rows to table ``name`` (created by the first rows it gets)."""
+        if not len(frame):
+            return
+        try:
+            if name not in self.kinds:
+                self.kinds[name] = {column: _gpkg_type(frame[column]) for column in frame.columns}
+                self.rows[name] = 0
+                _create_table(self.db, name, self.kinds[name])
+            _insert_rows(self.db, name, frame, self.kinds[name])
+            self.db.commit()
+        except sqlite3.Error as exc:
+            raise InputError(
+                f"the result tables could not be kept on disk while the run goes on: {exc}",
+                file=str(self.path),
+            ) from None
+        self.rows[name] += len(frame)
+
+    def holds(self, name) -> bool:
+        return name in self.kinds
+
+    def copy_into(self, db, name, description):
+        """Table ``name`` into the open GeoPackage ``db`` (which has this file attached as
+        ``spill``), with the same columns and rows in the same order."""
+        kinds = self.kinds[name]
+        _create_table(db, name, kinds)
+        columns = ", ".join(_identifier(c) for c in kinds)
+        table = _identifier(name)
+        db.execute(
+            f"INSERT INTO main.{table} ({columns}) SELECT {columns} FROM spill.{table} ORDER BY fid"
+        )
+        _register_attributes(db, name, description, self.rows[name])
+
+    def close(self):
+        self.db.close()
+        for leftover in self.folder.glob("*"):
+            leftover.unlink()
+        self.folder.rmdir()
 
 
 def read_attribute_table(path, name):

@@ -366,10 +366,25 @@ class GaugeResult:
     seasonal_recharge_mm_per_year: float = np.nan
     complete_years: int = 0
     quality: list = field(default_factory=list)
+    #: :meth:`event_figures`, kept when the events table itself went to a table sink.
+    kept_event_figures: dict | None = field(default=None, repr=False)
 
     @property
     def quality_text(self) -> str:
         return "; ".join(self.quality) if self.quality else "ok"
+
+    def event_figures(self) -> dict:
+        """Events measured and skipped, and the mean measured event in m³ and mm."""
+        if self.kept_event_figures is not None and "events" not in self.tables:
+            return self.kept_event_figures
+        events = self.table("events")
+        used = np.asarray(events["used"], dtype=bool)
+        return {
+            "measured": int(used.sum()),
+            "skipped": int(used.size - used.sum()),
+            "mean_m3": float(np.mean(events["recharge_m3"][used])) if used.any() else np.nan,
+            "mean_mm": float(np.mean(events["recharge_mm"][used])) if used.any() else np.nan,
+        }
 
     def table(self, name) -> ColumnTable:
         """One of the gauge's tables as columns (empty, with its columns, when not computed)."""
@@ -444,6 +459,8 @@ class AtlasResult:
     links: pd.DataFrame = field(default_factory=pd.DataFrame)
     nesting: object = None
     settings: object = None
+    #: Tables whose rows went to the run's table sink as it went (they are empty here).
+    sunk_tables: tuple = ()
 
     def gauge_table(self) -> pd.DataFrame:
         """One row per gauge with its results: the catchment fields, without the geometry.
@@ -454,15 +471,10 @@ class AtlasResult:
         for gid, result in self.gauges.items():
             row = {"gauge_id": gid}
             row.update(_catchment_values(result, result.area_km2))
-            events = result.table("events")
-            used = np.asarray(events["used"], dtype=bool)
-            row["events_skipped"] = int(used.size - used.sum())
-            row["mean_event_recharge_m3"] = (
-                float(np.mean(events["recharge_m3"][used])) if used.any() else np.nan
-            )
-            row["mean_event_recharge_mm"] = (
-                float(np.mean(events["recharge_mm"][used])) if used.any() else np.nan
-            )
+            figures = result.event_figures()
+            row["events_skipped"] = figures["skipped"]
+            row["mean_event_recharge_m3"] = figures["mean_m3"]
+            row["mean_event_recharge_mm"] = figures["mean_mm"]
             row["quality"] = result.quality_text
             rows.append(row)
         fields = [
@@ -561,7 +573,12 @@ class AtlasResult:
         return (
             f"AtlasResult({s.get('gauges', 0)} gauges: {s.get('computed', 0)} computed, "
             f"{s.get('flagged', 0)} flagged, {s.get('failed', 0)} failed; "
-            f"{len(self.annual)} annual rows, {len(self.events)} events)"
+            f"{len(self.annual)} annual rows, "
+            + (
+                "events written as the run went)"
+                if "events" in self.sunk_tables
+                else f"{len(self.events)} events)"
+            )
         )
 
 
@@ -1173,13 +1190,14 @@ class _Offset(Reporter):
 
 
 def _compute_in_groups(
-    discharge, gauge_ids, area_of, settings, reporter, given_k, unlinked, keep_series
+    discharge, gauge_ids, area_of, settings, reporter, given_k, unlinked, keep_series, sink=None
 ):
     """:func:`compute_gauges` over the whole discharge table, or over it group by group.
 
     ``discharge`` is one table, or an iterable of tables each holding every row of its gauges
     (see :func:`files.discharge_groups`): then only one group's daily records are in memory at
-    a time.
+    a time. With a ``sink`` (see :func:`run_atlas`) each group's :data:`SINK_TABLES` go there
+    as soon as the group is done.
     """
     chunks = [discharge] if isinstance(discharge, pd.DataFrame) else discharge
     wanted = set(gauge_ids)
@@ -1203,6 +1221,8 @@ def _compute_in_groups(
         )
         results.update(part)
         failed += lost
+        if sink is not None:
+            _to_sink(part, sink)
         del records, chunk  # before the next group is read, not after
     missing = [gid for gid in gauge_ids if gid not in results]
     if missing:
@@ -1221,6 +1241,22 @@ def _compute_in_groups(
         raise InputError("the discharge table has no rows")
     tally.report(reporter)
     return {gid: results[gid] for gid in gauge_ids}, failed, tally
+
+
+#: Tables a run can hand to a table sink group by group (``annual`` stays: the nesting and
+#: the per-year maps need it whole, and it is small).
+SINK_TABLES = ("events", "periods", "segments", "master_recession")
+
+
+def _to_sink(results, sink):
+    """Hand these gauges' :data:`SINK_TABLES` to ``sink(name, frame)`` (one frame per table,
+    the gauges in order) and let the gauges' own copies go."""
+    for name in SINK_TABLES:
+        sink(name, _stack(results, name, share=False))
+    for result in results.values():
+        result.kept_event_figures = result.event_figures()
+        for name in SINK_TABLES:
+            result.tables.pop(name, None)
 
 
 class _Tally:
@@ -1343,6 +1379,7 @@ def run_atlas(
     settings: Settings | None = None,
     reporter: Reporter | None = None,
     keep_series: bool = True,
+    table_sink=None,
 ) -> AtlasResult:
     """Estimate recharge for every gauge and attach it to the catchments.
 
@@ -1360,6 +1397,12 @@ def run_atlas(
     keep_series : bool
         Keep every gauge's daily flow and baseflow (for :meth:`AtlasResult.daily` and the
         report). A large run without them holds only its tables.
+    table_sink : callable, optional
+        ``table_sink(name, frame)`` receives the rows of :data:`SINK_TABLES` (events, periods,
+        segments, master recession) of each gauge group as soon as it is done, so a large run
+        read in gauge groups does not hold them all (the command line keeps them on disk).
+        Those tables are then empty in the result (listed in ``sunk_tables``), and the gauges'
+        results no longer hold them.
 
     Returns
     -------
@@ -1383,7 +1426,15 @@ def run_atlas(
         return f"no single catchment linked ({links.notes.get(gid, 'not linked')}): depths not computed"
 
     results, failed, tally = _compute_in_groups(
-        discharge, gauge_ids, area_of, settings, reporter, given_k, unlinked, keep_series
+        discharge,
+        gauge_ids,
+        area_of,
+        settings,
+        reporter,
+        given_k,
+        unlinked,
+        keep_series,
+        table_sink,
     )
     for gid, row in links.catchment_of.items():
         if gid in results and not np.isfinite(area_of.get(gid, np.nan)):
@@ -1436,6 +1487,7 @@ def run_atlas(
         links=links.table(gauge_ids, names),
         nesting=nesting,
         settings=settings,
+        sunk_tables=SINK_TABLES if table_sink is not None else (),
     )
 
 
@@ -1446,6 +1498,7 @@ def run_gauges(
     reporter: Reporter | None = None,
     area_field=None,
     keep_series: bool = True,
+    table_sink=None,
 ) -> AtlasResult:
     """The hydrology of every gauge without catchments: K, events, baseflow, annual terms.
 
@@ -1453,6 +1506,7 @@ def run_gauges(
     gauges layer with the drainage area in km² (``area_field``); without it depths stay empty
     and N is that of a 100 km² basin unless ``settings.runoff_end_lag_days`` is set.
     The result's ``catchments`` is None; :meth:`AtlasResult.gauge_table` gives one row per gauge.
+    ``table_sink`` is as in :func:`run_atlas`.
     """
     settings = (settings or Settings()).resolved()
     reporter = reporter or Reporter()
@@ -1469,7 +1523,7 @@ def run_gauges(
             g: float(v) for g, v in zip(ids, values) if g is not None and np.isfinite(v) and v > 0
         }
     results, failed, tally = _compute_in_groups(
-        discharge, gauge_ids, area_of, settings, reporter, given_k, None, keep_series
+        discharge, gauge_ids, area_of, settings, reporter, given_k, None, keep_series, table_sink
     )
     for gid, result in results.items():
         if result.quality:
@@ -1486,6 +1540,7 @@ def run_gauges(
         segments=_stack(results, "segments"),
         master_recession=_stack(results, "master_recession"),
         settings=settings,
+        sunk_tables=SINK_TABLES if table_sink is not None else (),
     )
 
 
@@ -1536,6 +1591,7 @@ def run_atlas_subbasins(
     settings: Settings | None = None,
     reporter: Reporter | None = None,
     keep_series: bool = True,
+    table_sink=None,
 ) -> AtlasResult:
     """Estimate recharge with basins described as a subbasin map.
 
@@ -1547,7 +1603,8 @@ def run_atlas_subbasins(
         Non-overlapping subbasins with an id field and a downstream-id field
         (``settings.subbasin_id_field``, ``settings.downstream_field``).
     discharge : pandas.DataFrame
-    settings, reporter : optional
+    settings, reporter, keep_series, table_sink : optional
+        As in :func:`run_atlas`.
 
     Returns
     -------
@@ -1585,7 +1642,7 @@ def run_atlas_subbasins(
     basin_settings = replace(
         settings, link="id", catchment_gauge_field="gauge_id", catchment_field_given=True
     )
-    result = run_atlas(gauges, basins, discharge, basin_settings, reporter, keep_series)
+    result = run_atlas(gauges, basins, discharge, basin_settings, reporter, keep_series, table_sink)
     # Say in the links table why a gauge found no subbasin.
     for gid, note in notes.items():
         result.links.loc[result.links["gauge_id"] == gid, "note"] = note
@@ -1645,7 +1702,7 @@ def _catchment_values(result: GaugeResult | None, area):
         "baseflow_mm_per_year": result.baseflow_mm_per_year if result else np.nan,
         "seasonal_recharge_mm_per_year": result.seasonal_recharge_mm_per_year if result else np.nan,
         "complete_years": result.complete_years if result else 0,
-        "events": int(np.sum(result.table("events")["used"])) if result is not None else 0,
+        "events": result.event_figures()["measured"] if result is not None else 0,
     }
 
 
@@ -1712,7 +1769,10 @@ def _catchment_layer(catchments, basins, results, settings, incremental):
     return out[kept + CATCHMENT_FIELDS + [geometry_name]]
 
 
-def _stack(results, name):
-    """One table of every gauge's rows of table ``name``, led by ``gauge_id``."""
+def _stack(results, name, share=True):
+    """One table of every gauge's rows of table ``name``, led by ``gauge_id`` (with ``share``
+    the gauges' tables become views of it, see :func:`tables.stack`)."""
     order = GAUGE_TABLES[name]
-    return stack([r.table(name) for r in results.values()], list(results), "gauge_id", order)
+    return stack(
+        [r.table(name) for r in results.values()], list(results), "gauge_id", order, share=share
+    )

@@ -94,15 +94,33 @@ class ColumnTable:
         return cls({c: np.empty(0, dtype=column_dtype(c)) for c in order}, order)
 
 
-def stack(tables, keys, key_name, order) -> pd.DataFrame:
-    """One DataFrame of many tables, each row led by its table's key (e.g. the gauge id)."""
+def stack(tables, keys, key_name, order, share=False) -> pd.DataFrame:
+    """One DataFrame of many tables, each row led by its table's key (e.g. the gauge id).
+
+    The DataFrame holds the joined columns themselves (no second copy). With ``share`` each
+    table's columns of numbers, dates and flags then become views of the joined ones, so the
+    tables' own arrays are let go and a run holds its results once, not twice. (Columns of
+    text are left as they are: pandas keeps its own copy of those.)
+    """
     parts = [(key, t) for key, t in zip(keys, tables) if t is not None and len(t)]
     if not parts:
         return empty_table([key_name, *order])
     data = {key_name: np.concatenate([np.full(len(t), key, dtype=object) for key, t in parts])}
     for c in order:
         data[c] = np.concatenate([np.asarray(t.columns[c]) for _, t in parts])
-    return pd.DataFrame(data)
+    frame = pd.DataFrame(data, copy=False)
+    if share:
+        ends = np.cumsum([len(t) for _, t in parts])
+        starts = np.concatenate(([0], ends[:-1]))
+        for c in order:
+            joined = data[c]
+            if joined.dtype == object:
+                continue
+            for (_, t), a, b in zip(parts, starts, ends):
+                t.columns[c] = joined[a:b]
+        for _, t in parts:
+            t._frame = None
+    return frame
 
 
 def pack_tables(tables):
