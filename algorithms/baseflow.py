@@ -2,8 +2,9 @@
 
 All three split daily flow into baseflow and quickflow. The linear recursions run through
 ``scipy.signal.lfilter``; the physical limit (0 ≤ baseflow ≤ flow) is applied inside the
-recursion, restarting the filter only where the limit binds. Records are filtered block by block
-between gaps; missing days stay missing.
+recursion, restarting the filter only where the limit binds. Each gap-free block of a record
+is filtered on its own (missing days stay missing); blocks of like length are filtered together
+as the rows of one matrix, with the same arithmetic as alone, so gaps cost no Python loop.
 
 References
 ----------
@@ -52,19 +53,69 @@ def baseflow_index(flow, baseflow):
     return float(b[ok].sum() / total) if total > 0 else np.nan
 
 
-def _gap_blocks(q):
-    valid = np.isfinite(q)
+class _BlockRows:
+    """Gap-free blocks of like length as the rows of one matrix (see :func:`_block_rows`);
+    ``inside`` is None when every row is whole (a class of one block)."""
+
+    def __init__(self, index, inside, span=None):
+        self.index, self.inside, self.span = index, inside, span
+
+    def take(self, values):
+        """The blocks' values as rows (padding repeats a real value that nothing uses)."""
+        if self.span is not None:  # one block: a view, no copy
+            start, stop, step = self.span
+            return values[start:stop:step][None, :]
+        return values[self.index]
+
+    def put(self, out, rows):
+        """Write the rows' days back into the record ``out``."""
+        if self.span is not None:
+            start, stop, step = self.span
+            out[start:stop:step] = rows[0]
+        else:
+            out[self.index[self.inside]] = rows[self.inside]
+
+
+def _one_block(start, end, reverse):
+    span = (end - 1, start - 1 if start else None, -1) if reverse else (start, end, 1)
+    return _BlockRows(None, None, span)
+
+
+def _block_rows(valid, reverse=False):
+    """The gap-free blocks of a record as rows of matrices, blocks of like length together.
+
+    Yields one :class:`_BlockRows` per length class: row ``r`` holds block ``r``'s days in
+    order (from its last day back when ``reverse``), and ``inside`` marks the days the block
+    has. Blocks whose lengths share a power of two go together, so padding at most doubles the
+    work, and a record with hundreds of gaps takes a dozen array passes instead of hundreds.
+    """
     padded = np.concatenate([[False], valid, [False]])
     change = np.flatnonzero(np.diff(padded.astype(np.int8)))
-    return zip(change[::2], change[1::2])
+    starts, ends = change[::2], change[1::2]
+    if starts.size == 1:  # a record without gaps
+        yield _one_block(int(starts[0]), int(ends[0]), reverse)
+        return
+    lengths = ends - starts
+    _, classes = np.frexp(lengths)
+    for c in np.unique(classes):
+        rows = np.flatnonzero(classes == c)
+        n = lengths[rows]
+        if rows.size == 1:
+            yield _one_block(int(starts[rows[0]]), int(ends[rows[0]]), reverse)
+            continue
+        day = np.arange(int(n.max()))
+        inside = day[None, :] < n[:, None]
+        first = (ends[rows] - 1 if reverse else starts[rows])[:, None]
+        index = first - day[None, :] if reverse else first + day[None, :]
+        yield _BlockRows(np.where(inside, index, first), inside)
 
 
-def _by_block(q, one_block):
-    q = np.asarray(q, dtype=float)
-    out = np.full(q.shape, np.nan)
-    for start, end in _gap_blocks(q):
-        out[start:end] = one_block(q[start:end])
-    return out
+def _starting_rows(rows, inside):
+    """The lowest flow of the first :data:`START_DAYS` days of each row's block."""
+    head = rows[:, :START_DAYS]
+    if inside is None:
+        return head.min(axis=1)
+    return np.where(inside[:, :START_DAYS], head, np.inf).min(axis=1)
 
 
 def _bounded_recursion(a, u, y_first, bound, upper=True):
@@ -78,26 +129,32 @@ def _bounded_recursion(a, u, y_first, bound, upper=True):
     where W is the unbounded recursion from ``y_first`` (``scipy.signal.lfilter``): the bound
     either never bit, or last bit on day s and the recursion ran free from there. The running
     minimum is taken in chunks short enough that a^−s stays finite.
+
+    ``u`` and ``bound`` may be 2-D: each row is then a recursion of its own (``y_first`` one
+    value per row), worked out with exactly the arithmetic of a row given alone.
     """
-    n = u.size
-    y = np.empty(n)
-    y[0] = y_first
-    if n == 1:
-        return y
-    pick = np.minimum if upper else np.maximum
-    chunk = min(n - 1, max(1, int(np.floor(600.0 / max(-np.log(a), 1e-12)))))
-    # a^s and a^−s for s = 0 … chunk − 1, by running products (exact to ~chunk × 1e-16).
-    grow = np.cumprod(np.concatenate(([1.0], np.full(chunk - 1, 1.0 / a))))
-    shrink = np.cumprod(np.concatenate(([1.0], np.full(chunk - 1, a))))
-    i = 1
-    while i < n:
-        j = min(n, i + chunk)
-        m = j - i
-        free, _ = lfilter([1.0], [1.0, -a], u[i:j], zi=[a * y[i - 1]])
-        running = pick.accumulate((bound[i:j] - free) * grow[:m])
-        y[i:j] = free + pick(0.0, running * shrink[:m])
-        i = j
-    return y
+    u = np.asarray(u, dtype=float)
+    bound = np.asarray(bound, dtype=float)
+    rows = u if u.ndim == 2 else u[None, :]
+    limits = bound if bound.ndim == 2 else bound[None, :]
+    n = rows.shape[1]
+    y = np.empty(rows.shape)
+    y[:, 0] = y_first
+    if n > 1:
+        pick = np.minimum if upper else np.maximum
+        chunk = min(n - 1, max(1, int(np.floor(600.0 / max(-np.log(a), 1e-12)))))
+        # a^s and a^−s for s = 0 … chunk − 1, by running products (exact to ~chunk × 1e-16).
+        grow = np.cumprod(np.concatenate(([1.0], np.full(chunk - 1, 1.0 / a))))
+        shrink = np.cumprod(np.concatenate(([1.0], np.full(chunk - 1, a))))
+        i = 1
+        while i < n:
+            j = min(n, i + chunk)
+            m = j - i
+            free, _ = lfilter([1.0], [1.0, -a], rows[:, i:j], axis=1, zi=a * y[:, i - 1 : i])
+            running = pick.accumulate((limits[:, i:j] - free) * grow[:m], axis=1)
+            y[:, i:j] = free + pick(0.0, running * shrink[:m])
+            i = j
+    return y if u.ndim == 2 else y[0]
 
 
 def eckhardt(flow, recession_index_days, bfi_max=0.80):
@@ -122,10 +179,13 @@ def eckhardt(flow, recession_index_days, bfi_max=0.80):
     c1 = (1.0 - bfi_max) * a / (1.0 - a * bfi_max)
     c0 = (1.0 - a) * bfi_max / (1.0 - a * bfi_max)
 
-    def one(q):
-        return _bounded_recursion(c1, c0 * q, _starting_baseflow(q), q, upper=True)
-
-    return _by_block(flow, one)
+    q = np.asarray(flow, dtype=float)
+    out = np.full(q.shape, np.nan)
+    for blocks in _block_rows(np.isfinite(q)):
+        rows = blocks.take(q)
+        first = _starting_rows(rows, blocks.inside)
+        blocks.put(out, _bounded_recursion(c1, c0 * rows, first, rows, upper=True))
+    return out
 
 
 #: The filters start from the lowest flow of the first days (our own rule): a record that
@@ -133,22 +193,20 @@ def eckhardt(flow, recession_index_days, bfi_max=0.80):
 START_DAYS = 5
 
 
-def _starting_baseflow(q):
-    return float(np.min(q[:START_DAYS]))
-
-
-def _lyne_hollick_pass(q, alpha):
-    """One pass: quickflow f_t = α f_{t−1} + (1+α)/2 (Q_t − Q_{t−1}), kept within [0, Q_t]."""
-    n = q.size
-    if n < 2:
-        return q.copy()
-    dq = np.concatenate(([0.0], np.diff(q)))
-    f_first = q[0] - _starting_baseflow(q)
+def _lyne_hollick_pass(rows, inside, alpha):
+    """One pass on each row: quickflow f_t = α f_{t−1} + (1+α)/2 (Q_t − Q_{t−1}), kept within
+    [0, Q_t]; returns the baseflow Q − f."""
+    if rows.shape[1] < 2:
+        return rows.copy()
+    dq = np.zeros(rows.shape)
+    dq[:, 1:] = np.diff(rows, axis=1)
+    f_first = rows[:, 0] - _starting_rows(rows, inside)
     # Lower limit f ≥ 0 (baseflow ≤ flow) inside the recursion.
-    f = _bounded_recursion(alpha, (1.0 + alpha) / 2.0 * dq, f_first, np.zeros(n), upper=False)
+    zeros = np.zeros(rows.shape)
+    f = _bounded_recursion(alpha, (1.0 + alpha) / 2.0 * dq, f_first, zeros, upper=False)
     # Upper limit f ≤ Q (baseflow ≥ 0) rarely binds; clip it where it does.
-    f = np.minimum(f, q)
-    return q - f
+    f = np.minimum(f, rows)
+    return rows - f
 
 
 def lyne_hollick(flow, alpha=LYNE_HOLLICK_ALPHA, passes=3):
@@ -161,17 +219,15 @@ def lyne_hollick(flow, alpha=LYNE_HOLLICK_ALPHA, passes=3):
     Each pass starts with its quickflow at the first day's flow minus the lowest flow of the
     first five days.
     """
-
-    def one(q):
-        b = q.copy()
-        for k in range(int(passes)):
-            if k % 2 == 0:
-                b = _lyne_hollick_pass(b, alpha)
-            else:
-                b = _lyne_hollick_pass(b[::-1], alpha)[::-1]
-        return b
-
-    return _by_block(flow, one)
+    q = np.asarray(flow, dtype=float)
+    valid = np.isfinite(q)
+    b = np.where(valid, q, np.nan)
+    for k in range(int(passes)):
+        after = np.full(q.shape, np.nan)
+        for blocks in _block_rows(valid, reverse=k % 2 == 1):
+            blocks.put(after, _lyne_hollick_pass(blocks.take(b), blocks.inside, alpha))
+        b = after
+    return b
 
 
 def smoothed_minima(flow, block_days=MINIMA_BLOCK_DAYS, turning_factor=MINIMA_TURNING_FACTOR):
