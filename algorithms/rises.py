@@ -67,58 +67,133 @@ def _blocks(valid):
     return change[::2], change[1::2]
 
 
-def _turning_points(x, threshold):
-    """Troughs and peaks of ``x`` (no NaN) whose swings all exceed ``threshold``.
+def _laid_end_to_end(starts, lengths):
+    """Record positions of the spans ``[start, start + length)`` laid end to end, each
+    position's span, and where each span begins in that layout (lengths must be positive)."""
+    span = np.repeat(np.arange(lengths.size), lengths)
+    offsets = np.concatenate(([0], np.cumsum(lengths)[:-1]))
+    positions = starts[span] + (np.arange(span.size) - offsets[span])
+    return positions, span, offsets
 
-    Returns two integer arrays ``(troughs, peaks)`` with ``troughs[k] < peaks[k]``. A peak is
-    significant when its prominence reaches ``threshold``: it stands that far above the higher
-    of the lowest points separating it from higher ground on either side (so a rise counts
-    once it has climbed ``threshold`` from the lowest day before it and fallen ``threshold``
-    before the next climb). Each peak's trough is the lowest day since the previous significant
-    peak (the latest such day on ties). A block that ends while still rising by ``threshold``
-    ends on a peak. Peaks come from ``scipy.signal.find_peaks`` (compiled), with no loop over
-    days.
+
+def _spans(x, starts, lengths):
+    """The values of the spans laid end to end, their record positions and where each span
+    begins among them. Spans that follow one another without a break are a view of ``x``."""
+    ends = starts + lengths
+    if starts.size == 1 or np.array_equal(starts[1:], ends[:-1]):
+        low, high = int(starts[0]), int(ends[-1])
+        return x[low:high], np.arange(low, high), starts - low
+    positions, _, offsets = _laid_end_to_end(starts, lengths)
+    return x[positions], positions, offsets
+
+
+def _first_at(x, starts, lengths, pick, latest=False):
+    """Position of the lowest (``pick`` = np.minimum) or highest (np.maximum) value in each span,
+    the first of equals (the latest with ``latest``)."""
+    values, positions, offsets = _spans(x, starts, lengths)
+    extreme = pick.reduceat(values, offsets)
+    hit = values == np.repeat(extreme, lengths)
+    if latest:
+        return np.maximum.reduceat(np.where(hit, positions, -1), offsets)
+    return np.minimum.reduceat(np.where(hit, positions, x.size), offsets)
+
+
+def _turning_points(x, starts, ends, threshold):
+    """Troughs and peaks of every gap-free block ``x[start:end]`` whose swings exceed ``threshold``.
+
+    Returns ``(troughs, peaks, block)``: integer arrays with ``troughs[k] < peaks[k]`` and the
+    block of each pair. A peak is significant when its prominence reaches ``threshold``: it
+    stands that far above the higher of the lowest points separating it from higher ground on
+    either side within its block (so a rise counts once it has climbed ``threshold`` from the
+    lowest day before it and fallen ``threshold`` before the next climb). Each peak's trough is
+    the lowest day since the previous significant peak of its block, or since the block's start
+    (the latest such day on ties). A block that ends while still rising by ``threshold`` ends on
+    a peak. A block of one day has none.
+
+    Peaks come from ``scipy.signal.find_peaks`` (compiled) run once over all blocks laid end to
+    end with a wall of +inf after each: a wall is higher ground that stops every search for
+    local maxima and prominence exactly where a record of the block alone would end, so each
+    block gets the peaks it gets alone. The walls themselves are dropped. No loop over days or
+    blocks.
     """
     from scipy.signal import find_peaks
 
-    n = x.size
-    if n < 2:
-        return np.empty(0, int), np.empty(0, int)
-    peaks, _ = find_peaks(x, prominence=threshold)
-    peaks = np.asarray(peaks, dtype=int)
-    # A record (or block) ending on a rise: its last day is the highest seen so far.
-    tail_from = peaks[-1] + 1 if peaks.size else 0
-    if tail_from < n - 1:
-        tail = x[tail_from:]
-        low = tail_from + int(np.argmin(tail))
-        if x[n - 1] >= tail.max() and x[n - 1] - x[low] >= threshold and low < n - 1:
-            peaks = np.append(peaks, n - 1)
+    empty = np.empty(0, int)
+    lengths = ends - starts
+    long_enough = np.flatnonzero(lengths >= 2)
+    if long_enough.size == 0:
+        return empty, empty, empty
+    starts, ends, lengths = starts[long_enough], ends[long_enough], lengths[long_enough]
+    if starts.size == 1:  # one block: the record itself, no walls needed
+        found, _ = find_peaks(x[starts[0] : ends[0]], prominence=threshold)
+        peaks = np.asarray(found, dtype=int) + starts[0]
+        block = np.zeros(peaks.size, int)
+    else:
+        positions, span, offsets = _laid_end_to_end(starts, lengths)
+        walled_at = offsets + 1 + np.arange(starts.size)  # each block's first slot after a wall
+        walled = np.full(positions.size + starts.size + 1, np.inf)
+        walled[positions - starts[span] + walled_at[span]] = x[positions]
+        found, _ = find_peaks(walled, prominence=threshold)
+        found = found[np.isfinite(walled[found])]
+        block = np.searchsorted(walled_at, found, side="right") - 1
+        peaks = found - walled_at[block] + starts[block]
+
+    # A block ending on a rise: its last day is the highest since its last peak, and stands
+    # ``threshold`` above the lowest day since then.
+    tail_from = starts
+    if peaks.size:
+        count = np.bincount(block, minlength=starts.size)
+        last_peak = peaks[np.maximum(np.cumsum(count) - 1, 0)]  # blocks' peaks are in order
+        tail_from = np.where(count > 0, last_peak + 1, starts)
+    last = ends - 1
+    open_tail = np.flatnonzero(tail_from < last)
+    if open_tail.size:
+        t_from, t_last = tail_from[open_tail], last[open_tail]
+        t_length = t_last - t_from + 1
+        low = _first_at(x, t_from, t_length, np.minimum)
+        values, _, offsets = _spans(x, t_from, t_length)
+        highest = np.maximum.reduceat(values, offsets)
+        rising = (x[t_last] >= highest) & (x[t_last] - x[low] >= threshold) & (low < t_last)
+        peaks = np.concatenate((peaks, t_last[rising]))
+        block = np.concatenate((block, open_tail[rising]))
+        order = np.argsort(peaks, kind="stable")
+        peaks, block = peaks[order], block[order]
     if peaks.size == 0:
-        return np.empty(0, int), np.empty(0, int)
-    # Trough of each peak: the lowest day between the previous peak (exclusive) and this one,
-    # the latest of equals. The spans tile x[: last peak + 1], so reduceat covers them at once.
-    starts = np.concatenate(([0], peaks[:-1] + 1))
-    lengths = peaks - starts + 1
-    span = x[: peaks[-1] + 1]
-    lowest = np.repeat(np.minimum.reduceat(span, starts), lengths)
-    at_lowest = np.where(span == lowest, np.arange(span.size), -1)
-    troughs = np.maximum.reduceat(at_lowest, starts)
+        return empty, empty, empty
+    # Trough of each peak: the lowest day after the previous peak of its block (or from the
+    # block's start) up to the peak, the latest of equals.
+    same_block = np.concatenate(([False], block[1:] == block[:-1]))
+    span_from = np.where(same_block, np.concatenate(([0], peaks[:-1] + 1)), starts[block])
+    troughs = _first_at(x, span_from, peaks - span_from + 1, np.minimum, latest=True)
     keep = troughs < peaks
-    return troughs[keep], peaks[keep]
+    return troughs[keep], peaks[keep], long_enough[block[keep]]
 
 
-def _rise_hidden_in_gap(x, previous_end, b0, b1, troughs, threshold):
-    """Peak position when the block after a gap starts above the day before the gap."""
-    if previous_end < 0:
-        return None
-    head_end = troughs[0] if troughs.size else b1 - 1
-    if head_end <= b0 and troughs.size:
-        return None  # the block starts on a trough: its own rise is seen and flagged
-    head = x[b0 : head_end + 1]
-    top = b0 + int(np.argmax(head))
-    if x[top] - x[previous_end] >= threshold:
-        return top
-    return None
+def _rises_hidden_in_gaps(x, starts, ends, troughs, block, threshold):
+    """Rises that happened in a gap: blocks whose first days climb ``threshold`` above the day
+    before the gap. Returns ``(block, peak)`` of each.
+
+    The head of a block is its days up to its first trough (all of it when it has none); a
+    block that starts on a trough has its own rise seen and flagged. The peak is the head's
+    highest day (the first of equals).
+    """
+    later = np.arange(1, starts.size)
+    if later.size == 0:
+        return np.empty(0, int), np.empty(0, int)
+    head_end = ends[later] - 1
+    has_trough = np.zeros(later.size, bool)
+    if troughs.size:
+        has_trough = np.bincount(block, minlength=starts.size)[later] > 0
+        first = np.minimum(np.searchsorted(block, later), troughs.size - 1)  # blocks in order
+        head_end = np.where(has_trough, troughs[first], head_end)
+    usable = ~has_trough | (head_end > starts[later])
+    candidates, head_end = later[usable], head_end[usable]
+    if candidates.size == 0:
+        return np.empty(0, int), np.empty(0, int)
+    top = _first_at(x, starts[candidates], head_end - starts[candidates] + 1, np.maximum)
+    before_gap = ends[candidates - 1] - 1
+    hidden = x[top] - x[before_gap] >= threshold
+    return candidates[hidden], top[hidden]
 
 
 @dataclass
@@ -171,30 +246,21 @@ def find_rises(logq, lag_days, threshold) -> Rises:
         Smallest rise treated as an event, in log10 units (see :func:`rise_threshold`).
     """
     x = np.asarray(logq, dtype=float)
-    valid = np.isfinite(x)
-    starts, ends = _blocks(valid)
-    rise, peak, block_start, block_end = [], [], [], []
-    previous_end = -1
-    for b0, b1 in zip(starts, ends):
-        t, p = _turning_points(x[b0:b1], threshold)
-        t, p = t + b0, p + b0
-        hidden = _rise_hidden_in_gap(x, previous_end, b0, b1, t, threshold)
-        if hidden is not None:
-            # The flow rose during the gap: keep the event so its year is not taken as
-            # complete, anchored on the last day before the gap (and flagged).
-            t, p = np.concatenate(([b0], t)), np.concatenate(([hidden], p))
-        rise.append(t)
-        peak.append(p)
-        block_start.append(np.full(t.size, b0))
-        block_end.append(np.full(t.size, b1 - 1))
-        previous_end = b1 - 1
-    rise = np.concatenate(rise) if rise else np.empty(0, int)
+    starts, ends = _blocks(np.isfinite(x))
+    troughs, peaks, block = _turning_points(x, starts, ends, threshold)
+    hidden_block, hidden_peak = _rises_hidden_in_gaps(x, starts, ends, troughs, block, threshold)
+    # The flow rose during a gap: keep the event so its year is not taken as complete,
+    # anchored on the block's first day, after the gap (and flagged).
+    rise = np.concatenate((starts[hidden_block], troughs))
     if rise.size == 0:
         empty = np.empty(0, int)
         return Rises(empty, empty, empty, empty, empty.astype(bool), empty.astype(bool), threshold)
-    peak = np.concatenate(peak)
-    block_start = np.concatenate(block_start)
-    block_end = np.concatenate(block_end)
+    order = np.argsort(rise, kind="stable")
+    rise = rise[order]
+    peak = np.concatenate((hidden_peak, peaks))[order]
+    block = np.concatenate((hidden_block, block))[order]
+    block_start = starts[block]
+    block_end = ends[block] - 1
 
     # Merge: a rise starting less than N days after the previous peak (same block) joins it.
     joins = np.zeros(rise.size, bool)

@@ -3,6 +3,7 @@
 Usage::
 
     python benchmarks/run.py --gauges 2000 --years 30 [--seed 1] [--workers 2] [--skip-end-to-end]
+                             [--gaps-per-year 0]
 
 It generates the network in a child process (so its temporaries do not count), loads the daily
 flows, and measures in this one process:
@@ -13,6 +14,9 @@ flows, and measures in this one process:
   annual sums, baseflow (the pipeline's per-gauge work, without reading or writing files);
 * the same with ``--workers`` processes;
 * end to end: the discharge table as Parquet on disk to the GeoPackage, in gauge-years per second.
+
+``--gaps-per-year G`` blanks G gaps of 1 to 10 days per gauge-year at random (real records
+have gaps; the generated ones have none), which shows what gaps cost.
 
 The last lines are ``limit_ratio=<full/floor>``, ``memory_ratio=<peak RSS above baseline / data
 bytes>`` and ``workers_speedup=<serial time / time with the workers>``.
@@ -70,6 +74,18 @@ def generate(folder, gauges, years, seed):
     network.catchments.to_file(Path(folder) / "catchments.gpkg", driver="GPKG")
     meta = {"start": str(network.dates[0].date()), "days": int(network.dates.size), "ids": list(network.gauges["gauge_id"])}
     (Path(folder) / "meta.json").write_text(json.dumps(meta))
+
+
+def add_gaps(flow, per_year, seed):
+    """Blank ``per_year`` gaps of 1 to 10 days per gauge-year, in place, at random."""
+    if per_year <= 0:
+        return
+    rng = np.random.default_rng(seed + 1000)
+    n_gauges, n_days = flow.shape
+    count = int(round(per_year * n_days / 365.25))
+    for row in flow:
+        for start, length in zip(rng.integers(0, n_days, count), rng.integers(1, 11, count)):
+            row[start : start + length] = np.nan
 
 
 def _records(flow, meta):
@@ -130,6 +146,7 @@ def main(argv=None):
     parser.add_argument("--seed", type=int, default=1)
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--skip-end-to-end", action="store_true")
+    parser.add_argument("--gaps-per-year", type=float, default=0.0)
     parser.add_argument("--generate-into", help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     if args.generate_into:
@@ -146,6 +163,7 @@ def main(argv=None):
         meta = json.loads((Path(folder) / "meta.json").read_text())
         areas = _areas(folder)
         flow = np.load(Path(folder) / "flow.npy")
+        add_gaps(flow, args.gaps_per_year, args.seed)
         records = _records(flow, meta)
         import recharge_atlas.algorithms.pipeline  # noqa: F401  (imports outside the timings)
 
@@ -177,6 +195,8 @@ def main(argv=None):
 
     print(f"machine: {platform.machine()}, {os.cpu_count()} cores, python {platform.python_version()}, numpy {np.__version__}")
     print(f"network: {args.gauges} gauges x {args.years} years = {gauge_years:,.0f} gauge-years, {flow.size:,} daily values, {data_bytes / 1e6:,.0f} MB (generated in {generation:.1f} s)")
+    if args.gaps_per_year > 0:
+        print(f"gaps: {args.gaps_per_year:g} per gauge-year, 1 to 10 days each")
     print(f"floor_seconds={floor:.3f}")
     print(f"full_seconds={full:.3f} ({1000 * full / args.gauges:.2f} ms per gauge, {gauge_years / full:,.0f} gauge-years/s)")
     print(f"workers={args.workers} parallel_seconds={parallel:.3f}")

@@ -110,6 +110,8 @@ def test_benchmark_prints_its_ratios(tmp_path):
             "--years",
             "3",
             "--skip-end-to-end",
+            "--gaps-per-year",
+            "4",
         ],
         capture_output=True,
         text=True,
