@@ -10,7 +10,6 @@ code, either every output is written completely or none is touched.
 from __future__ import annotations
 
 import argparse
-import os
 import sys
 import time
 import warnings
@@ -425,9 +424,9 @@ def run_files(
     outputs = [(out, "output"), (map_path, "map"), (year_maps_path, "per-year map")]
     outputs = [(Path(p), w) for p, w in outputs + [(report_path, "report")] if p]
     for n, (target, kind) in enumerate(outputs):
-        if any(_same_file(target, p) for p in sources.values()):
+        if any(files.same_file(target, p) for p in sources.values()):
             raise InputError(f"the {kind} path is one of the input files", file=str(target))
-        if any(_same_file(target, other) for other, _ in outputs[:n]):
+        if any(files.same_file(target, other) for other, _ in outputs[:n]):
             raise InputError(f"the {kind} path is also another output's", file=str(target))
     if out.suffix.lower() != ".gpkg":
         raise InputError("the output must be a GeoPackage ending in .gpkg", file=str(out))
@@ -569,16 +568,6 @@ def _discharge(files, path, gauge_layer, settings, gauges_per_group):
         if g is not None
     ]
     return files.discharge_groups(path, settings.discharge_gauge_field, ids, gauges_per_group)
-
-
-def _same_file(a, b):
-    """Whether two paths name one file (through links, relative parts or hard links)."""
-    try:
-        if os.path.exists(a) and os.path.exists(b):
-            return os.path.samefile(a, b)
-        return Path(a).resolve() == Path(b).resolve()
-    except OSError:
-        return False
 
 
 def _settings(args):

@@ -430,15 +430,37 @@ def atomic_path(target):
     target = check_output(target)
     temp = _temporary_beside(target)
     try:
-        yield Path(temp)
-        os.replace(temp, target)
-    except OSError as exc:
-        raise InputError(
-            f"the output could not be written: {exc.strerror or describe(exc)}",
-            file=str(target),
-        ) from None
+        try:
+            yield Path(temp)
+        except OSError as exc:
+            raise _not_written(exc, target) from None
+        _move_into_place(temp, target)
     finally:
         _remove_leftovers(temp)
+
+
+def _not_written(exc, target):
+    """The error for an output the disk or the file system refused."""
+    return InputError(
+        f"the output could not be written: {exc.strerror or describe(exc)}", file=str(target)
+    )
+
+
+def _move_into_place(temp, target):
+    try:
+        os.replace(temp, target)
+    except OSError as exc:
+        raise _not_written(exc, target) from None
+
+
+def same_file(a, b) -> bool:
+    """Whether two paths name one file (through links, relative parts or hard links)."""
+    try:
+        if os.path.exists(a) and os.path.exists(b):
+            return os.path.samefile(a, b)
+        return Path(a).resolve() == Path(b).resolve()
+    except OSError:
+        return False
 
 
 class StagedOutputs:
@@ -457,13 +479,7 @@ class StagedOutputs:
 
     def commit(self):
         for temp, target in self.moves:
-            try:
-                os.replace(temp, target)
-            except OSError as exc:
-                raise InputError(
-                    f"the output could not be written: {exc.strerror or describe(exc)}",
-                    file=str(target),
-                ) from None
+            _move_into_place(temp, target)
 
     def discard(self):
         for temp, _target in self.moves:

@@ -186,17 +186,6 @@ def _file_of(source: str):
     return Path(text)
 
 
-def _same_file(a, b) -> bool:
-    import os
-
-    try:
-        if os.path.exists(a) and os.path.exists(b):
-            return os.path.samefile(a, b)
-        return Path(a).resolve() == Path(b).resolve()
-    except OSError:
-        return False
-
-
 # Share of the progress bar for each stage.
 _READ_END, _RUN_END, _REPORT_END = 15.0, 85.0, 90.0
 
@@ -900,6 +889,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
         GeoPackage output over the catchments' file would replace or change it), in the
         command line's words."""
         from ..algorithms.errors import InputError
+        from ..algorithms.files import same_file
 
         inputs = []
         for name in self._INPUTS:
@@ -916,7 +906,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             else:
                 target = self.parameterAsOutputLayer(parameters, name, context)
             path = _file_of(target) if target else None
-            if path and any(_same_file(path, other) for other in inputs):
+            if path and any(same_file(path, other) for other in inputs):
                 raise InputError(
                     f"the output path is one of the input files ({name})", file=str(path)
                 )
