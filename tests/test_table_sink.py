@@ -112,3 +112,34 @@ def test_the_kept_tables_are_removed_when_the_output_cannot_be_written(
     assert _run(sample_paths, tmp_path / "out.gpkg", "--gauges-per-group", "2") != 0
     assert list(scratch.iterdir()) == []
     assert not (tmp_path / "out.gpkg").exists()
+
+
+def test_a_subbasin_run_read_in_groups_gives_the_same_layers_and_tables(tmp_path, sample_paths):
+    import geopandas as gpd
+
+    from recharge_atlas.cli import main
+
+    subbasins = str(sample_paths["catchments"].parent / "subbasins.gpkg")
+    outputs = {}
+    for per_group in ("0", "2"):
+        out = tmp_path / f"sub{per_group}.gpkg"
+        args = ["run", "--gauges", str(sample_paths["gauges"]), "--subbasins", subbasins]
+        args += ["--discharge", str(sample_paths["discharge"]), "--out", str(out)]
+        args += [
+            "--gauges-per-group",
+            per_group,
+            "--year-maps",
+            str(tmp_path / f"y{per_group}.png"),
+        ]
+        assert main(args) == 0
+        outputs[per_group] = out
+    for layer in ("subbasins", "catchments"):
+        whole, groups = (gpd.read_file(outputs[k], layer=layer) for k in ("0", "2"))
+        pd.testing.assert_frame_equal(
+            whole.drop(columns="geometry"), groups.drop(columns="geometry")
+        )
+    for name in (*SINK_TABLES, "annual"):
+        pd.testing.assert_frame_equal(
+            read_attribute_table(outputs["0"], name), read_attribute_table(outputs["2"], name)
+        )
+    assert (tmp_path / "y2.png").exists()
