@@ -10,6 +10,7 @@ from __future__ import annotations
 import datetime as _dt
 import os
 import sqlite3
+import sys
 import tempfile
 from contextlib import contextmanager
 from pathlib import Path
@@ -247,18 +248,28 @@ def _parquet_groups(file_path, gauge_field, batches, what):
         )
     kind = schema.field(gauge_field).type
     found = False
-    for batch in batches:
-        if pa.types.is_integer(kind) or pa.types.is_floating(kind):
-            values = [
-                float(g) if pa.types.is_floating(kind) else int(g) for g in batch if _is_number(g)
-            ]
-        else:
-            values = [str(g) for g in batch]
-        if not values:
-            continue
-        frame = _parquet_rows_of(file_path, gauge_field, values, kind)
-        found = found or len(frame) > 0
-        yield frame
+    # Arrow's own allocator keeps what a group freed for later; the system's hands it back,
+    # so one group's memory is not still held while the next is read.
+    previous_pool = pa.default_memory_pool()
+    pa.set_memory_pool(pa.system_memory_pool())
+    try:
+        for batch in batches:
+            if pa.types.is_integer(kind) or pa.types.is_floating(kind):
+                values = [
+                    float(g) if pa.types.is_floating(kind) else int(g)
+                    for g in batch
+                    if _is_number(g)
+                ]
+            else:
+                values = [str(g) for g in batch]
+            if not values:
+                continue
+            _hand_back_memory()  # the previous group is let go by now
+            frame = _parquet_rows_of(file_path, gauge_field, values, kind)
+            found = found or len(frame) > 0
+            yield frame
+    finally:
+        pa.set_memory_pool(previous_pool)
     if not found:  # no row of any gauge: a few rows say which ids the table holds
         for rows in pq.ParquetFile(file_path).iter_batches(batch_size=10_000):
             yield rows.to_pandas().drop_duplicates(gauge_field).head(_SAMPLE_IDS)
@@ -294,6 +305,18 @@ def _parquet_rows_of(file_path, gauge_field, values, kind):
     if hasattr(pool, "release_unused"):
         pool.release_unused()  # hand the row groups' memory back before the hydrology runs
     return frame
+
+
+def _hand_back_memory():
+    """Return freed memory to the system (glibc keeps some for reuse; elsewhere nothing)."""
+    import ctypes
+    import ctypes.util
+
+    name = ctypes.util.find_library("c") if sys.platform.startswith("linux") else None
+    try:
+        ctypes.CDLL(name).malloc_trim(0)
+    except (OSError, AttributeError, TypeError):
+        pass
 
 
 def _rules_out(statistics, low, high):
