@@ -388,6 +388,7 @@ def _text_groups(file_path, gauge_field, batches, what):
             ) from None
         for group in range(len(batches)):
             if group in written:
+                _hand_back_memory()  # the previous group is let go by now
                 yield pd.read_csv(Path(folder) / f"{group}.csv", dtype=str, **TEXT_MISSING)
         if not written and samples:  # no row of any gauge: a few rows say which ids it holds
             yield pd.concat(samples, ignore_index=True)
