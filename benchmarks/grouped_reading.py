@@ -15,7 +15,8 @@ memory. The last lines are:
 * ``peak_above_baseline_bytes``: the run's peak resident memory above what the process held
   after its imports and before reading anything;
 * ``group_memory_ratio=<peak above baseline / one group's table>``: the peak against the data
-  processed at once (the result tables, which grow with the whole network, count in the peak).
+  processed at once. The run's event, period and segment rows wait in a temporary file, so they
+  do not count; each gauge's annual rows and recession segments stay in memory and do.
 """
 
 from __future__ import annotations
