@@ -119,6 +119,32 @@ def event_columns(
     if len(rises) == 0 or not np.isfinite(k) or k <= 0:
         return ColumnTable.empty(EVENT_COLUMNS)
     parts = _displacements(q, logq, rises, k, lag_days, max_extrapolation_days, clean)
+    return _event_table(q, day0, rises, parts)
+
+
+def event_columns_at(q, day0, logq, rises: Rises, ks, lag_days, clean=None):
+    """:func:`event_columns` for ``ks[0]`` and :func:`event_volumes_at` for the other values of
+    K, from one pass over the events (the Ks as one column; each row is worked out exactly as
+    alone). ``ks[0]`` must be a positive number. Returns ``(table, volumes)``."""
+    ks = [float(k) for k in ks]
+    rows = [i for i, k in enumerate(ks) if np.isfinite(k) and k > 0]
+    if rows[:1] != [0]:
+        raise ValueError(f"the first recession index was {ks[0]!r}; expected a positive number")
+    volumes = [None] * (len(ks) - 1)
+    if len(rises) == 0:
+        return ColumnTable.empty(EVENT_COLUMNS), volumes
+    column = np.array([ks[i] for i in rows])[:, None]
+    parts = _displacements(np.asarray(q, dtype=float), logq, rises, column, lag_days, None, clean)
+    for row, i in enumerate(rows[1:], start=1):
+        volumes[i - 1] = (parts["recharge_m3"][row], parts["used"][row])
+    first = {name: value[0] for name, value in parts.items() if name != "note"}
+    first["note"] = parts["note"]
+    first["tc"] = float(first["tc"][0])
+    return _event_table(q, day0, rises, first), volumes
+
+
+def _event_table(q, day0, rises, parts):
+    """The event table from the arrays of :func:`_displacements` (one K)."""
 
     def dates(positions):
         return (day0 + positions.astype("timedelta64[D]")).astype("datetime64[ns]")
@@ -202,8 +228,8 @@ def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days, clean=No
     """The arrays of the displacement construction, one entry per event (``notes``: with the
     sentence saying why an event was not measured).
 
-    ``k`` is one K, or a column of several (shape ``(m, 1)``, without notes): every array then
-    has one row per K.
+    ``k`` is one K, or a column of several (shape ``(m, 1)``): every array then has one row
+    per K, and the notes are those of the first.
     """
     if max_extrapolation_days is None:
         max_extrapolation_days = default_max_extrapolation(k)
@@ -235,7 +261,7 @@ def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days, clean=No
     def refuse(mask, text):
         fresh = mask & used
         if notes:
-            note[fresh] = text
+            note[fresh[0] if several else fresh] = text
         used[fresh] = False
 
     refuse(
@@ -250,7 +276,7 @@ def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days, clean=No
         "post-event extrapolation longer than the limit",
     )
     if notes:
-        note[used & (rises.peaks_merged > 1)] = "peaks merged"
+        note[(used[0] if several else used) & (rises.peaks_merged > 1)] = "peaks merged"
     recharge = np.where(used, displacement_recharge_m3(q1, q2, k), np.nan)
     return {
         "tc": tc,

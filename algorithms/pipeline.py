@@ -18,7 +18,7 @@ from . import annual as annual_mod
 from .baseflow import BFIMAX_TYPICAL, METHODS, baseflow_index, separate_baseflow
 from .basins import LINK_TOLERANCE_M, geodesic_area_km2, link_by_id, link_spatially, repair_polygons
 from .discharge import MIN_DAY_COVERAGE, GaugeRecord, gauge_id_text, require_columns, tidy_discharge
-from .displacement import EVENT_COLUMNS, CleanDays, event_columns, event_volumes_at
+from .displacement import EVENT_COLUMNS, CleanDays, event_columns, event_columns_at
 from .errors import InputError, counted, describe, quoted
 from .nesting import OVERLAP_TOLERANCE, find_nesting, incremental_recharge
 from .recession import (
@@ -661,20 +661,19 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
     k = recession.days
 
     clean = CleanDays(x)
-    events = event_columns(usable, day0, x, rises, k, lag, clean=clean)
+    # The events with K, and again with K at both ends of its interval, in one pass.
+    if np.isfinite(k) and k > 0:
+        events, ends = event_columns_at(
+            usable, day0, x, rises, [k, recession.low, recession.high], lag, clean=clean
+        )
+    else:
+        events, ends = event_columns(usable, day0, x, rises, k, lag, clean=clean), (None, None)
     event_table = dict(events.columns)
     event_table["event"] = np.arange(1, len(events) + 1, dtype=np.int64)
     event_table["recharge_mm"] = (
         event_table["recharge_m3"] / (area * 1e3) if has_area else np.full(len(events), np.nan)
     )
     events = ColumnTable(event_table, EVENT_COLUMNS_WITH_DEPTH)
-
-    # The events again with K at both ends of its interval (one pass for the two).
-    ends = (
-        event_volumes_at(usable, x, rises, [recession.low, recession.high], lag, clean=clean)
-        if len(events)
-        else (None, None)
-    )
     events_low, events_high = (
         None
         if end is None

@@ -121,3 +121,36 @@ def test_several_k_in_one_pass_give_what_each_gives_alone():
         np.testing.assert_array_equal(pair[1], used)
         table = _events(flow, k)
         np.testing.assert_array_equal(pair[0], table["recharge_m3"].to_numpy())
+
+
+@pytest.mark.parametrize("k", [12.0, 45.0, 300.0])
+def test_the_table_and_the_interval_ends_in_one_pass_equal_each_alone(k):
+    """The pipeline gets the event table for K and the volumes at both ends of the K interval
+    from one pass (the three Ks as one column); each must be exactly what it is alone, notes
+    included."""
+    from recharge_atlas.algorithms.displacement import (
+        event_columns,
+        event_columns_at,
+        event_volumes_at,
+    )
+
+    flow = _hydrograph(45.0, {60: 30.0, 200: 12.0, 203: 8.0, 420: 25.0, 700: 5.0})
+    flow.iloc[[300, 301, 302]] = np.nan
+    q, x = flow.to_numpy(), log_flow(flow)
+    lag = float(runoff_end_lag_days(AREA_KM2))
+    rises = find_rises(x, lag, 0.01)
+    day0 = flow.index[0].to_datetime64().astype("datetime64[D]")
+    others = [0.7 * k, np.nan, 1.4 * k]
+    table, volumes = event_columns_at(q, day0, x, rises, [k, *others], lag)
+    alone = event_columns(q, day0, x, rises, k, lag)
+    assert table.order == alone.order
+    for name in alone.order:
+        np.testing.assert_array_equal(table[name], alone[name], err_msg=name)
+    for got, expected in zip(volumes, event_volumes_at(q, x, rises, others, lag)):
+        if expected is None:
+            assert got is None
+            continue
+        np.testing.assert_array_equal(got[0], expected[0])
+        np.testing.assert_array_equal(got[1], expected[1])
+    with pytest.raises(ValueError, match="first recession index"):
+        event_columns_at(q, day0, x, rises, [np.nan, k], lag)
