@@ -137,7 +137,8 @@ def event_columns_at(q, day0, logq, rises: Rises, ks, lag_days, clean=None):
     parts = _displacements(np.asarray(q, dtype=float), logq, rises, column, lag_days, None, clean)
     for row, i in enumerate(rows[1:], start=1):
         volumes[i - 1] = (parts["recharge_m3"][row], parts["used"][row])
-    first = {name: value[0] for name, value in parts.items() if name != "note"}
+    # Copies of the first row: views would keep all the rows alive with the event table.
+    first = {name: np.array(value[0]) for name, value in parts.items() if name != "note"}
     first["note"] = parts["note"]
     first["tc"] = float(first["tc"][0])
     return _event_table(q, day0, rises, first), volumes
