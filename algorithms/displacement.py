@@ -126,22 +126,17 @@ def event_columns_at(q, day0, logq, rises: Rises, ks, lag_days, clean=None):
     """:func:`event_columns` for ``ks[0]`` and :func:`event_volumes_at` for the other values of
     K, from one pass over the events (the Ks as one column; each row is worked out exactly as
     alone). ``ks[0]`` must be a positive number. Returns ``(table, volumes)``."""
-    ks = [float(k) for k in ks]
-    rows = [i for i, k in enumerate(ks) if np.isfinite(k) and k > 0]
-    if rows[:1] != [0]:
+    first_k = float(ks[0])
+    if not (np.isfinite(first_k) and first_k > 0):
         raise ValueError(f"the first recession index was {ks[0]!r}; expected a positive number")
-    volumes = [None] * (len(ks) - 1)
-    if len(rises) == 0:
-        return ColumnTable.empty(EVENT_COLUMNS), volumes
-    column = np.array([ks[i] for i in rows])[:, None]
-    parts = _displacements(np.asarray(q, dtype=float), logq, rises, column, lag_days, None, clean)
-    for row, i in enumerate(rows[1:], start=1):
-        volumes[i - 1] = (parts["recharge_m3"][row], parts["used"][row])
+    parts, volumes = _at_several(q, logq, rises, ks, lag_days, None, clean, notes=True)
+    if parts is None:
+        return ColumnTable.empty(EVENT_COLUMNS), volumes[1:]
     # Copies of the first row: views would keep all the rows alive with the event table.
     first = {name: np.array(value[0]) for name, value in parts.items() if name != "note"}
     first["note"] = parts["note"]
     first["tc"] = float(first["tc"][0])
-    return _event_table(q, day0, rises, first), volumes
+    return _event_table(q, day0, rises, first), volumes[1:]
 
 
 def _event_table(q, day0, rises, parts):
@@ -205,24 +200,34 @@ def event_volumes_at(
     Returns one ``(volume, used)`` pair per K, or None for a K that is not a positive number
     (or when there are no events). Each pair is what :func:`event_volumes` gives for that K.
     """
+    return _at_several(flow, logq, rises, ks, lag_days, max_extrapolation_days, clean, notes=False)[
+        1
+    ]
+
+
+def _at_several(q, logq, rises, ks, lag_days, max_extrapolation_days, clean, notes):
+    """:func:`_displacements` with the positive values of ``ks`` as one column: the arrays
+    (None when there are no events or no such K; with ``notes``, those of the first row) and
+    one ``(volume, used)`` pair per K, None for a K that is not a positive number."""
     ks = [float(k) for k in ks]
-    valid = [i for i, k in enumerate(ks) if np.isfinite(k) and k > 0]
-    out = [None] * len(ks)
-    if len(rises) == 0 or not valid:
-        return out
+    rows = [i for i, k in enumerate(ks) if np.isfinite(k) and k > 0]
+    volumes = [None] * len(ks)
+    if len(rises) == 0 or not rows:
+        return None, volumes
+    column = np.array([ks[i] for i in rows])[:, None]
     parts = _displacements(
-        np.asarray(flow, dtype=float),
+        np.asarray(q, dtype=float),
         logq,
         rises,
-        np.array([ks[i] for i in valid])[:, None],
+        column,
         lag_days,
         max_extrapolation_days,
         clean,
-        notes=False,
+        notes=notes,
     )
-    for row, i in enumerate(valid):
-        out[i] = (parts["recharge_m3"][row], parts["used"][row])
-    return out
+    for row, i in enumerate(rows):
+        volumes[i] = (parts["recharge_m3"][row], parts["used"][row])
+    return parts, volumes
 
 
 def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days, clean=None, notes=True):

@@ -87,10 +87,11 @@ def _spans(x, starts, lengths):
     return x[positions], positions, offsets
 
 
-def _first_at(x, starts, lengths, pick, latest=False):
+def _first_at(x, starts, lengths, pick, latest=False, spans=None):
     """Position of the lowest (``pick`` = np.minimum) or highest (np.maximum) value in each span,
-    the first of equals (the latest with ``latest``)."""
-    values, positions, offsets = _spans(x, starts, lengths)
+    the first of equals (the latest with ``latest``); ``spans`` is :func:`_spans` of them when
+    already worked out."""
+    values, positions, offsets = spans if spans is not None else _spans(x, starts, lengths)
     extreme = pick.reduceat(values, offsets)
     hit = values == np.repeat(extreme, lengths)
     if latest:
@@ -150,9 +151,9 @@ def _turning_points(x, starts, ends, threshold):
     if open_tail.size:
         t_from, t_last = tail_from[open_tail], last[open_tail]
         t_length = t_last - t_from + 1
-        low = _first_at(x, t_from, t_length, np.minimum)
-        values, _, offsets = _spans(x, t_from, t_length)
-        highest = np.maximum.reduceat(values, offsets)
+        spans = _spans(x, t_from, t_length)
+        low = _first_at(x, t_from, t_length, np.minimum, spans=spans)
+        highest = np.maximum.reduceat(spans[0], spans[2])
         rising = (x[t_last] >= highest) & (x[t_last] - x[low] >= threshold) & (low < t_last)
         peaks = np.concatenate((peaks, t_last[rising]))
         block = np.concatenate((block, open_tail[rising]))
