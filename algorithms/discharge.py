@@ -109,15 +109,15 @@ def gauge_id_codes(values):
     else:
         column = pd.Series(np.asarray(values, dtype=object), dtype=object)
     if len(column) == 0:
-        return np.empty(0, dtype=np.int64), []
+        return np.empty(0, dtype=np.int32), []
     raw_codes, uniques = pd.factorize(column, use_na_sentinel=True)
     names: dict[str, int] = {}
-    remap = np.full(len(uniques) + 1, -1, dtype=np.int64)  # the last entry: missing (−1)
+    remap = np.full(len(uniques) + 1, -1, dtype=np.int32)  # the last entry: missing (−1)
     for k, value in enumerate(uniques):
         text = _clean_id(value)
         if text is not None:
             remap[k] = names.setdefault(text, len(names))
-    return remap[np.asarray(raw_codes, dtype=np.int64)], list(names)
+    return remap[np.asarray(raw_codes)], list(names)  # int32: half the memory of int64
 
 
 def require_columns(table: pd.DataFrame, columns, what: str, file=None):
@@ -457,9 +457,7 @@ def tidy_discharge(
     if pd.api.types.is_numeric_dtype(raw) and not pd.api.types.is_bool_dtype(raw):
         numeric = raw.to_numpy(dtype=float, na_value=np.nan)
     else:
-        numeric = pd.to_numeric(pd.Series(raw.to_numpy(), dtype=object), errors="coerce").to_numpy(
-            dtype=float, na_value=np.nan
-        )
+        numeric = _text_to_numbers(raw)
         texts = np.flatnonzero(np.isnan(numeric) & ~was_missing)
         if texts.size:  # blanks and markers such as "n/a" are missing values, not bad ones
             words = pd.Series(raw.to_numpy()[texts], dtype=object).astype(str).str.strip()
@@ -509,14 +507,14 @@ def tidy_discharge(
     )
     rows = np.bincount(gauge_of_row, minlength=n_gauges)
     unreadable = dates.unreadable[positions]
-    unread = np.bincount(gauge_of_row, weights=unreadable, minlength=n_gauges).astype(int)
+    unread = np.bincount(gauge_of_row[unreadable], minlength=n_gauges)
     examples = _first_of_each(
         gauge_of_row[unreadable],
-        _row_numbers(positions, named.size)[unreadable],
+        np.flatnonzero(unreadable) if isinstance(positions, slice) else positions[unreadable],
         table[date_field],
     )
     offsets = (
-        np.bincount(gauge_of_row, weights=dates.offset[positions], minlength=n_gauges).astype(int)
+        np.bincount(gauge_of_row[dates.offset[positions]], minlength=n_gauges)
         if dates.with_offset
         else np.zeros(n_gauges, int)
     )
@@ -533,6 +531,22 @@ def tidy_discharge(
             }
         )
     return records
+
+
+#: Text values are turned into numbers this many at a time (each is a Python string while it is
+#: read: a slice at a time bounds that memory).
+_TEXT_SLICE = 1 << 17
+
+
+def _text_to_numbers(column):
+    """Values of a text (or mixed) column as floats, NaN where one is not a number."""
+    parts = [
+        pd.to_numeric(
+            pd.Series(column.iloc[i : i + _TEXT_SLICE].to_numpy(), dtype=object), errors="coerce"
+        ).to_numpy(dtype=float, na_value=np.nan)
+        for i in range(0, len(column), _TEXT_SLICE)
+    ]
+    return np.concatenate(parts) if parts else np.empty(0)
 
 
 def _rows_where(mask):
@@ -658,13 +672,12 @@ def _by_gauge_and_time(codes, stamps_ns):
 def _median_steps(codes, stamps_ns, n_gauges):
     """Median step between the successive time stamps of each gauge, in days (NaN with fewer
     than two); rows are sorted by gauge and time, one per time."""
-    bounds = np.searchsorted(codes, np.arange(n_gauges + 1))
-    steps = np.diff(stamps_ns)  # across a change of gauge too; those are not used
+    bounds = np.searchsorted(codes, np.arange(n_gauges + 1, dtype=codes.dtype))
     out = np.full(n_gauges, np.nan)
-    for g in range(n_gauges):
+    for g in range(n_gauges):  # one gauge's steps at a time: no row-length temporary
         a, b = bounds[g], bounds[g + 1]
         if b - a >= 2:
-            out[g] = float(np.median(steps[a : b - 1])) / _NS_PER_DAY
+            out[g] = float(np.median(np.diff(stamps_ns[a:b]))) / _NS_PER_DAY
     return out
 
 
@@ -683,7 +696,7 @@ def _split_gauges(names, codes, stamps_ns, values, problems, flagged, min_day_co
             flagged[order],
         )
         problems = {k: v[order] for k, v in problems.items()}
-    day = np.floor_divide(stamps_ns, _NS_PER_DAY)
+    day = np.floor_divide(stamps_ns, _NS_PER_DAY).astype(np.int32)  # days since 1970 fit
     n_gauges = len(names)
     problem_counts = {
         k: np.bincount(codes[v], minlength=n_gauges).astype(int) for k, v in problems.items()
@@ -722,9 +735,9 @@ def _split_gauges(names, codes, stamps_ns, values, problems, flagged, min_day_co
     new_day[1:] = (codes[1:] != codes[:-1]) | (day[1:] != day[:-1])
     usable = np.isfinite(values)
     if new_day.all():  # one value a day (the usual table): the rows are the days
-        counts = usable.astype(np.int64)
+        counts = usable  # 1 or 0 values a day (True/False count as such below)
         day_flagged, day_code, day_number = flagged, codes, day
-        mean = values.copy()
+        mean = values  # this function's own array (a copy of the table's), set in place below
     else:
         starts = np.flatnonzero(new_day)
         sums = np.add.reduceat(np.where(usable, values, 0.0), starts)
@@ -750,7 +763,7 @@ def _split_gauges(names, codes, stamps_ns, values, problems, flagged, min_day_co
         incomplete = np.zeros(n_gauges, dtype=int)
     averaged = np.bincount(day_code[counts > 1], minlength=n_gauges).astype(int)
 
-    bounds = np.searchsorted(day_code, np.arange(n_gauges + 1))
+    bounds = np.searchsorted(day_code, np.arange(n_gauges + 1, dtype=day_code.dtype))
     index_of = {}
     records: dict[str, GaugeRecord] = {}
     for g, name in enumerate(names):

@@ -7,6 +7,7 @@ moved into place only when complete, so a failed or cancelled run leaves no part
 
 from __future__ import annotations
 
+import collections
 import datetime as _dt
 import os
 import sqlite3
@@ -219,6 +220,7 @@ def discharge_groups(
     size = max(int(gauges_per_group), 1)
     batches = [gauge_ids[i : i + size] for i in range(0, len(gauge_ids), size)]
     suffix = file_path.suffix.lower()
+    _large_arrays_apart()
     if suffix == ".parquet":
         yield from _parquet_groups(file_path, gauge_field, batches, what)
     elif suffix in TEXT_SUFFIXES:
@@ -265,9 +267,9 @@ def _parquet_groups(file_path, gauge_field, batches, what):
             if not values:
                 continue
             _hand_back_memory()  # the previous group is let go by now
-            frame = _parquet_rows_of(file_path, gauge_field, values, kind)
-            found = found or len(frame) > 0
-            yield frame
+            held = [_parquet_rows_of(file_path, gauge_field, values, kind)]
+            found = found or len(held[0]) > 0
+            yield held.pop()  # handed over: this generator keeps no reference to it
     finally:
         pa.set_memory_pool(previous_pool)
     if not found:  # no row of any gauge: a few rows say which ids the table holds
@@ -286,7 +288,9 @@ def _parquet_rows_of(file_path, gauge_field, values, kind):
     import pyarrow.compute as pc
     import pyarrow.parquet as pq
 
-    source = pq.ParquetFile(file_path)
+    text_ids = pa.types.is_string(kind) or pa.types.is_large_string(kind)
+    # Text ids come as a dictionary (a category column: a small number a row, not the text).
+    source = pq.ParquetFile(file_path, read_dictionary=[gauge_field] if text_ids else None)
     wanted = pa.array(values, type=kind) if not pa.types.is_dictionary(kind) else pa.array(values)
     column = source.schema_arrow.get_field_index(gauge_field)
     low, high = min(values), max(values)
@@ -305,6 +309,31 @@ def _parquet_rows_of(file_path, gauge_field, values, kind):
     if hasattr(pool, "release_unused"):
         pool.release_unused()  # hand the row groups' memory back before the hydrology runs
     return frame
+
+
+#: Arrays at least this large (bytes) get memory of their own from the system while a table is
+#: read in gauge groups (see :func:`_large_arrays_apart`).
+_APART_BYTES = 4 << 20
+
+
+def _large_arrays_apart():
+    """Have glibc give each large array memory of its own, handed back the moment it is freed.
+
+    By default glibc raises that threshold after the first large array is freed, and later ones
+    come from its heap, where a freed array caught between live small pieces cannot be handed
+    back: group after group the heap grows (2000 gauges in 8 groups: 430 MB of heap, 310 MB of
+    it free). A fixed threshold keeps the heap to what is in use. Linux with glibc only;
+    elsewhere nothing. It stays set for the process (a run reading in groups is a command-line
+    run, its own process).
+    """
+    import ctypes
+    import ctypes.util
+
+    name = ctypes.util.find_library("c") if sys.platform.startswith("linux") else None
+    try:
+        ctypes.CDLL(name).mallopt(-3, _APART_BYTES)  # -3: M_MMAP_THRESHOLD
+    except (OSError, AttributeError, TypeError):
+        pass
 
 
 def _hand_back_memory():
@@ -389,7 +418,10 @@ def _text_groups(file_path, gauge_field, batches, what):
         for group in range(len(batches)):
             if group in written:
                 _hand_back_memory()  # the previous group is let go by now
-                yield pd.read_csv(Path(folder) / f"{group}.csv", dtype=str, **TEXT_MISSING)
+                # Text, as any table is read; the group's ids as categories (a small number a
+                # row: they repeat on every row, and as text they would be most of its memory).
+                dtypes = collections.defaultdict(lambda: str, {gauge_field: "category"})
+                yield pd.read_csv(Path(folder) / f"{group}.csv", dtype=dtypes, **TEXT_MISSING)
         if not written and samples:  # no row of any gauge: a few rows say which ids it holds
             yield pd.concat(samples, ignore_index=True)
 

@@ -1206,6 +1206,7 @@ def _compute_in_groups(
     for chunk in chunks:
         records = _records(chunk, settings)
         tally.add(len(chunk), records, wanted)
+        del chunk  # the records hold the group's flows now; its table is not needed
         here = [gid for gid in gauge_ids if gid in records and gid not in results]
         extra = {gid: record for gid, record in records.items() if gid not in wanted}
         part, lost = compute_gauges(
@@ -1222,7 +1223,7 @@ def _compute_in_groups(
         failed += lost
         if sink is not None:
             _to_sink(part, sink)
-        del records, chunk  # before the next group is read, not after
+        del records  # before the next group is read, not after
     missing = [gid for gid in gauge_ids if gid not in results]
     if missing:
         rest, _ = compute_gauges(

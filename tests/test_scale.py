@@ -232,6 +232,9 @@ def test_parquet_rows_of_a_gauge_group(tmp_path, kind):
     arrow_kind = pq.ParquetFile(path).schema_arrow.field("gauge_id").type
     wanted = list(column[[0, 150]])  # gauges 1 and 4
     got = _parquet_rows_of(path, "gauge_id", wanted, arrow_kind)
+    if kind == "text":  # read as categories: a small number a row, not the text
+        assert isinstance(got["gauge_id"].dtype, pd.CategoricalDtype)
+        got["gauge_id"] = got["gauge_id"].astype(object)
     expected = table[table["gauge_id"].isin(wanted)].reset_index(drop=True)
     pd.testing.assert_frame_equal(got.reset_index(drop=True), expected, check_dtype=False)
     absent = {"text": "90", "whole numbers": 90, "decimals": 90.0}[kind]
@@ -239,3 +242,30 @@ def test_parquet_rows_of_a_gauge_group(tmp_path, kind):
     assert len(none) == 0 and list(none.columns) == ["gauge_id", "discharge"]
     groups = list(discharge_groups(path, "gauge_id", ["1", "2", "3", "9"], 2))
     assert [sorted(set(g["gauge_id"].astype(float).astype(int))) for g in groups] == [[1, 2], [3]]
+
+
+@pytest.mark.parametrize("suffix", [".parquet", ".csv"])
+def test_a_gauge_group_is_let_go_once_used(tmp_path, suffix):
+    """The group reader keeps no reference to a group it has handed over, so the group's table
+    is freed as soon as the run is done with it, not when the next group has been read."""
+    import gc
+    import weakref
+
+    import numpy as np
+
+    from recharge_atlas.algorithms.files import discharge_groups
+
+    if suffix == ".parquet":
+        pytest.importorskip("pyarrow")
+    ids = np.repeat(np.array(["A1", "B2", "C3"]), 40)
+    table = pd.DataFrame({"gauge_id": ids, "discharge": np.arange(ids.size, dtype=float)})
+    path = tmp_path / f"q{suffix}"
+    table.to_parquet(path, index=False) if suffix == ".parquet" else table.to_csv(path, index=False)
+    groups = discharge_groups(path, "gauge_id", ["A1", "B2", "C3"], 1)
+    first = next(groups)
+    assert set(first["gauge_id"].astype(str)) == {"A1"}
+    held = weakref.ref(first)
+    del first
+    gc.collect()
+    assert held() is None
+    assert [set(g["gauge_id"].astype(str)) for g in groups] == [{"B2"}, {"C3"}]
