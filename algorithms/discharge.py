@@ -155,8 +155,9 @@ class DateReading:
 
     Attributes
     ----------
-    stamps : numpy.ndarray of datetime64[ns]
-        One per row; NaT where the row has no date or one that could not be read.
+    stamps : numpy.ndarray of datetime64
+        One per row; NaT where the row has no date or one that could not be read. In
+        nanoseconds, or in the column's own unit when it came typed as dates (no copy).
     unreadable : numpy.ndarray of bool
         Rows holding a value that could not be read as a date (empty cells are not counted).
     offset : numpy.ndarray of bool
@@ -208,7 +209,10 @@ def read_dates(values) -> DateReading:
         if getattr(stamps.dt, "tz", None) is not None:
             stamps = stamps.dt.tz_localize(None)  # the clock time as written
         none = np.zeros(len(column), dtype=bool)
-        return DateReading(stamps.to_numpy(dtype="datetime64[ns]"), none, none)
+        native = stamps.to_numpy()
+        if native.dtype.kind != "M" or np.datetime_data(native.dtype)[0] not in _TICK_UNITS:
+            native = stamps.to_numpy(dtype="datetime64[ns]")
+        return DateReading(native, none, none)
     with warnings.catch_warnings():  # pandas 1.5 warns of a change to come for mixed objects
         warnings.simplefilter("ignore", FutureWarning)
         codes, uniques = pd.factorize(column, use_na_sentinel=True)
@@ -493,7 +497,7 @@ def tidy_discharge(
     records = _split_gauges(
         [str(n) for n in names],
         codes,
-        _as_int64(stamp[kept]),
+        *_ticks(stamp[kept]),
         values,
         {
             "missing": was_missing[kept],
@@ -560,12 +564,17 @@ def _row_numbers(rows, n):
     return np.arange(n) if isinstance(rows, slice) else rows
 
 
-def _as_int64(stamps):
-    """Nanosecond time stamps as int64 (a view when they are datetime64[ns] already)."""
+#: Units a column typed as dates may keep (pandas 2 and later read Parquet dates in µs).
+_TICK_UNITS = ("s", "ms", "us", "ns")
+
+
+def _ticks(stamps):
+    """Time stamps as int64 ticks (a view, no copy) and how many ticks make a day."""
     stamps = np.asarray(stamps)
-    if stamps.dtype == np.dtype("datetime64[ns]"):
-        return stamps.view(np.int64)
-    return stamps.astype("datetime64[ns]").astype(np.int64)
+    unit = np.datetime_data(stamps.dtype)[0]
+    if unit not in _TICK_UNITS:
+        stamps, unit = stamps.astype("datetime64[ns]"), "ns"
+    return stamps.view(np.int64), int(np.timedelta64(1, "D") // np.timedelta64(1, unit))
 
 
 def _first_of_each(groups, positions, column):
@@ -651,10 +660,7 @@ def _no_numbers_message(column, non_numeric):
     return text
 
 
-_NS_PER_DAY = 86_400 * 10**9
-
-
-def _by_gauge_and_time(codes, stamps_ns):
+def _by_gauge_and_time(codes, ticks):
     """The stable order that sorts rows by gauge, then time; None when they already are.
 
     Exports usually come sorted, each gauge's rows in one block in time order (gauge codes
@@ -664,12 +670,12 @@ def _by_gauge_and_time(codes, stamps_ns):
     if codes.size < 2:
         return None
     same = codes[1:] == codes[:-1]
-    if (codes[1:] >= codes[:-1]).all() and ((stamps_ns[1:] >= stamps_ns[:-1]) | ~same).all():
+    if (codes[1:] >= codes[:-1]).all() and ((ticks[1:] >= ticks[:-1]) | ~same).all():
         return None
-    return np.lexsort((stamps_ns, codes))
+    return np.lexsort((ticks, codes))
 
 
-def _median_steps(codes, stamps_ns, n_gauges):
+def _median_steps(codes, ticks, per_day, n_gauges):
     """Median step between the successive time stamps of each gauge, in days (NaN with fewer
     than two); rows are sorted by gauge and time, one per time."""
     bounds = np.searchsorted(codes, np.arange(n_gauges + 1, dtype=codes.dtype))
@@ -677,26 +683,27 @@ def _median_steps(codes, stamps_ns, n_gauges):
     for g in range(n_gauges):  # one gauge's steps at a time: no row-length temporary
         a, b = bounds[g], bounds[g + 1]
         if b - a >= 2:
-            out[g] = float(np.median(np.diff(stamps_ns[a:b]))) / _NS_PER_DAY
+            out[g] = float(np.median(np.diff(ticks[a:b]))) / per_day
     return out
 
 
-def _split_gauges(names, codes, stamps_ns, values, problems, flagged, min_day_coverage):
+def _split_gauges(names, codes, ticks, per_day, values, problems, flagged, min_day_coverage):
     """One GaugeRecord per gauge, from the rows of all gauges at once (no loop over rows).
 
-    Rows are sorted by gauge and time; values of one day are averaged (sub-daily days with too
-    few values are dropped); each gauge's days are laid on a complete daily range.
+    ``ticks`` are the rows' time stamps as int64, ``per_day`` of them to a day. Rows are sorted
+    by gauge and time; values of one day are averaged (sub-daily days with too few values are
+    dropped); each gauge's days are laid on a complete daily range.
     """
-    order = _by_gauge_and_time(codes, stamps_ns)
+    order = _by_gauge_and_time(codes, ticks)
     if order is not None:
-        codes, stamps_ns, values, flagged = (
+        codes, ticks, values, flagged = (
             codes[order],
-            stamps_ns[order],
+            ticks[order],
             values[order],
             flagged[order],
         )
         problems = {k: v[order] for k, v in problems.items()}
-    day = np.floor_divide(stamps_ns, _NS_PER_DAY).astype(np.int32)  # days since 1970 fit
+    day = np.floor_divide(ticks, per_day).astype(np.int32)  # days since 1970 fit
     n_gauges = len(names)
     problem_counts = {
         k: np.bincount(codes[v], minlength=n_gauges).astype(int) for k, v in problems.items()
@@ -704,7 +711,7 @@ def _split_gauges(names, codes, stamps_ns, values, problems, flagged, min_day_co
 
     # Typical step between distinct time stamps of each gauge (sub-daily when under a day).
     distinct = np.ones(codes.size, bool)
-    distinct[1:] = (codes[1:] != codes[:-1]) | (stamps_ns[1:] != stamps_ns[:-1])
+    distinct[1:] = (codes[1:] != codes[:-1]) | (ticks[1:] != ticks[:-1])
     # Rows repeating a time already given: merged (their mean is the day's value), counted,
     # and counted as conflicting where their values differ.
     if not distinct.all():
@@ -725,10 +732,10 @@ def _split_gauges(names, codes, stamps_ns, values, problems, flagged, min_day_co
         with np.errstate(invalid="ignore", divide="ignore"):
             values = np.where(given > 0, total / np.maximum(given, 1), np.nan)
         flagged = np.maximum.reduceat(flagged.astype(np.int8), runs).astype(bool)
-        codes, stamps_ns, day = run_code, stamps_ns[runs], day[runs]
+        codes, ticks, day = run_code, ticks[runs], day[runs]
     else:
         repeated = conflicting = np.zeros(n_gauges, dtype=int)
-    step_of = _median_steps(codes, stamps_ns, n_gauges)
+    step_of = _median_steps(codes, ticks, per_day, n_gauges)
 
     # Daily means of the usable values: one run of rows per gauge and day.
     new_day = np.ones(codes.size, bool)

@@ -133,3 +133,29 @@ def test_row_order_does_not_change_the_records(arrangement):
         pd.testing.assert_series_equal(got[gauge].flow, record.flow)
     if arrangement == "repeats at the end":
         assert got["B7"].counts["repeated_rows"] == 2
+
+
+@pytest.mark.parametrize("unit", ["s", "ms", "us", "ns"])
+def test_typed_dates_in_any_unit_give_the_same_records(unit):
+    """Dates typed as such are read in their own unit (no copy): daily and quarter-hourly
+    records, repeated times and gaps come out as from the same dates written as text."""
+    daily = pd.date_range("2019-12-30", periods=6, freq="D")
+    quarter = pd.date_range("2020-01-01", periods=2 * 96, freq="15min")
+    stamps = np.concatenate([daily.to_numpy(), daily[:2].to_numpy(), quarter.to_numpy()])
+    values = np.arange(stamps.size, dtype=float)
+    values[3] = np.nan
+    ids = ["D"] * (daily.size + 2) + ["Q"] * quarter.size
+    text = tidy_discharge(
+        pd.DataFrame({"gauge_id": ids, "date": pd.Series(stamps).astype(str), "discharge": values})
+    )
+    typed = tidy_discharge(
+        pd.DataFrame(
+            {"gauge_id": ids, "date": stamps.astype(f"datetime64[{unit}]"), "discharge": values}
+        )
+    )
+    assert list(typed) == list(text) == ["D", "Q"]
+    for gid in text:
+        pd.testing.assert_series_equal(typed[gid].flow, text[gid].flow)
+        pd.testing.assert_series_equal(typed[gid].flagged, text[gid].flagged)
+        assert typed[gid].counts == text[gid].counts
+    assert text["Q"].counts["sub_daily"] and text["D"].counts["repeated_rows"] == 2
