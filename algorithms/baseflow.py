@@ -22,6 +22,8 @@ from __future__ import annotations
 import numpy as np
 from scipy.signal import lfilter
 
+from .rises import gap_free_blocks
+
 #: Typical BFImax for the Eckhardt filter (Eckhardt 2005, from his comparison with
 #: graphical separations; values quoted from memory of that paper's recommendations).
 BFIMAX_TYPICAL = {
@@ -89,9 +91,7 @@ def _block_rows(valid, reverse=False):
     has. Blocks whose lengths share a power of two go together, so padding at most doubles the
     work, and a record with hundreds of gaps takes a dozen array passes instead of hundreds.
     """
-    padded = np.concatenate([[False], valid, [False]])
-    change = np.flatnonzero(np.diff(padded.astype(np.int8)))
-    starts, ends = change[::2], change[1::2]
+    starts, ends = gap_free_blocks(valid)
     if starts.size == 1:  # a record without gaps
         yield _one_block(int(starts[0]), int(ends[0]), reverse)
         return

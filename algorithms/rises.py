@@ -60,8 +60,9 @@ def rise_threshold(logq, min_rise=0.01, noise_multiple=5.0) -> float:
     return float(max(min_rise, noise_multiple * noise_level(logq)))
 
 
-def _blocks(valid):
-    """Start and end (exclusive) of each run of True values."""
+def gap_free_blocks(valid):
+    """Start and end (exclusive) of each run of True values (the gap-free blocks of a record,
+    given where it has a value)."""
     padded = np.concatenate([[False], valid, [False]])
     change = np.flatnonzero(np.diff(padded.astype(np.int8)))
     return change[::2], change[1::2]
@@ -247,7 +248,7 @@ def find_rises(logq, lag_days, threshold) -> Rises:
         Smallest rise treated as an event, in log10 units (see :func:`rise_threshold`).
     """
     x = np.asarray(logq, dtype=float)
-    starts, ends = _blocks(np.isfinite(x))
+    starts, ends = gap_free_blocks(np.isfinite(x))
     troughs, peaks, block = _turning_points(x, starts, ends, threshold)
     hidden_block, hidden_peak = _rises_hidden_in_gaps(x, starts, ends, troughs, block, threshold)
     # The flow rose during a gap: keep the event so its year is not taken as complete,
