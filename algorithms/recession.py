@@ -253,7 +253,7 @@ def combine_segments(segments, quantile=0.5, n_boot=200, seed=0):
     if slopes.size < 2 or n_boot <= 0:
         return k, np.nan, np.nan
     counts = _resample_counts(slopes.size, n_boot, seed)
-    boot = _k_from(slopes, counts * weights[None, :], quantile)
+    boot = _k_from(slopes, counts * _whole_weights(weights, counts.shape[1])[None, :], quantile)
     boot = np.sort(boot[np.isfinite(boot)])
     if boot.size == 0:
         return k, np.nan, np.nan
@@ -295,9 +295,17 @@ def _uniform_draws(n_boot, seed, at_least):
     return block
 
 
+def _whole_weights(weights, n):
+    """Weights that are whole numbers as int32 when any resample's total fits (sums of whole
+    numbers are exact either way; int32 halves the memory the resamples pass over)."""
+    if weights.size and np.all(weights == np.round(weights)) and weights.max() * n < 2**31:
+        return weights.astype(np.int32)
+    return weights
+
+
 def _k_from(sorted_slopes, weights, quantile):
     """K from the weighted ``quantile`` of sorted slopes, for each row of ``weights``."""
-    cum = np.cumsum(weights, axis=1)
+    cum = np.cumsum(weights, axis=1, dtype=weights.dtype if weights.dtype == np.int32 else float)
     # Slopes are negative; the slow end (large K) has the slopes nearest zero, at the top.
     idx = (cum < quantile * cum[:, -1:]).sum(axis=1)
     slope = sorted_slopes[np.minimum(idx, sorted_slopes.size - 1)]

@@ -120,3 +120,19 @@ def test_warnings_for_few_segments_and_unusual_k():
     assert any("outside the usual" in w for w in recession_warnings(500.0, 40))
     assert recession_warnings(40.0, 40) == []
     assert recession_warnings(40.0) == []  # a K the user gave has no segment count
+
+
+def test_bootstrap_in_whole_numbers_matches_floats():
+    """Whole-day weights go through the resamples as int32; the interval is the same as with
+    the weights as floats (sums of whole numbers are exact in both)."""
+    from recharge_atlas.algorithms.recession import _k_from, _resample_counts, _whole_weights
+
+    rng = np.random.default_rng(5)
+    slopes = np.sort(-rng.uniform(0.002, 0.05, 300))
+    days = rng.integers(7, 120, 300).astype(float)
+    assert _whole_weights(days, 300).dtype == np.int32
+    assert _whole_weights(days + 0.5, 300).dtype == float
+    counts = _resample_counts(300, 200, 0)
+    as_int = _k_from(slopes, counts * _whole_weights(days, 300)[None, :], 0.5)
+    as_float = _k_from(slopes, counts * days[None, :], 0.5)
+    np.testing.assert_array_equal(as_int, as_float)
