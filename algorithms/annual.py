@@ -330,7 +330,9 @@ def annual_columns(
         if k is not None:
             storage = _storage_change(days, b, k, bounds)
     seasonal = (
-        _seasonal_recession(slot, baseflow, k, n) if k is not None and baseflow is not None else nan
+        _seasonal_recession(slot, baseflow, k, n, in_record)
+        if k is not None and baseflow is not None
+        else nan
     )
     recharge_mm = _mm(recharge, area_km2)
     baseflow_mm = _mm(base_m3, area_km2)
@@ -375,7 +377,7 @@ def _storage_change(days, baseflow, k, bounds):
     return out
 
 
-def _seasonal_recession(slot, baseflow, k, n_years):
+def _seasonal_recession(slot, baseflow, k, n_years, days_per_year=None):
     """Recharge by the seasonal recession method (Meyboom 1961), m³ per water year.
 
     Each water year's seasonal recession ends on its day of lowest baseflow. The next seasonal
@@ -388,12 +390,17 @@ def _seasonal_recession(slot, baseflow, k, n_years):
     if not np.isfinite(b).any():
         return out
     # Lowest day of each year (the first of equals); days of a year are contiguous.
-    starts = np.concatenate(([0], np.flatnonzero(np.diff(slot)) + 1))
+    if days_per_year is None:  # the years present and their lengths, from the days' slots
+        starts = np.concatenate(([0], np.flatnonzero(np.diff(slot)) + 1))
+        lengths = np.diff(np.append(starts, b.size))
+    else:  # given: every year from the first to the last has days in the record
+        lengths = np.asarray(days_per_year)
+        starts = np.concatenate(([0], np.cumsum(lengths)[:-1]))
     years_present = slot[starts]
     filled = np.where(np.isfinite(b), b, np.inf)
     lowest_value = np.minimum.reduceat(filled, starts)
     at_lowest = np.where(
-        filled == np.repeat(lowest_value, np.diff(np.append(starts, b.size))),
+        filled == np.repeat(lowest_value, lengths),
         np.arange(b.size),
         b.size,
     )

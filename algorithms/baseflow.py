@@ -248,10 +248,11 @@ def smoothed_minima(flow, block_days=MINIMA_BLOCK_DAYS, turning_factor=MINIMA_TU
     if n_blocks < 3:
         return out
     blocks = q[: n_blocks * block_days].reshape(n_blocks, block_days)
-    complete = np.isfinite(blocks).all(axis=1)
-    safe = np.where(np.isfinite(blocks), blocks, np.inf)
-    where = safe.argmin(axis=1)
-    minima = np.where(complete, safe[np.arange(n_blocks), where], np.nan)
+    finite = np.isfinite(blocks)
+    where = np.where(finite, blocks, np.inf).argmin(axis=1)
+    minima = blocks[np.arange(n_blocks), where]
+    if not finite.all():
+        minima = np.where(finite.all(axis=1), minima, np.nan)
     day = np.arange(n_blocks) * block_days + where
     left, mid, right = minima[:-2], minima[1:-1], minima[2:]
     with np.errstate(invalid="ignore"):

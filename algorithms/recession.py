@@ -172,7 +172,8 @@ class _Sums:
         finite = np.isfinite(x)
         xf = np.where(finite, x, 0.0)
         self.bad = ~finite
-        self.next_bad = _next_true(self.bad)
+        # The next unusable day from each day on (none: the record's length).
+        self.next_bad = _next_true(self.bad) if self.bad.any() else np.full(x.size, x.size)
         # Sums of x, t·x and x² from the start; sums over t alone have closed forms.
         stacked = np.empty((3, x.size + 1))
         stacked[:, 0] = 0.0

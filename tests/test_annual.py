@@ -70,3 +70,20 @@ def test_partial_first_and_last_years_are_incomplete():
     table = annual_recharge(pd.Series(1.0, index=days), _events([], []), 10.0, 10)
     assert not table["complete"].any()
     assert np.isnan(mean_annual(table))
+
+
+def test_seasonal_recession_with_the_years_lengths_given():
+    """The seasonal recession sums are the same whether each water year's length comes from
+    the day slots or is given (as the annual table gives it, from its cached calendar)."""
+    from recharge_atlas.algorithms.annual import _day_slots, _seasonal_recession
+
+    rng = np.random.default_rng(3)
+    day0 = int(np.datetime64("1991-03-17", "D").astype(np.int64))
+    first, slot, per_year = _day_slots(day0, 9 * 365, "year", 10)
+    b = np.exp(np.sin(np.arange(slot.size) / 58.0) + rng.normal(0, 0.05, slot.size))
+    b[rng.integers(0, slot.size, 200)] = np.nan
+    b[400:800] = np.nan  # a whole stretch missing
+    found = _seasonal_recession(slot, b, 45.0, per_year.size)
+    given = _seasonal_recession(slot, b, 45.0, per_year.size, per_year)
+    np.testing.assert_array_equal(found, given)
+    assert np.isfinite(found).sum() >= 5
