@@ -1250,13 +1250,16 @@ SINK_TABLES = ("events", "periods", "segments", "master_recession")
 
 def _to_sink(results, sink):
     """Hand these gauges' :data:`SINK_TABLES` to ``sink(name, frame)`` (one frame per table,
-    the gauges in order) and let the gauges' own copies go."""
+    the gauges in order) and let the gauges' own copies go (the recession's segment columns
+    too: they are the segments table's)."""
     for name in SINK_TABLES:
         sink(name, _stack(results, name, share=False))
     for result in results.values():
         result.kept_event_figures = result.event_figures()
         for name in SINK_TABLES:
             result.tables.pop(name, None)
+        if result.recession is not None:
+            result.recession.segment_columns = None
 
 
 class _Tally:

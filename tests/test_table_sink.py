@@ -49,6 +49,9 @@ def test_the_sink_gets_every_row_in_the_gauges_order(demo_region, kept, size):
         assert len(getattr(sunk, name)) == 0
         assert list(getattr(sunk, name).columns) == list(getattr(kept, name).columns)
         assert all(name not in g.tables for g in sunk.gauges.values())
+    assert all(
+        g.recession is None or g.recession.segment_columns is None for g in sunk.gauges.values()
+    )
     # What the catchments and the gauge table say about events comes out the same.
     pd.testing.assert_frame_equal(
         sunk.catchments.drop(columns="geometry"), kept.catchments.drop(columns="geometry")
