@@ -222,11 +222,31 @@ def discharge_groups(
     suffix = file_path.suffix.lower()
     _large_arrays_apart()
     if suffix == ".parquet":
-        yield from _parquet_groups(file_path, gauge_field, batches, what)
+        with _system_arrow_memory():
+            yield from _parquet_groups(file_path, gauge_field, batches, what)
     elif suffix in TEXT_SUFFIXES:
-        yield from _text_groups(file_path, gauge_field, batches, what)
+        with _system_arrow_memory():  # pandas 3 keeps text columns in Arrow's memory
+            yield from _text_groups(file_path, gauge_field, batches, what)
     else:
         yield read_table(path, what)
+
+
+@contextmanager
+def _system_arrow_memory():
+    """Arrow allocates from the system's allocator while the groups are read: its own keeps
+    what a group freed for later, the system's hands it back, so one group's memory is not
+    still held while the next is read (nothing when pyarrow is not installed)."""
+    try:
+        import pyarrow as pa
+    except ImportError:
+        yield
+        return
+    previous = pa.default_memory_pool()
+    pa.set_memory_pool(pa.system_memory_pool())
+    try:
+        yield
+    finally:
+        pa.set_memory_pool(previous)
 
 
 def _parquet_groups(file_path, gauge_field, batches, what):
@@ -250,28 +270,19 @@ def _parquet_groups(file_path, gauge_field, batches, what):
         )
     kind = schema.field(gauge_field).type
     found = False
-    # Arrow's own allocator keeps what a group freed for later; the system's hands it back,
-    # so one group's memory is not still held while the next is read.
-    previous_pool = pa.default_memory_pool()
-    pa.set_memory_pool(pa.system_memory_pool())
-    try:
-        for batch in batches:
-            if pa.types.is_integer(kind) or pa.types.is_floating(kind):
-                values = [
-                    float(g) if pa.types.is_floating(kind) else int(g)
-                    for g in batch
-                    if _is_number(g)
-                ]
-            else:
-                values = [str(g) for g in batch]
-            if not values:
-                continue
-            _hand_back_memory()  # the previous group is let go by now
-            held = [_parquet_rows_of(file_path, gauge_field, values, kind)]
-            found = found or len(held[0]) > 0
-            yield held.pop()  # handed over: this generator keeps no reference to it
-    finally:
-        pa.set_memory_pool(previous_pool)
+    for batch in batches:
+        if pa.types.is_integer(kind) or pa.types.is_floating(kind):
+            values = [
+                float(g) if pa.types.is_floating(kind) else int(g) for g in batch if _is_number(g)
+            ]
+        else:
+            values = [str(g) for g in batch]
+        if not values:
+            continue
+        _hand_back_memory()  # the previous group is let go by now
+        held = [_parquet_rows_of(file_path, gauge_field, values, kind)]
+        found = found or len(held[0]) > 0
+        yield held.pop()  # handed over: this generator keeps no reference to it
     if not found:  # no row of any gauge: a few rows say which ids the table holds
         for rows in pq.ParquetFile(file_path).iter_batches(batch_size=10_000):
             yield rows.to_pandas().drop_duplicates(gauge_field).head(_SAMPLE_IDS)
