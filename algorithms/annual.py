@@ -288,7 +288,10 @@ def annual_columns(
     q = np.asarray(q, dtype=float)
     has_value = np.isfinite(q)
     seconds = 86400.0
-    with_value = np.bincount(slot, weights=has_value.astype(float), minlength=n)
+    if has_value.all():  # no gap: the days with a value are the days in the record
+        with_value = in_record.astype(float)
+    else:
+        with_value = np.bincount(slot, weights=has_value.astype(float), minlength=n)
     flow_m3 = _per_slot(slot, np.where(has_value, q, 0.0) * seconds, n)
 
     def event_slots(table):
@@ -324,7 +327,10 @@ def annual_columns(
         b = np.asarray(baseflow, dtype=float)
         both = np.isfinite(b) & has_value
         base_m3 = _per_slot(slot, np.where(both, b, 0.0) * seconds, n)
-        flow_both = _per_slot(slot, np.where(both, q, 0.0) * seconds, n)
+        if np.count_nonzero(both) == np.count_nonzero(has_value):  # baseflow on every day
+            flow_both = flow_m3  # with a flow value: the same sums
+        else:
+            flow_both = _per_slot(slot, np.where(both, q, 0.0) * seconds, n)
         with np.errstate(invalid="ignore", divide="ignore"):
             bfi = np.where(flow_both > 0, base_m3 / flow_both, np.nan)
         if k is not None:

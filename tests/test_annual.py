@@ -87,3 +87,25 @@ def test_seasonal_recession_with_the_years_lengths_given():
     given = _seasonal_recession(slot, b, 45.0, per_year.size, per_year)
     np.testing.assert_array_equal(found, given)
     assert np.isfinite(found).sum() >= 5
+
+
+@pytest.mark.parametrize("gaps", [False, True])
+def test_baseflow_index_by_water_year_counts_days_with_both(gaps):
+    """A year's baseflow index is Σ baseflow / Σ flow over the days that have both (the
+    definition, worked by hand here), with or without days where only the flow is known."""
+    from recharge_atlas.algorithms.annual import annual_columns
+
+    days = np.datetime64("2001-10-01") + np.arange(730).astype("timedelta64[D]")
+    rng = np.random.default_rng(7)
+    q = rng.uniform(1.0, 5.0, days.size)
+    b = 0.6 * q
+    if gaps:
+        b[rng.integers(0, days.size, 40)] = np.nan
+        q[5] = np.nan
+        b[5] = np.nan
+    empty = {"peak_date": np.array([], "datetime64[ns]"), "recharge_m3": [], "used": []}
+    table = annual_columns(days, q, empty, 100.0, 10, baseflow=b)
+    for i, start in enumerate((0, 365)):
+        ok = np.isfinite(q[start : start + 365]) & np.isfinite(b[start : start + 365])
+        expected = b[start : start + 365][ok].sum() / q[start : start + 365][ok].sum()
+        assert table["baseflow_index"][i] == pytest.approx(expected, rel=1e-12)
