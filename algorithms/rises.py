@@ -115,10 +115,10 @@ def _turning_points(x, starts, ends, threshold):
     Peaks come from ``scipy.signal.find_peaks`` (compiled) run once over all blocks laid end to
     end with a wall of +inf after each: a wall is higher ground that stops every search for
     local maxima and prominence exactly where a record of the block alone would end, so each
-    block gets the peaks it gets alone. The walls themselves are dropped. No loop over days or
-    blocks.
+    block gets the peaks it gets alone. The walls themselves are dropped before prominences are
+    sought. No loop over days or blocks.
     """
-    from scipy.signal import find_peaks
+    from scipy.signal import find_peaks, peak_prominences
 
     empty = np.empty(0, int)
     lengths = ends - starts
@@ -135,8 +135,13 @@ def _turning_points(x, starts, ends, threshold):
         walled_at = offsets + 1 + np.arange(starts.size)  # each block's first slot after a wall
         walled = np.full(positions.size + starts.size + 1, np.inf)
         walled[positions - starts[span] + walled_at[span]] = x[positions]
-        found, _ = find_peaks(walled, prominence=threshold)
+        # The local maxima, walls left out before their prominence is sought: a wall's search
+        # for higher ground would run to both ends of the layout (no wall is higher than
+        # another), one pass over every day for each wall. The same peaks as
+        # find_peaks(walled, prominence=threshold), which keeps prominences ≥ threshold.
+        found, _ = find_peaks(walled)
         found = found[np.isfinite(walled[found])]
+        found = found[peak_prominences(walled, found)[0] >= threshold]
         block = np.searchsorted(walled_at, found, side="right") - 1
         peaks = found - walled_at[block] + starts[block]
 
