@@ -19,6 +19,8 @@ Institute of Hydrology (1980). Low Flow Studies, Report No. 1. Wallingford, UK.
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 from scipy.signal import lfilter
 
@@ -142,10 +144,11 @@ def _bounded_recursion(a, u, y_first, bound, upper=True):
     y[:, 0] = y_first
     if n > 1:
         pick = np.minimum if upper else np.maximum
-        chunk = min(n - 1, max(1, int(np.floor(600.0 / max(-np.log(a), 1e-12)))))
-        # a^s and a^−s for s = 0 … chunk − 1, by running products (exact to ~chunk × 1e-16).
-        grow = np.cumprod(np.concatenate(([1.0], np.full(chunk - 1, 1.0 / a))))
-        shrink = np.cumprod(np.concatenate(([1.0], np.full(chunk - 1, a))))
+        longest = max(1, int(np.floor(600.0 / max(-np.log(a), 1e-12))))
+        chunk = min(n - 1, longest)
+        # a^s and a^−s for s = 0 … chunk − 1 (a power of two of them at least, shared by the
+        # calls of one filter: the first values of a running product do not depend on its length).
+        grow, shrink = _powers(a, min(longest, 1 << (chunk - 1).bit_length()))
         i = 1
         while i < n:
             j = min(n, i + chunk)
@@ -155,6 +158,17 @@ def _bounded_recursion(a, u, y_first, bound, upper=True):
             y[:, i:j] = free + pick(0.0, running * shrink[:m])
             i = j
     return y if u.ndim == 2 else y[0]
+
+
+@functools.lru_cache(maxsize=16)
+def _powers(a, length):
+    """a^s and a^−s for s = 0 … length − 1, by running products (exact to ~length × 1e-16;
+    read-only, kept: a filter's blocks all use the same ``a``)."""
+    grow = np.cumprod(np.concatenate(([1.0], np.full(length - 1, 1.0 / a))))
+    shrink = np.cumprod(np.concatenate(([1.0], np.full(length - 1, a))))
+    grow.setflags(write=False)
+    shrink.setflags(write=False)
+    return grow, shrink
 
 
 def eckhardt(flow, recession_index_days, bfi_max=0.80):
