@@ -337,24 +337,23 @@ def _large_arrays_apart():
     elsewhere nothing. It stays set for the process (a run reading in groups is a command-line
     run, its own process).
     """
-    import ctypes
-    import ctypes.util
-
-    name = ctypes.util.find_library("c") if sys.platform.startswith("linux") else None
-    try:
-        ctypes.CDLL(name).mallopt(-3, _APART_BYTES)  # -3: M_MMAP_THRESHOLD
-    except (OSError, AttributeError, TypeError):
-        pass
+    _ask_glibc("mallopt", -3, _APART_BYTES)  # -3: M_MMAP_THRESHOLD
 
 
 def _hand_back_memory():
     """Return freed memory to the system (glibc keeps some for reuse; elsewhere nothing)."""
+    _ask_glibc("malloc_trim", 0)
+
+
+def _ask_glibc(function, *arguments):
+    """Call one of glibc's allocator functions on Linux; elsewhere (or without it) nothing."""
+    if not sys.platform.startswith("linux"):
+        return
     import ctypes
     import ctypes.util
 
-    name = ctypes.util.find_library("c") if sys.platform.startswith("linux") else None
     try:
-        ctypes.CDLL(name).malloc_trim(0)
+        getattr(ctypes.CDLL(ctypes.util.find_library("c")), function)(*arguments)
     except (OSError, AttributeError, TypeError):
         pass
 
