@@ -661,14 +661,13 @@ def _gpkg_type(series):
 
 def _cells(series, kind):
     """A column's values as SQLite takes them (None for missing), converted column-wise."""
-    if kind in ("DATE", "DATETIME"):
+    if kind == "DATE":
         values = series.to_numpy(dtype="datetime64[ns]")
-        missing = np.isnat(values)
-        unit, suffix = ("D", "") if kind == "DATE" else ("s", "Z")
-        text = np.datetime_as_string(values.astype(f"datetime64[{unit}]"))
-        if suffix:
-            text = np.char.add(text, suffix)
-        return _with_none(text.tolist(), missing)
+        return _with_none(_day_texts(values.astype("datetime64[D]")), np.isnat(values))
+    if kind == "DATETIME":
+        values = series.to_numpy(dtype="datetime64[ns]")
+        text = np.char.add(np.datetime_as_string(values.astype("datetime64[s]")), "Z")
+        return _with_none(text.tolist(), np.isnat(values))
     if kind == "BOOLEAN":
         return series.to_numpy(dtype=bool).astype(np.int64).tolist()
     if kind == "INTEGER":
@@ -676,11 +675,31 @@ def _cells(series, kind):
     if kind == "DOUBLE":
         values = series.to_numpy(dtype=float)
         return _with_none(values.tolist(), ~np.isfinite(values))
+    if isinstance(series.dtype, pd.StringDtype):  # text already (pandas 3 reads text so)
+        return series.to_numpy(dtype=object, na_value=None).tolist()
     out = series.to_numpy(dtype=object)
     missing = pd.isna(out)
     text = np.array([str(v) for v in out], dtype=object) if len(out) else out
     text[missing] = None
     return text.tolist()
+
+
+def _day_texts(days):
+    """ISO texts (YYYY-MM-DD) of an array of days (datetime64[D]; NaT gives any text).
+
+    Each distinct day of the span is written once and looked up: a run's dates repeat over a
+    few decades of days, and writing each one anew was most of the cost of writing its tables.
+    """
+    numbers = days.view(np.int64)
+    known = ~np.isnat(days)
+    if not known.any():
+        return [None] * days.size
+    low, high = int(numbers[known].min()), int(numbers[known].max())
+    if high - low > 4 * days.size + 1000:  # few days far apart: write each
+        return np.datetime_as_string(days).tolist()
+    calendar = np.datetime_as_string(np.arange(low, high + 1).astype("datetime64[D]"))
+    calendar = calendar.astype(object)  # each text made once, then only referred to
+    return calendar[np.where(known, numbers - low, 0)].tolist()
 
 
 def _with_none(cells, missing):

@@ -90,3 +90,36 @@ def test_attribute_tables_keep_values_types_and_nulls(tmp_path):
     ]
     back = read_attribute_table(path, "t")
     assert list(back.columns) == list(frame.columns)
+
+
+@pytest.mark.parametrize(
+    "days",
+    [
+        ["2001-02-03", "NaT", "2001-02-03", "1999-12-31", "2030-06-01"],  # a span: a calendar
+        ["0001-01-01", "9999-12-31", "NaT"],  # far apart: each written
+        ["NaT", "NaT"],
+        [],
+    ],
+)
+def test_day_texts_are_numpys_iso_texts(days):
+    """The calendar lookup gives, day by day, numpy's own ISO text of each day."""
+    from recharge_atlas.algorithms.files import _day_texts
+
+    values = np.array(days, dtype="datetime64[D]")
+    got = _day_texts(values)
+    expected = np.datetime_as_string(values).tolist()
+    known = ~np.isnat(values)
+    assert len(got) == len(days)
+    assert [g for g, k in zip(got, known) if k] == [e for e, k in zip(expected, known) if k]
+
+
+def test_text_cells_keep_text_and_nulls_whatever_the_dtype():
+    """Text columns (pandas' string dtype or Python objects) go in as text, missing as NULL."""
+    import pandas as pd
+
+    from recharge_atlas.algorithms.files import _cells
+
+    values = ["A1", None, "C3"]
+    for series in (pd.Series(values, dtype=object), pd.Series(values, dtype="string")):
+        assert _cells(series, "TEXT") == ["A1", None, "C3"]
+    assert _cells(pd.Series([1, None], dtype=object), "TEXT") == ["1", None]
