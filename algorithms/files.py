@@ -697,9 +697,24 @@ def _day_texts(days):
     low, high = int(numbers[known].min()), int(numbers[known].max())
     if high - low > 4 * days.size + 1000:  # few days far apart: write each
         return np.datetime_as_string(days).tolist()
-    calendar = np.datetime_as_string(np.arange(low, high + 1).astype("datetime64[D]"))
-    calendar = calendar.astype(object)  # each text made once, then only referred to
-    return calendar[np.where(known, numbers - low, 0)].tolist()
+    first, calendar = _CALENDAR
+    if not (first <= low and high < first + calendar.size):
+        # One calendar serves every slice and date column of a run's tables: it grows to cover
+        # the days asked for (a year either side), within a bound.
+        last = first + calendar.size - 1
+        if calendar.size and max(high, last) - min(low, first) < _CALENDAR_DAYS:
+            low, high = min(low, first), max(high, last)
+        low, high = low - 366, high + 366
+        calendar = np.datetime_as_string(np.arange(low, high + 1).astype("datetime64[D]"))
+        first, calendar = low, calendar.astype(object)  # each text made once, then referred to
+        _CALENDAR[:] = first, calendar
+    return calendar.take(numbers - first, mode="clip").tolist()  # NaT's text is replaced
+
+
+#: The first day (as a number) and the texts of the calendar :func:`_day_texts` keeps, and the
+#: most days it grows to (about 270 years).
+_CALENDAR = [0, np.empty(0, dtype=object)]
+_CALENDAR_DAYS = 100_000
 
 
 def _with_none(cells, missing):

@@ -123,3 +123,13 @@ def test_text_cells_keep_text_and_nulls_whatever_the_dtype():
     for series in (pd.Series(values, dtype=object), pd.Series(values, dtype="string")):
         assert _cells(series, "TEXT") == ["A1", None, "C3"]
     assert _cells(pd.Series([1, None], dtype=object), "TEXT") == ["1", None]
+
+
+def test_day_texts_stay_right_as_the_calendar_is_reused_and_grows():
+    """Slices and columns of different spans, one after another, share one calendar."""
+    from recharge_atlas.algorithms.files import _day_texts
+
+    rng = np.random.default_rng(3)
+    for first, span in [(11000, 400), (10000, 3000), (11100, 50), (-5000, 9000), (40000, 20)]:
+        values = (first + rng.integers(0, span, 500)).astype("datetime64[D]")
+        assert _day_texts(values) == np.datetime_as_string(values).tolist()
