@@ -133,3 +133,42 @@ def test_day_texts_stay_right_as_the_calendar_is_reused_and_grows():
     for first, span in [(11000, 400), (10000, 3000), (11100, 50), (-5000, 9000), (40000, 20)]:
         values = (first + rng.integers(0, span, 500)).astype("datetime64[D]")
         assert _day_texts(values) == np.datetime_as_string(values).tolist()
+
+
+@pytest.mark.parametrize("most_parameters", [999, 7, 2])
+def test_rows_go_in_whole_and_in_order_whatever_the_rows_per_statement(
+    tmp_path, monkeypatch, most_parameters
+):
+    """Many rows per INSERT statement: every row arrives once, in order, with its fid; a
+    SQLite that takes few parameters gets fewer rows per statement (down to one)."""
+    import sqlite3
+
+    import pandas as pd
+
+    from recharge_atlas.algorithms import files
+
+    monkeypatch.setattr(files, "_most_parameters", lambda db: most_parameters)
+    monkeypatch.setattr(files, "ROWS_PER_INSERT", 250)  # slices that do not divide evenly
+    n = 1003
+    frame = pd.DataFrame(
+        {"i": np.arange(n), "x": np.arange(n) / 7.0, "t": [f"r{i}" for i in range(n)]}
+    )
+    path = tmp_path / "rows.gpkg"
+    with sqlite3.connect(path) as db:
+        db.execute(
+            "CREATE TABLE gpkg_contents (table_name TEXT, data_type TEXT, identifier TEXT, description TEXT, last_change TEXT)"
+        )
+        files.add_attribute_table(db, "rows", frame)
+    with sqlite3.connect(path) as db:
+        rows = db.execute("SELECT fid, i, x, t FROM rows ORDER BY fid").fetchall()
+    assert rows == [(i + 1, i, i / 7.0, f"r{i}") for i in range(n)]
+
+
+def test_most_parameters_falls_back_to_sqlites_old_default():
+    """Where Python cannot ask SQLite (before 3.11), 999 parameters are assumed."""
+    from recharge_atlas.algorithms.files import _most_parameters
+
+    class OldConnection:  # no getlimit
+        pass
+
+    assert _most_parameters(OldConnection()) == 999
