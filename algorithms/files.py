@@ -19,6 +19,7 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from pandas.api.types import union_categoricals
 
 from .errors import InputError, describe, listed, quoted
 
@@ -429,12 +430,35 @@ def _text_groups(file_path, gauge_field, batches, what):
         for group in range(len(batches)):
             if group in written:
                 _hand_back_memory()  # the previous group is let go by now
-                # Text, as any table is read; the group's ids as categories (a small number a
-                # row: they repeat on every row, and as text they would be most of its memory).
-                dtypes = collections.defaultdict(lambda: str, {gauge_field: "category"})
-                yield pd.read_csv(Path(folder) / f"{group}.csv", dtype=dtypes, **TEXT_MISSING)
+                yield _read_group_file(Path(folder) / f"{group}.csv", gauge_field)
         if not written and samples:  # no row of any gauge: a few rows say which ids it holds
             yield pd.concat(samples, ignore_index=True)
+
+
+#: Rows read at a time from a gauge group's temporary text file.
+GROUP_FILE_ROWS = 1 << 17
+
+
+def _read_group_file(path, gauge_field):
+    """A gauge group's rows from its temporary text file: text, as any table is read, and the
+    ids as categories (a small number a row: as text they would be most of its memory).
+
+    Read a slice of rows at a time and joined: the reader holds each value as a Python string
+    before the column takes it, and a slice's strings are let go before the next is read
+    (a group of 100 gauges × 30 years: 105 MB at the peak read whole, 77 MB so).
+    """
+    dtypes = collections.defaultdict(lambda: str, {gauge_field: "category"})
+    reader = pd.read_csv(path, dtype=dtypes, chunksize=GROUP_FILE_ROWS, **TEXT_MISSING)
+    with reader:
+        slices = list(reader)
+    if len(slices) == 1:
+        return slices[0]
+    columns = list(slices[0].columns)
+    # Joined apart from the ids: slices' categories differ, and joining them would give text.
+    ids = union_categoricals([part.pop(gauge_field) for part in slices], sort_categories=True)
+    frame = pd.concat(slices, ignore_index=True)
+    frame.insert(columns.index(gauge_field), gauge_field, ids)
+    return frame
 
 
 def _first_line(exc):

@@ -7,6 +7,7 @@ import subprocess
 import sys
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 import pytest
 
@@ -126,13 +127,18 @@ def test_benchmark_prints_its_ratios(tmp_path):
     ]
 
 
-@pytest.mark.parametrize("suffix", [".csv", ".parquet"])
-def test_reading_in_gauge_groups_gives_identical_results(tmp_path, sample_paths, suffix):
+@pytest.mark.parametrize("suffix, slice_rows", [(".csv", None), (".csv", 997), (".parquet", None)])
+def test_reading_in_gauge_groups_gives_identical_results(
+    tmp_path, monkeypatch, sample_paths, suffix, slice_rows
+):
     import geopandas as gpd
 
+    from recharge_atlas.algorithms import files
     from recharge_atlas.algorithms.files import read_attribute_table
     from recharge_atlas.cli import main
 
+    if slice_rows:  # a group's text file read in many slices
+        monkeypatch.setattr(files, "GROUP_FILE_ROWS", slice_rows)
     if suffix == ".parquet":
         pytest.importorskip("pyarrow")
     table = pd.read_csv(sample_paths["discharge"], dtype={"gauge_id": str})
@@ -170,6 +176,28 @@ def test_reading_in_gauge_groups_gives_identical_results(tmp_path, sample_paths,
             read_attribute_table(outputs[0], name), read_attribute_table(outputs[2], name)
         )
     assert not list(tmp_path.glob("recharge-atlas-groups-*"))
+
+
+def test_a_group_file_read_in_slices_is_the_group_file_read_whole(tmp_path, monkeypatch):
+    """Slices joined give the same table: same text, same columns in the same order, and the
+    ids as categories with the same (sorted) categories."""
+    from recharge_atlas.algorithms import files
+
+    path = tmp_path / "group.csv"
+    rng = np.random.default_rng(5)
+    n = 2500
+    pd.DataFrame(
+        {
+            "date": [f"2001-01-{1 + i % 28:02d}" for i in range(n)],
+            "site": rng.choice(["B7", "A1", "0042", "C 3"], n),
+            "flow": [str(v) if v > 0.1 else "" for v in rng.random(n)],
+        }
+    ).to_csv(path, index=False)
+    whole = files._read_group_file(path, "site")
+    monkeypatch.setattr(files, "GROUP_FILE_ROWS", 300)
+    sliced = files._read_group_file(path, "site")
+    pd.testing.assert_frame_equal(sliced, whole)
+    assert list(sliced["site"].cat.categories) == sorted(["B7", "A1", "0042", "C 3"])
 
 
 def test_packed_tables_come_back_unchanged():
