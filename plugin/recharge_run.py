@@ -29,7 +29,7 @@ from qgis.core import (
     QgsProcessingParameterString,
 )
 
-from . import compat, conversion, styling
+from . import compat, conversion, direct_read, styling
 from .base import RechargeAtlasAlgorithm
 
 # Used only when the core cannot be imported (numpy missing), so the dialog can still be drawn;
@@ -829,7 +829,8 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             if report_path and Path(report_path).suffix.lower() not in (".html", ".htm"):
                 raise InputError(self._report_suffix_problem(report_path))
             self._explain_settings(settings, feedback, push_warning)
-            tables = self._read_inputs(gauges, discharge, basins, settings, feedback)
+            direct = self._discharge_file(parameters, context, discharge)
+            tables = self._read_inputs(gauges, discharge, basins, settings, feedback, direct)
             reporter = FeedbackReporter(feedback, _READ_END, _RUN_END)
             # Daily series only when an output draws or lists them: a large region's run then
             # holds only its tables.
@@ -981,9 +982,18 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             (self.REPORTED_AREA_FIELD, settings.reported_area_field),
         ]
 
-    def _read_inputs(self, gauges, discharge, basins, settings, feedback):
+    def _discharge_file(self, parameters, context, discharge):
+        """The discharge table's file when the core may read it in place of QGIS (see
+        :mod:`direct_read`), else None."""
+        if discharge is None:
+            return None
+        layer = self.parameterAsVectorLayer(parameters, self.DISCHARGE, context)
+        return direct_read.discharge_file(layer, parameters.get(self.DISCHARGE))
+
+    def _read_inputs(self, gauges, discharge, basins, settings, feedback, direct=None):
         """Read the sources into pandas, checking the fields first so errors come early.
-        ``discharge`` may be None (an algorithm without hydrology)."""
+        ``discharge`` may be None (an algorithm without hydrology); ``direct`` is the file the
+        core may read in its place (:meth:`_discharge_file`)."""
         self._require_fields(gauges, self._gauge_fields(settings), "gauges layer")
         self._check_basin_fields(basins, settings, feedback)
         if discharge is not None:
@@ -1003,14 +1013,32 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             steps.append(("discharge", discharge, wanted, False, False))
         for n, (what, source, names, with_geometry, keep_rows) in enumerate(steps):
             feedback.setProgressText(self.tr("Reading the {}").format(what))
-            table = conversion.read_source(
-                source,
-                field_names=names,
-                with_geometry=with_geometry,
-                keep_rows=keep_rows,
-                feedback=feedback,
-                what=what,
-            )
+            table = None
+            if what == "discharge" and direct is not None:
+                frame = direct_read.read_discharge(direct, names, source.featureCount())
+                if frame is not None:
+                    table = conversion.LayerTable(frame, source.fields())
+                    feedback.pushInfo(
+                        self.tr(
+                            "Discharge table read from its file, as the command line reads "
+                            "it: {} rows"
+                        ).format(len(frame))
+                    )
+            if table is None:
+                table = conversion.read_source(
+                    source,
+                    field_names=names,
+                    with_geometry=with_geometry,
+                    keep_rows=keep_rows,
+                    feedback=feedback,
+                    what=what,
+                )
+                if what == "discharge" and table is not None:
+                    feedback.pushInfo(
+                        self.tr("Discharge table read through QGIS: {} rows").format(
+                            len(table.frame)
+                        )
+                    )
             if table is None or feedback.isCanceled():
                 from ..algorithms.errors import Cancelled
 

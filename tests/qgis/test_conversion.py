@@ -127,3 +127,43 @@ def test_frame_fields_types_and_nulls(qgis_app):
     layer.updateFields()
     assert write_rows(layer.dataProvider(), layer.fields(), rows)
     assert layer.featureCount() == 2
+
+
+def test_column_wise_cells_are_the_cell_by_cell_ones(qgis_app):
+    """Typed columns are converted column-wise; each cell is what the cell-by-cell
+    conversion gives (NULL for NaN, ±inf and NaT; one QDate per distinct day)."""
+    import numpy as np
+    import pandas as pd
+
+    from recharge_atlas.plugin import conversion
+
+    days = pd.to_datetime(["2001-10-31", None, "1999-01-02", "2001-10-31", None, "2030-12-31"])
+    columns = {
+        "double": pd.Series([1.5, np.nan, np.inf, -np.inf, 0.0, -2.25]),
+        "int64": pd.Series(np.array([3, -1, 0, 2**40, 7, 8], dtype=np.int64)),
+        "bool": pd.Series([True, False, True, True, False, False]),
+        "date": pd.Series(days),
+        "datetime": pd.Series(
+            pd.to_datetime(
+                [
+                    "2001-10-31 06:30:15.250",
+                    None,
+                    "2001-10-31",
+                    "1970-01-01",
+                    None,
+                    "2001-10-31 06:30:15.250",
+                ]
+            )
+        ),
+        "date_in_seconds": pd.Series(days.values.astype("datetime64[s]")),
+    }
+    for name, series in columns.items():
+        kind = name.split("_")[0]
+        fast = conversion._typed_column_values(series, kind)
+        assert fast is not None, name
+        slow = [
+            conversion._cell(v, kind) for v in series.astype(object).where(series.notna(), None)
+        ]
+        assert fast == slow, name
+    assert conversion._typed_column_values(pd.Series(["a", None]), "string") is None
+    assert conversion._typed_column_values(pd.Series([1, None], dtype="Int64"), "int64") is None
