@@ -255,8 +255,20 @@ def _typed_column_values(series, kind):
     import numpy as np
 
     values = series.to_numpy()
+    if kind == "string" and not isinstance(values, np.ndarray):  # pandas' own text dtypes
+        values = series.to_numpy(dtype=object)
     if not isinstance(values, np.ndarray):
         return None
+    if kind == "string" and values.dtype == object:
+        import pandas as pd
+
+        missing = pd.isna(values)
+        cells = values.tolist()
+        if not all(type(v) is str for v, m in zip(cells, missing.tolist()) if not m):
+            return None  # other objects: written as their text, cell by cell
+        for i in np.flatnonzero(missing).tolist():
+            cells[i] = None
+        return cells
     if kind == "double" and values.dtype.kind == "f":
         cells = values.tolist()
         for i in np.flatnonzero(~np.isfinite(values)).tolist():

@@ -165,5 +165,10 @@ def test_column_wise_cells_are_the_cell_by_cell_ones(qgis_app):
             conversion._cell(v, kind) for v in series.astype(object).where(series.notna(), None)
         ]
         assert fast == slow, name
-    assert conversion._typed_column_values(pd.Series(["a", None]), "string") is None
+    for text in (pd.Series(["a", None, "", "b"]), pd.Series(["a", None, "", "b"], dtype="string")):
+        slow = [
+            conversion._cell(v, "string") for v in text.astype(object).where(text.notna(), None)
+        ]
+        assert conversion._typed_column_values(text, "string") == slow == ["a", None, "", "b"]
+    assert conversion._typed_column_values(pd.Series(["a", 3]), "string") is None  # cell by cell
     assert conversion._typed_column_values(pd.Series([1, None], dtype="Int64"), "int64") is None
