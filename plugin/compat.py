@@ -22,7 +22,7 @@ from qgis.core import (
     QgsProcessingParameterNumber,
     QgsWkbTypes,
 )
-from qgis.PyQt.QtCore import QMetaType
+from qgis.PyQt.QtCore import QMetaType, QUrl
 
 try:  # gone from PyQt6 as a type enum; only needed before QGIS 3.38
     from qgis.PyQt.QtCore import QVariant
@@ -42,6 +42,7 @@ _NAMESPACE = {
     "QgsProcessingParameterNumber": QgsProcessingParameterNumber,
     "QgsWkbTypes": QgsWkbTypes,
     "QMetaType": QMetaType,
+    "QUrl": QUrl,
     "QVariant": QVariant,
 }
 
@@ -134,6 +135,7 @@ SOURCE_SKIP_GEOMETRY_CHECK = first_of(
 )
 
 #: The WKT flavour PROJ prefers (Qgis.CrsWktVariant since 3.36).
+URL_FULLY_DECODED = first_of("QUrl.ComponentFormattingOption.FullyDecoded", "QUrl.FullyDecoded")
 CRS_WKT_PREFERRED = first_of(
     "Qgis.CrsWktVariant.Preferred", "QgsCoordinateReferenceSystem.WKT_PREFERRED"
 )

@@ -18,6 +18,8 @@ from pathlib import Path
 from qgis.core import QgsProcessingFeatureSourceDefinition
 from qgis.PyQt.QtCore import QUrl, QUrlQuery
 
+from . import compat
+
 #: File types the core reads itself, as the command line does.
 _TEXT = (".csv", ".tsv", ".txt")
 _PARQUET = ".parquet"
@@ -69,7 +71,7 @@ def _delimited_text_file(source: str):
     if path is None or path.suffix.lower() not in _TEXT:
         return None
     delimiter = ","
-    for key, value in QUrlQuery(url).queryItems(QUrl.FullyDecoded):
+    for key, value in QUrlQuery(url).queryItems(compat.URL_FULLY_DECODED):
         if key not in _HARMLESS:
             return None
         allowed = _HARMLESS[key]
