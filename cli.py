@@ -567,7 +567,13 @@ def _discharge(files, path, gauge_layer, settings, gauges_per_group):
         for g in dict.fromkeys(gauge_id_text(gauge_layer[settings.gauge_id_field].to_numpy()))
         if g is not None
     ]
-    return files.discharge_groups(path, settings.discharge_gauge_field, ids, gauges_per_group)
+    return files.discharge_groups(
+        path,
+        settings.discharge_gauge_field,
+        ids,
+        gauges_per_group,
+        date_field=settings.date_field,
+    )
 
 
 def _settings(args):

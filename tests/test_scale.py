@@ -193,11 +193,14 @@ def test_a_group_file_read_in_slices_is_the_group_file_read_whole(tmp_path, monk
             "flow": [str(v) if v > 0.1 else "" for v in rng.random(n)],
         }
     ).to_csv(path, index=False)
-    whole = files._read_group_file(path, "site")
+    whole = files._read_group_file(path, "site", "date")
     monkeypatch.setattr(files, "GROUP_FILE_ROWS", 300)
-    sliced = files._read_group_file(path, "site")
+    sliced = files._read_group_file(path, "site", "date")
     pd.testing.assert_frame_equal(sliced, whole)
+    assert list(sliced.columns) == ["date", "site", "flow"]
     assert list(sliced["site"].cat.categories) == sorted(["B7", "A1", "0042", "C 3"])
+    assert sliced["date"].cat.categories.size == 28
+    assert sliced["flow"].dtype != "category"
 
 
 def test_packed_tables_come_back_unchanged():
