@@ -52,6 +52,7 @@ ANNUAL_COLUMNS = [
     "days_missing",
     "events",
     "events_skipped",
+    "all_events_measured",
 ]
 
 #: Columns of the table of months or seasons.
@@ -66,6 +67,7 @@ PERIOD_COLUMNS = [
     "days_missing",
     "events",
     "events_skipped",
+    "close_events",
 ]
 
 #: Labels of the seasons (months of each, December to February first).
@@ -314,7 +316,9 @@ def annual_columns(
 
     bounds, lengths = _water_year_calendar(first_year, n, start_month)
     missing = lengths - with_value.astype(int)
-    complete = (in_record == lengths) & (missing <= max_missing_share * lengths) & (skipped == 0)
+    # A year counts in the mean when its discharge record is complete; its events are then
+    # measured one by one or as composites, and any left unmeasured are counted beside it.
+    complete = (in_record == lengths) & (missing <= max_missing_share * lengths)
 
     nan = np.full(n, np.nan)
     base_m3, bfi, storage = nan, nan, nan
@@ -363,6 +367,7 @@ def annual_columns(
             "days_missing": missing.astype(np.int64),
             "events": n_events.astype(np.int64),
             "events_skipped": skipped.astype(np.int64),
+            "all_events_measured": complete & (skipped == 0),
         },
         ANNUAL_COLUMNS,
     )
@@ -485,10 +490,15 @@ def period_columns(
         else np.empty(0, np.intp)
     )
     recharge, n_events, skipped = _event_sums(events, ev_slots, n)
+    close = (
+        np.bincount(ev_slots, weights=np.asarray(events["close_to_next"], float), minlength=n)
+        if len(events) and "close_to_next" in events
+        else np.zeros(n)
+    )
     calendar = _period_calendar(first_period, n, kind, start_month)
     lengths = calendar["lengths"]
     missing = lengths - with_value.astype(int)
-    complete = (in_record == lengths) & (missing <= max_missing_share * lengths) & (skipped == 0)
+    complete = (in_record == lengths) & (missing <= max_missing_share * lengths)
     return ColumnTable(
         {
             "water_year": calendar["water_year"],
@@ -501,14 +511,17 @@ def period_columns(
             "days_missing": missing.astype(np.int64),
             "events": n_events.astype(np.int64),
             "events_skipped": skipped.astype(np.int64),
+            "close_events": close.astype(np.int64),
         },
         PERIOD_COLUMNS,
     )
 
 
-def mean_annual(annual, column="recharge_mm"):
-    """Mean of ``column`` over complete water years (NaN when there are none)."""
-    complete = np.asarray(annual["complete"], dtype=bool)
+def mean_annual(annual, column="recharge_mm", years="complete"):
+    """Mean of ``column`` over the water years marked True in column ``years`` (by default the
+    years whose discharge record is complete; ``all_events_measured`` for the years whose
+    events were all measured). NaN when there are none."""
+    complete = np.asarray(annual[years], dtype=bool)
     values = np.asarray(annual[column], dtype=float)[complete]
     values = values[np.isfinite(values)]
     return float(values.mean()) if values.size else np.nan

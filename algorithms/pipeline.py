@@ -18,7 +18,13 @@ from . import annual as annual_mod
 from .baseflow import BFIMAX_TYPICAL, METHODS, baseflow_index, separate_baseflow
 from .basins import LINK_TOLERANCE_M, geodesic_area_km2, link_by_id, link_spatially, repair_polygons
 from .discharge import MIN_DAY_COVERAGE, GaugeRecord, gauge_id_text, require_columns, tidy_discharge
-from .displacement import EVENT_COLUMNS, CleanDays, event_columns, event_columns_at
+from .displacement import (
+    EVENT_COLUMNS,
+    CleanDays,
+    compose_events,
+    event_columns,
+    event_columns_at,
+)
 from .errors import InputError, counted, describe, quoted
 from .nesting import OVERLAP_TOLERANCE, find_nesting, incremental_recharge
 from .recession import (
@@ -63,6 +69,8 @@ CATCHMENT_FIELDS = [
     "complete_years",
     "events",
     "quality",
+    "recharge_mm_per_year_fully_measured",
+    "fully_measured_years",
 ]
 
 #: Fields the gauge table has besides the catchment ones.
@@ -342,9 +350,13 @@ class GaugeResult:
         Daily baseflow (m³/s) by the chosen method.
     baseflow_index : float
     recharge_mm_per_year, recharge_m3_per_year : float
-        Means over complete water years; ``recharge_mm_per_year_low``/``_high`` from the K
-        interval.
+        Means over the water years whose discharge record is complete (storm runs measured
+        as composite events); ``recharge_mm_per_year_low``/``_high`` from the K interval.
     complete_years : int
+    recharge_mm_per_year_fully_measured : float
+        Mean over the complete years whose events were all measured (``fully_measured_years``
+        of them).
+    fully_measured_years : int
     quality : list of str
         Problems in words; empty when all is well.
     """
@@ -366,6 +378,8 @@ class GaugeResult:
     seasonal_recharge_mm_per_year: float = np.nan
     complete_years: int = 0
     quality: list = field(default_factory=list)
+    recharge_mm_per_year_fully_measured: float = np.nan
+    fully_measured_years: int = 0
     #: :meth:`event_figures`, kept when the events table itself went to a table sink.
     kept_event_figures: dict | None = field(default=None, repr=False)
 
@@ -661,6 +675,10 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
     k = recession.days
 
     clean = CleanDays(x)
+    # Storm runs that cannot be read one by one are measured as composite events.
+    rises = compose_events(
+        rises, x, lag, clean, settle_days=critical_time_days(k) if np.isfinite(k) else None
+    )
     # The events with K, and again with K at both ends of its interval, in one pass.
     if np.isfinite(k) and k > 0:
         events, ends = event_columns_at(
@@ -718,9 +736,13 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
         "master_recession": master,
     }
     result.complete_years = int(np.sum(annual["complete"]))
+    result.fully_measured_years = int(np.sum(annual["all_events_measured"]))
     mean = annual_mod.mean_annual
     result.recharge_m3_per_year = mean(annual, "recharge_m3")
     result.recharge_mm_per_year = mean(annual, "recharge_mm")
+    result.recharge_mm_per_year_fully_measured = mean(
+        annual, "recharge_mm", years="all_events_measured"
+    )
     # Recharge from the two ends of the K interval, smaller first (either end may give either).
     ends = sorted(
         [mean(annual, "recharge_low_mm"), mean(annual, "recharge_high_mm")],
@@ -745,6 +767,7 @@ def _record_quality(record: GaugeRecord, result: GaugeResult, settings: Settings
         notes.append(
             f"only {result.complete_years} complete water years (fewer than {settings.min_complete_years})"
         )
+    notes.extend(_fair_sample_notes(record, result))
     events = result.table("events")
     used = int(np.sum(events["used"])) if len(events) else 0
     if len(events):
@@ -766,6 +789,43 @@ def _record_quality(record: GaugeRecord, result: GaugeResult, settings: Settings
             "the method suits baseflow-dominated streams"
         )
     return notes
+
+
+#: The complete years' mean flow depth may differ from the whole record's by this share before
+#: the gauge is flagged as kept on an unfair sample of its years (our own rule).
+UNFAIR_SAMPLE = 0.10
+
+
+def _fair_sample_notes(record: GaugeRecord, result: GaugeResult):
+    """A caution when the water years the mean covers are wetter or drier than the record.
+
+    The mean flow of the complete years is compared with the mean flow over every day with a
+    value in the whole record: when a few missing years were the wet (or dry) ones, the mean
+    annual recharge of the rest does not represent the gauge.
+    """
+    annual = result.table("annual")
+    if not len(annual) or result.complete_years == 0:
+        return []
+    complete = np.asarray(annual["complete"], dtype=bool)
+    if complete.all():
+        return []
+    flow = record.flow.to_numpy(dtype=float)
+    with_value = flow[np.isfinite(flow)]
+    if with_value.size == 0 or not np.isfinite(result.area_km2) or result.area_km2 <= 0:
+        return []
+    record_mm = with_value.mean() * 86400.0 * 365.25 / (result.area_km2 * 1e3)
+    kept = np.asarray(annual["flow_mm"], dtype=float)[complete]
+    kept_mm = float(np.mean(kept[np.isfinite(kept)])) if np.isfinite(kept).any() else np.nan
+    if not (np.isfinite(kept_mm) and record_mm > 0):
+        return []
+    change = kept_mm / record_mm - 1.0
+    if abs(change) <= UNFAIR_SAMPLE:
+        return []
+    return [
+        f"the {result.complete_years} water years with a complete record are "
+        f"{'wetter' if change > 0 else 'drier'} than the whole record (mean flow "
+        f"{kept_mm:,.0f} against {record_mm:,.0f} mm/yr): the mean recharge may not represent it"
+    ]
 
 
 #: Values that are not usable numbers (text, negative, infinite, missing-value codes) are
@@ -1706,6 +1766,10 @@ def _catchment_values(result: GaugeResult | None, area):
         "seasonal_recharge_mm_per_year": result.seasonal_recharge_mm_per_year if result else np.nan,
         "complete_years": result.complete_years if result else 0,
         "events": result.event_figures()["measured"] if result is not None else 0,
+        "recharge_mm_per_year_fully_measured": result.recharge_mm_per_year_fully_measured
+        if result
+        else np.nan,
+        "fully_measured_years": result.fully_measured_years if result else 0,
     }
 
 

@@ -185,7 +185,7 @@ class _Sums:
 
 def segment_columns(x, rises: Rises, lag_days, min_days, sums: _Sums) -> ColumnTable:
     """:func:`recession_segments` as columns, with the record's running sums given."""
-    first = rises.peak + int(np.ceil(lag_days))
+    first = rises.last_peak + int(np.ceil(lag_days))
     last = rises.recession_end.astype(int)
     # A recession is cut short at its first unusable day.
     last = np.minimum(last, sums.next_bad[np.minimum(first, x.size - 1)] - 1)

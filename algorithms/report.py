@@ -514,7 +514,8 @@ def _year_detail(ax, g, year, why, start_month, legend):
 
 def _construction(ax, used, all_events, k):
     """Pre- and post-event recessions, the critical time, Q1 and Q2 of measured events."""
-    peak = pd.DatetimeIndex(used["peak_date"])
+    # A composite event is read after its last peak.
+    peak = pd.DatetimeIndex(used["last_peak_date" if "last_peak_date" in used else "peak_date"])
     tc = used["critical_time_days"].to_numpy(dtype=float)
     critical = _days(peak) + tc
     pre_t = _days(used["pre_anchor_date"])

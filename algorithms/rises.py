@@ -225,6 +225,10 @@ class Rises:
         The record stops (gap or end) while the flow is still rising, so the peak is unknown.
     threshold : float
         The rise threshold used, in log10 units.
+    pulse_peak, pulse_rise, pulse_event : ndarray, optional
+        The pulses of all events, in order: each day of an event's rise on which the flow grew,
+        and its last peak; the growth that day (m³/s) and the event it belongs to. None means
+        one pulse per event, at its peak.
     """
 
     rise_start: np.ndarray
@@ -234,9 +238,28 @@ class Rises:
     start_in_gap: np.ndarray
     peak_at_gap: np.ndarray
     threshold: float
+    pulse_peak: np.ndarray | None = None
+    pulse_rise: np.ndarray | None = None
+    pulse_event: np.ndarray | None = None
 
     def __len__(self):
         return int(self.peak.size)
+
+    def pulses(self):
+        """``(day, rise, event)`` of every pulse, sorted by event and day (see the attributes)."""
+        if self.pulse_peak is None:
+            n = self.peak.size
+            return self.peak, np.ones(n), np.arange(n)
+        return self.pulse_peak, self.pulse_rise, self.pulse_event
+
+    @property
+    def last_peak(self) -> np.ndarray:
+        """The last pulse of each event (its peak when it has one pulse)."""
+        day, _, event = self.pulses()
+        if day.size == 0:
+            return np.empty(0, int)
+        last = np.flatnonzero(np.append(event[1:] != event[:-1], True))
+        return day[last]
 
 
 def find_rises(logq, lag_days, threshold) -> Rises:
@@ -261,7 +284,18 @@ def find_rises(logq, lag_days, threshold) -> Rises:
     rise = np.concatenate((starts[hidden_block], troughs))
     if rise.size == 0:
         empty = np.empty(0, int)
-        return Rises(empty, empty, empty, empty, empty.astype(bool), empty.astype(bool), threshold)
+        return Rises(
+            empty,
+            empty,
+            empty,
+            empty,
+            empty.astype(bool),
+            empty.astype(bool),
+            threshold,
+            empty,
+            np.empty(0),
+            empty,
+        )
     order = np.argsort(rise, kind="stable")
     rise = rise[order]
     peak = np.concatenate((hidden_peak, peaks))[order]
@@ -300,4 +334,30 @@ def find_rises(logq, lag_days, threshold) -> Rises:
         start_in_gap=start_in_gap,
         peak_at_gap=peak_at_gap,
         threshold=float(threshold),
+        **_rising_days(x, merged_rise, peak[last]),
     )
+
+
+def _rising_days(x, rise_start, last_peak):
+    """The pulses of each event: every day of its rise on which the flow grew, with the growth
+    (m³/s) as its weight, and always its last peak (the storms' timing inside a run).
+
+    A run of storms shows as days of growth between its first trough and its last peak; a
+    storm whose own peak is hidden in the rise of another still shows as growth on its day.
+    """
+    first = np.minimum(rise_start + 1, last_peak)  # an event seen only after a gap: its peak
+    positions, span, _ = _laid_end_to_end(first, last_peak - first + 1)
+    q = 10.0**x
+    # Growth since the last day with a value (across a gap for a rise hidden in it).
+    finite = np.isfinite(x)
+    last_valid = np.maximum.accumulate(np.where(finite, np.arange(x.size), -1))
+    before = last_valid[np.maximum(positions - 1, 0)]
+    with np.errstate(invalid="ignore"):
+        growth = np.where(before >= 0, q[positions] - q[np.maximum(before, 0)], 0.0)
+    growth = np.nan_to_num(growth, nan=0.0)
+    keep = (growth > 0) | (positions == last_peak[span])
+    return {
+        "pulse_peak": positions[keep],
+        "pulse_rise": np.clip(growth[keep], 0.0, None),
+        "pulse_event": span[keep],
+    }

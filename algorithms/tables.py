@@ -18,6 +18,8 @@ INTEGER_COLUMNS = {
     "days_missing",
     "events",
     "events_skipped",
+    "close_events",
+    "fully_measured_years",
     "segments",
     "catchment_row",
     "recession_segments",
@@ -25,7 +27,7 @@ INTEGER_COLUMNS = {
     "incremental_years",
 }
 #: True/false columns.
-BOOLEAN_COLUMNS = {"used", "anchor_in_gap", "complete"}
+BOOLEAN_COLUMNS = {"used", "anchor_in_gap", "complete", "close_to_next", "all_events_measured"}
 #: Text columns.
 TEXT_COLUMNS = {
     "gauge_id",
@@ -78,6 +80,9 @@ class ColumnTable:
 
     def __getitem__(self, name):
         return self.columns[name]
+
+    def __contains__(self, name):
+        return name in self.columns
 
     def frame(self) -> pd.DataFrame:
         """The table as a DataFrame (built once, then kept)."""

@@ -128,7 +128,8 @@ _TABLE_FIELDS = {
         q_after_m3s:double pre_anchor_date:date pre_anchor_m3s:double
         pre_extrapolation_days:double post_anchor_date:date post_anchor_m3s:double
         post_extrapolation_days:double recharge_m3:double used:bool anchor_in_gap:bool
-        note:string recharge_mm:double""",
+        note:string last_peak_date:date reading_share:double close_to_next:bool
+        recharge_mm:double""",
     "PERIODS": """gauge_id:string water_year:int64 period:string first_date:date last_date:date
         recharge_mm:double recharge_m3:double complete:bool days_missing:int64 events:int64
         events_skipped:int64""",

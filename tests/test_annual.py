@@ -60,9 +60,13 @@ def test_sums_by_water_year_of_the_peak_and_completeness():
     assert list(table["water_year"]) == [2001, 2002, 2003]
     assert list(table["recharge_m3"]) == [3e6, 4e6, 8e6]
     assert table["recharge_mm"].iloc[0] == pytest.approx(3e6 / 10e6 * 1000.0)  # volume / area
-    assert list(table["complete"]) == [True, False, False]  # 2002: gaps; 2003: an event skipped
+    # 2002 has gaps: its record is not complete. 2003's record is complete, so it counts in the
+    # mean, but one of its events was not measured, which the second mean leaves out.
+    assert list(table["complete"]) == [True, False, True]
+    assert list(table["all_events_measured"]) == [True, False, False]
     assert list(table["events_skipped"]) == [0, 0, 1]
-    assert mean_annual(table) == pytest.approx(300.0)
+    assert mean_annual(table) == pytest.approx((300.0 + 800.0) / 2)
+    assert mean_annual(table, years="all_events_measured") == pytest.approx(300.0)
 
 
 def test_partial_first_and_last_years_are_incomplete():

@@ -189,11 +189,11 @@ def test_hydrograph_construction_passes_through_q1_and_q2(demo):
     ends = [p[np.isfinite(p)][-1] for p in pieces]
     np.testing.assert_allclose(starts, events["pre_anchor_m3s"], rtol=1e-12)
     np.testing.assert_allclose(ends, events["q_before_m3s"], rtol=1e-9)
-    # Critical times drawn at peak + 0.2144 K (Rorabaugh 1964).
+    # Critical times drawn at the (last) peak + 0.2144 K (Rorabaugh 1964).
     from matplotlib import dates as mdates
 
     x = lines["Q1 (pre-event, at critical time)"].get_xdata()
-    peaks = mdates.date2num(pd.DatetimeIndex(events["peak_date"]).to_pydatetime())
+    peaks = mdates.date2num(pd.DatetimeIndex(events["last_peak_date"]).to_pydatetime())
     np.testing.assert_allclose(x - peaks, 0.2144 * gauge.recession.days, rtol=1e-9)
 
 
