@@ -73,7 +73,11 @@ def generate(folder, gauges, years, seed):
     np.save(Path(folder) / "flow.npy", network.flow)
     network.gauges.to_file(Path(folder) / "gauges.gpkg", driver="GPKG")
     network.catchments.to_file(Path(folder) / "catchments.gpkg", driver="GPKG")
-    meta = {"start": str(network.dates[0].date()), "days": int(network.dates.size), "ids": list(network.gauges["gauge_id"])}
+    meta = {
+        "start": str(network.dates[0].date()),
+        "days": int(network.dates.size),
+        "ids": list(network.gauges["gauge_id"]),
+    }
     (Path(folder) / "meta.json").write_text(json.dumps(meta))
 
 
@@ -95,7 +99,10 @@ def _records(flow, meta):
     from recharge_atlas.algorithms.discharge import GaugeRecord
 
     index = pd.date_range(meta["start"], periods=meta["days"], freq="D", name="date")
-    return {gid: GaugeRecord(gid, pd.Series(flow[i], index=index, copy=False)) for i, gid in enumerate(meta["ids"])}
+    return {
+        gid: GaugeRecord(gid, pd.Series(flow[i], index=index, copy=False))
+        for i, gid in enumerate(meta["ids"])
+    }
 
 
 def _areas(folder):
@@ -112,7 +119,9 @@ def full_computation(records, areas, workers=1):
     from recharge_atlas.algorithms.pipeline import Reporter, Settings, compute_gauges
 
     settings = Settings().resolved()
-    results, _failed = compute_gauges(list(records), records, areas, settings, Reporter(), {}, workers=workers, keep_series=False)
+    results, _failed = compute_gauges(
+        list(records), records, areas, settings, Reporter(), {}, workers=workers, keep_series=False
+    )
     return results
 
 
@@ -127,7 +136,9 @@ def end_to_end(folder, flow, meta, workers):
     table = pd.DataFrame(
         {
             "gauge_id": np.repeat(np.asarray(meta["ids"], dtype=object), n_days),
-            "date": np.tile(pd.date_range(meta["start"], periods=n_days, freq="D").to_numpy(), n_gauges),
+            "date": np.tile(
+                pd.date_range(meta["start"], periods=n_days, freq="D").to_numpy(), n_gauges
+            ),
             "discharge": flow.reshape(-1),
         }
     )
@@ -136,7 +147,13 @@ def end_to_end(folder, flow, meta, workers):
     del table
     out = Path(folder) / "result.gpkg"
     start = time.perf_counter()
-    run_files(Path(folder) / "gauges.gpkg", Path(folder) / "catchments.gpkg", parquet, out, Settings(workers=workers))
+    run_files(
+        Path(folder) / "gauges.gpkg",
+        Path(folder) / "catchments.gpkg",
+        parquet,
+        out,
+        Settings(workers=workers),
+    )
     return time.perf_counter() - start
 
 
@@ -148,7 +165,9 @@ def main(argv=None):
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--skip-end-to-end", action="store_true")
     parser.add_argument("--gaps-per-year", type=float, default=0.0)
-    parser.add_argument("--repeat", type=int, default=2, help="best of this many runs, serial and parallel")
+    parser.add_argument(
+        "--repeat", type=int, default=2, help="best of this many runs, serial and parallel"
+    )
     parser.add_argument("--generate-into", help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     if args.generate_into:
@@ -158,7 +177,18 @@ def main(argv=None):
     with tempfile.TemporaryDirectory(prefix="recharge-atlas-bench-") as folder:
         start = time.perf_counter()
         subprocess.run(
-            [sys.executable, __file__, "--gauges", str(args.gauges), "--years", str(args.years), "--seed", str(args.seed), "--generate-into", folder],
+            [
+                sys.executable,
+                __file__,
+                "--gauges",
+                str(args.gauges),
+                "--years",
+                str(args.years),
+                "--seed",
+                str(args.seed),
+                "--generate-into",
+                folder,
+            ],
             check=True,
         )
         generation = time.perf_counter() - start
@@ -203,17 +233,25 @@ def main(argv=None):
 
         e2e = None if args.skip_end_to_end else end_to_end(folder, flow, meta, args.workers)
 
-    print(f"machine: {platform.machine()}, {os.cpu_count()} cores, python {platform.python_version()}, numpy {np.__version__}")
-    print(f"network: {args.gauges} gauges x {args.years} years = {gauge_years:,.0f} gauge-years, {flow.size:,} daily values, {data_bytes / 1e6:,.0f} MB (generated in {generation:.1f} s)")
+    print(
+        f"machine: {platform.machine()}, {os.cpu_count()} cores, python {platform.python_version()}, numpy {np.__version__}"
+    )
+    print(
+        f"network: {args.gauges} gauges x {args.years} years = {gauge_years:,.0f} gauge-years, {flow.size:,} daily values, {data_bytes / 1e6:,.0f} MB (generated in {generation:.1f} s)"
+    )
     if args.gaps_per_year > 0:
         print(f"gaps: {args.gaps_per_year:g} per gauge-year, 1 to 10 days each")
     print(f"timings: floor best of 3 passes; full and parallel best of {args.repeat} runs each")
     print(f"floor_seconds={floor:.3f}")
-    print(f"full_seconds={full:.3f} ({1000 * full / args.gauges:.2f} ms per gauge, {gauge_years / full:,.0f} gauge-years/s)")
+    print(
+        f"full_seconds={full:.3f} ({1000 * full / args.gauges:.2f} ms per gauge, {gauge_years / full:,.0f} gauge-years/s)"
+    )
     print(f"workers={args.workers} parallel_seconds={parallel:.3f}")
     print(f"peak_rss_above_baseline_mb={(peak - baseline) / 1e6:,.0f}")
     if e2e is not None:
-        print(f"end_to_end_seconds={e2e:.2f} (Parquet on disk to GeoPackage, {args.workers} workers): {gauge_years / e2e:,.0f} gauge-years/s")
+        print(
+            f"end_to_end_seconds={e2e:.2f} (Parquet on disk to GeoPackage, {args.workers} workers): {gauge_years / e2e:,.0f} gauge-years/s"
+        )
     print(f"limit_ratio={full / floor:.1f}")
     print(f"memory_ratio={(peak - baseline) / data_bytes:.2f}")
     print(f"workers_speedup={full / parallel:.2f}")
