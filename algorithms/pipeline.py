@@ -37,6 +37,7 @@ from .recession import (
     master_recession_warnings,
     recession_warnings,
     runoff_end_lag_days,
+    settling_days,
 )
 from .rises import find_rises, log_flow, rise_threshold
 from .subbasins import UNGAUGED_CHOICES
@@ -651,6 +652,12 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
     # The record's own estimate is made even when K is given: its segments and master
     # recession curve are diagnostics, and a given K far from it deserves a word.
     recession = estimate_recession_index(x, rises, lag, settings.min_segment_days)
+    lag, lag_note = _checked_lag(x, rises, lag, given, recession, settings)
+    if lag_note:
+        quality.append(lag_note)
+        if settings.runoff_end_lag_days is None:  # the record's lag is used from here on
+            result.lag_days = lag
+            recession = estimate_recession_index(x, rises, lag, settings.min_segment_days)
     if given is not None:
         k = float(given)
         notes = recession_warnings(k)
@@ -688,6 +695,13 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
         events, ends = event_columns(usable, day0, x, rises, k, lag, clean=clean), (None, None)
     event_table = dict(events.columns)
     event_table["event"] = np.arange(1, len(events) + 1, dtype=np.int64)
+    if lag_note and settings.runoff_end_lag_days is None and len(events):
+        plain = (event_table["note"] == "") & event_table["used"]
+        event_table["note"] = np.where(
+            plain,
+            f"read at least {lag:.0f} days after the peak (the record's runoff-end lag)",
+            event_table["note"],
+        )
     event_table["recharge_mm"] = (
         event_table["recharge_m3"] / (area * 1e3) if has_area else np.full(len(events), np.nan)
     )
@@ -753,6 +767,37 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
     result.seasonal_recharge_mm_per_year = mean(annual, "seasonal_recharge_mm")
     quality.extend(_record_quality(record, result, settings))
     return result
+
+
+#: The record's settling time must exceed the later of the area's lag and Tc by a quarter and
+#: a day before it replaces it (our own rule: a day is the resolution of a daily record, and two
+#: aquifers in parallel also bend the recession for a while after Tc; in tests, K of 30 and 60
+#: days side by side settle at 1.3 Tc).
+LAG_MARGIN = (1.25, 1.0)
+
+
+def _checked_lag(x, rises, lag, given_k, recession, settings):
+    """The runoff-end lag checked on the record's own hydrographs (see
+    :func:`recession.settling_days`): ``(lag, note)``. Where runoff clearly lasts longer than
+    the lag, the record's settling time is returned with a note saying so, unless the user set
+    the lag (then the lag stays and the note flags it)."""
+    k = float(given_k) if given_k is not None else recession.days
+    if not np.isfinite(k) or k <= 0:
+        return lag, ""
+    settled = settling_days(x, rises, k, lag)
+    reading = max(lag, float(critical_time_days(k)))
+    if not (np.isfinite(settled) and settled > LAG_MARGIN[0] * reading + LAG_MARGIN[1]):
+        return lag, ""
+    if settings.runoff_end_lag_days is not None:
+        return lag, (
+            f"runoff lasts about {settled:.0f} days after peaks, longer than the given runoff-end "
+            f"lag of {lag:.1f} days and the critical time: readings may carry quickflow"
+        )
+    return settled, (
+        f"runoff lasts about {settled:.0f} days after peaks, longer than the {lag:.1f} days "
+        "the drainage area suggests (N = A^0.2): readings and recession segments start after "
+        f"{settled:.0f} days"
+    )
 
 
 def _record_quality(record: GaugeRecord, result: GaugeResult, settings: Settings):
