@@ -422,7 +422,7 @@ def recharge_map(
 
 def _default_title(field, units):
     if field == "recharge_mm_per_year":
-        return f"Mean annual groundwater recharge ({units}), complete water years"
+        return f"Mean annual groundwater recharge ({units}), years with a complete record"
     label = FIELD_LABELS.get(field, str(field).replace("_", " ").capitalize())
     return f"{label} ({units})" if units else label
 

@@ -730,7 +730,8 @@ def _maps_html(result, gauges, scheme, classes, include_year_maps):
             _img(
                 recharge_map(catchments, gauges, scheme=scheme, classes=classes),
                 "Map of mean annual recharge by catchment",
-                "Mean annual recharge over complete water years. Nested catchments are drawn on "
+                "Mean annual recharge over every water year with a complete discharge record. "
+                "Nested catchments are drawn on "
                 "top of the basins that contain them; grey: no estimate (see the quality flags).",
                 width=900,
             )
@@ -1097,7 +1098,10 @@ def _method_html():
         f"to the critical time Tc = {CRITICAL_TIME_FACTOR} K after the peak (Q1); the "
         "post-event recession gives Q2 at the same time; recharge R = 2 (Q2 − Q1) K / 2.3026 "
         "with Q as volume per day (Rorabaugh 1964). Depth = volume ÷ drainage area. Events are "
-        "summed by water year of the peak; means use complete years only. Baseflow by a "
+        "summed by water year of the peak. Storm runs that cannot be read one by one are "
+        "measured as one composite event, allowing for the timing of its peaks. The mean "
+        "annual recharge shown is over every water year whose discharge record is complete "
+        "(the mean over years whose every event was measured is given beside it). Baseflow by a "
         'recursive filter (Eckhardt 2005 by default).</p><p class="note">Rorabaugh, M.I. (1964) '
         "IASH Publ. 63, 432–441. Halford, K.J. &amp; Mayer, G.C. (2000) Ground Water 38(3), "
         "331–342. Eckhardt, K. (2005) Hydrol. Process. 19, 507–515.</p></section>"
