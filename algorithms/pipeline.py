@@ -790,12 +790,14 @@ def _checked_lag(x, rises, lag, given_k, recession, settings):
         return lag, ""
     if settings.runoff_end_lag_days is not None:
         return lag, (
-            f"runoff lasts about {settled:.0f} days after peaks, longer than the given runoff-end "
-            f"lag of {lag:.1f} days and the critical time: readings may carry quickflow"
+            f"runoff lasts about {settled:.0f} days after peaks (recessions settle that late), "
+            f"longer than the given runoff-end lag of {lag:.1f} days and the critical time: "
+            "readings may carry quickflow"
         )
     return settled, (
-        f"runoff lasts about {settled:.0f} days after peaks, longer than the {lag:.1f} days "
-        "the drainage area suggests (N = A^0.2): readings and recession segments start after "
+        f"runoff lasts about {settled:.0f} days after peaks (recessions settle that late: "
+        f"slow runoff or a faster second aquifer), longer than the {lag:.1f} days the drainage "
+        f"area suggests (N = A^0.2): readings and recession segments start after "
         f"{settled:.0f} days"
     )
 

@@ -136,3 +136,34 @@ def test_bootstrap_in_whole_numbers_matches_floats():
     as_int = _k_from(slopes, counts * _whole_weights(days, 300)[None, :], 0.5)
     as_float = _k_from(slopes, counts * days[None, :], 0.5)
     np.testing.assert_array_equal(as_int, as_float)
+
+
+def test_a_rise_too_small_for_an_event_still_breaks_a_segment():
+    """Each recession of the series solution (Rorabaugh 1960) carries a second, small recharge
+    pulse whose rise (25 %) lies under the event threshold (five times the 5 % noise): no segment
+    may run across it, and K stays within 3 % of the truth."""
+    from recharge_atlas.algorithms.analytic import strip_aquifer_daily_response
+    from recharge_atlas.algorithms.recession import estimate_recession_index, recession_breaks
+    from recharge_atlas.algorithms.rises import find_rises, log_flow, rise_threshold
+
+    k, days = 45.0, 100 * 80
+    rng = np.random.default_rng(7)
+    kernel = strip_aquifer_daily_response(k, days)
+    pulses = np.zeros(days)
+    pulses[::80] = rng.uniform(30.0, 60.0, days // 80)
+    gw = np.convolve(pulses, kernel)[:days]
+    small_days = np.arange(35, days, 80)
+    small = np.zeros(days)
+    small[small_days] = 0.25 * gw[small_days] / kernel[0]
+    flow = (gw + np.convolve(small, kernel)[:days]) * rng.lognormal(0.0, 0.05, days)
+    x = log_flow(flow)
+    threshold = rise_threshold(x)
+    assert threshold > np.log10(1.25)  # the small storms are not events
+    found = np.intersect1d(recession_breaks(x), np.concatenate((small_days, small_days + 1)))
+    assert found.size >= 0.15 * small_days.size  # under this noise, only some can be told
+    rises = find_rises(x, 2.0, threshold)
+    recession = estimate_recession_index(x, rises, 2.0)
+    segments = recession.segments
+    for day in found:
+        assert not ((segments["first"] < day) & (segments["last"] >= day)).any()
+    assert recession.days == pytest.approx(k, rel=0.03)
