@@ -17,6 +17,14 @@ How the annual terms fit together (all in mm over the drainage area, or m³):
   ends on the water year's lowest day and the next starts at the highest baseflow after it. The
   method ignores groundwater discharged during the recharge season itself, so it is a lower
   bound, far below the event sum where K is short next to the wet season.
+
+Completeness counts the days the method can use. A day without a value, a day of zero flow
+and a flagged day are all gaps to the method (log Q has no value there, so no rise, recession
+or anchor can be read on them): ``days_missing`` counts all three, ``days_zero_or_flagged`` the
+last two alone. The flow sums (``flow_mm``) still take every real value given, zero flow and
+flagged days included (zero is a real flow; a flagged value is kept, just not used). Baseflow
+is not computed on flagged days (the filters restart after them), so ``baseflow_mm`` and the
+year's ``baseflow_index`` cover the days with both flow and baseflow.
 """
 
 from __future__ import annotations
@@ -29,7 +37,8 @@ import pandas as pd
 from .recession import potential_groundwater_discharge_m3
 from .tables import ColumnTable
 
-#: A period is complete when at most this share of its days lacks a value (our own rule).
+#: A period is complete when at most this share of its days lacks a value the method can use
+#: (missing, zero or flagged; our own rule).
 MAX_MISSING_SHARE = 0.02
 
 #: Columns of the annual table that always exist, in order.
@@ -50,6 +59,7 @@ ANNUAL_COLUMNS = [
     "baseflow_index",
     "days",
     "days_missing",
+    "days_zero_or_flagged",
     "events",
     "events_skipped",
     "all_events_measured",
@@ -65,6 +75,7 @@ PERIOD_COLUMNS = [
     "recharge_m3",
     "complete",
     "days_missing",
+    "days_zero_or_flagged",
     "events",
     "events_skipped",
     "close_events",
@@ -220,6 +231,7 @@ def annual_recharge(
     recession_index_days=None,
     events_low=None,
     events_high=None,
+    flagged=None,
 ):
     """Recharge and water-balance terms by water year, with each year's completeness.
 
@@ -239,13 +251,17 @@ def annual_recharge(
         K, for storage change and (with ``baseflow``) the seasonal recession method.
     events_low, events_high : pandas.DataFrame, optional
         Event tables computed with the low and high ends of the K interval.
+    flagged : array_like of bool, optional
+        Days flagged through a quality code: their flow counts in ``flow_mm`` but they are
+        missing to the method.
 
     Returns
     -------
     pandas.DataFrame
         :data:`ANNUAL_COLUMNS`. A year is complete when it lies wholly inside the record, at
-        most ``max_missing_share`` of its days lack a value, and no event in it was skipped.
-        Terms that could not be computed are NaN.
+        most ``max_missing_share`` of its days lack a value the method can use (missing, zero
+        or flagged days; ``days_missing``), and no event in it was skipped. Terms that could
+        not be computed are NaN.
     """
     return annual_columns(
         _days(flow.index),
@@ -258,6 +274,7 @@ def annual_recharge(
         recession_index_days=recession_index_days,
         events_low=events_low,
         events_high=events_high,
+        flagged=None if flagged is None else np.asarray(flagged, dtype=bool),
     ).frame()
 
 
@@ -273,11 +290,13 @@ def annual_columns(
     recession_index_days=None,
     events_low=None,
     events_high=None,
+    flagged=None,
 ) -> ColumnTable:
     """:func:`annual_recharge` as columns, for flows ``q`` on the days ``days`` (datetime64[D]).
 
     ``events``, ``events_low`` and ``events_high`` need ``peak_date``, ``recharge_m3`` and
-    ``used`` (a DataFrame, a :class:`tables.ColumnTable` or a dict of arrays).
+    ``used`` (a DataFrame, a :class:`tables.ColumnTable` or a dict of arrays); ``flagged``
+    marks flagged days (see :func:`annual_recharge`).
     """
     start_month = _check_month(start_month)
     if len(days) == 0:
@@ -295,6 +314,7 @@ def annual_columns(
     else:
         with_value = np.bincount(slot, weights=has_value.astype(float), minlength=n)
     flow_m3 = _per_slot(slot, np.where(has_value, q, 0.0) * seconds, n)
+    unusable = _unusable_days(q, has_value, flagged, slot, n)
 
     def event_slots(table):
         if table is None or not len(table):
@@ -315,7 +335,7 @@ def annual_columns(
     )
 
     bounds, lengths = _water_year_calendar(first_year, n, start_month)
-    missing = lengths - with_value.astype(int)
+    missing = lengths - with_value.astype(int) + unusable
     # A year counts in the mean when its discharge record is complete; its events are then
     # measured one by one or as composites, and any left unmeasured are counted beside it.
     complete = (in_record == lengths) & (missing <= max_missing_share * lengths)
@@ -365,6 +385,7 @@ def annual_columns(
             "baseflow_index": bfi,
             "days": lengths.astype(np.int64),
             "days_missing": missing.astype(np.int64),
+            "days_zero_or_flagged": unusable.astype(np.int64),
             "events": n_events.astype(np.int64),
             "events_skipped": skipped.astype(np.int64),
             "all_events_measured": complete & (skipped == 0),
@@ -372,6 +393,18 @@ def annual_columns(
         ANNUAL_COLUMNS,
     )
     return table
+
+
+def _unusable_days(q, has_value, flagged, slot, n_slots):
+    """Per slot, the days with a value that the method cannot use: zero (or negative) flow,
+    or flagged."""
+    with np.errstate(invalid="ignore"):
+        unusable = has_value & (q <= 0.0)
+    if flagged is not None:
+        unusable |= has_value & np.asarray(flagged, dtype=bool)
+    if not unusable.any():
+        return np.zeros(n_slots, np.int64)
+    return np.bincount(slot[unusable], minlength=n_slots).astype(np.int64)
 
 
 def _storage_change(days, baseflow, k, bounds):
@@ -435,7 +468,14 @@ def _seasonal_recession(slot, baseflow, k, n_years, days_per_year=None):
 
 
 def period_recharge(
-    flow, events, area_km2, kind="month", start_month=10, max_missing_share=MAX_MISSING_SHARE
+    flow,
+    events,
+    area_km2,
+    kind="month",
+    start_month=10,
+    max_missing_share=MAX_MISSING_SHARE,
+    *,
+    flagged=None,
 ):
     """Recharge by month or by season (of the peak date), with completeness.
 
@@ -443,12 +483,15 @@ def period_recharge(
     ----------
     kind : {"month", "season"}
         Months are labelled ``YYYY-MM``; seasons are Dec-Feb, Mar-May, Jun-Aug and Sep-Nov.
+    flagged : array_like of bool, optional
+        Flagged days: missing to the method (see :func:`annual_recharge`).
 
     Returns
     -------
     pandas.DataFrame
         ``water_year, period, first_date, last_date, recharge_mm, recharge_m3, complete,
-        days_missing, events, events_skipped``.
+        days_missing, days_zero_or_flagged, events, events_skipped``; ``days_missing``
+        counts missing, zero and flagged days.
     """
     return period_columns(
         _days(flow.index),
@@ -458,11 +501,20 @@ def period_recharge(
         kind,
         start_month,
         max_missing_share,
+        flagged=None if flagged is None else np.asarray(flagged, dtype=bool),
     ).frame()
 
 
 def period_columns(
-    days, q, events, area_km2, kind="month", start_month=10, max_missing_share=MAX_MISSING_SHARE
+    days,
+    q,
+    events,
+    area_km2,
+    kind="month",
+    start_month=10,
+    max_missing_share=MAX_MISSING_SHARE,
+    *,
+    flagged=None,
 ) -> ColumnTable:
     """:func:`period_recharge` as columns, for flows ``q`` on the days ``days``."""
     if kind not in ("month", "season"):
@@ -481,7 +533,9 @@ def period_columns(
     )
     n = in_record.size
     q = np.asarray(q, dtype=float)
-    with_value = np.bincount(slot, weights=np.isfinite(q).astype(float), minlength=n)
+    has_value = np.isfinite(q)
+    with_value = np.bincount(slot, weights=has_value.astype(float), minlength=n)
+    unusable = _unusable_days(q, has_value, flagged, slot, n)
     ev_slots = (
         (period_of(np.asarray(events["peak_date"]).astype("datetime64[D]")) - first_period).astype(
             np.intp
@@ -497,7 +551,7 @@ def period_columns(
     )
     calendar = _period_calendar(first_period, n, kind, start_month)
     lengths = calendar["lengths"]
-    missing = lengths - with_value.astype(int)
+    missing = lengths - with_value.astype(int) + unusable
     complete = (in_record == lengths) & (missing <= max_missing_share * lengths)
     return ColumnTable(
         {
@@ -509,6 +563,7 @@ def period_columns(
             "recharge_m3": recharge,
             "complete": complete.astype(bool),
             "days_missing": missing.astype(np.int64),
+            "days_zero_or_flagged": unusable.astype(np.int64),
             "events": n_events.astype(np.int64),
             "events_skipped": skipped.astype(np.int64),
             "close_events": close.astype(np.int64),

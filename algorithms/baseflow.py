@@ -6,6 +6,14 @@ recursion, restarting the filter only where the limit binds. Each gap-free block
 is filtered on its own (missing days stay missing); blocks of like length are filtered together
 as the rows of one matrix, with the same arithmetic as alone, so gaps cost no Python loop.
 
+Restart after a gap: a filter carries nothing across a day without a value. The block after
+the gap starts afresh, as a record of its own would (the recursive filters from the lowest flow
+of its first five days), so the values before the gap and the length of the gap do not touch
+the baseflow after it, and the gap's days get no baseflow. The pipeline hands the filters the
+flow with flagged days (ice, a quality code) set to missing, so a flagged stretch is such a gap:
+its values never influence the baseflow of any other day. Zero flow is a real flow and stays
+in (baseflow zero).
+
 References
 ----------
 Eckhardt, K. (2005). How to construct recursive digital filters for baseflow separation.

@@ -638,7 +638,7 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
         first = first.tz_localize(None)  # the local day
     day0 = np.datetime64(first.to_datetime64(), "D")
     days = day0 + np.arange(q.size).astype("timedelta64[D]")
-    # Flagged days stay in the flow (and the baseflow) but the method does not use them.
+    # Flagged days stay in the flow but neither the method nor the baseflow filters use them.
     flagged = record.flagged.to_numpy(dtype=bool)
     usable = np.where(flagged, np.nan, q) if flagged.any() else q
     x = log_flow(usable)
@@ -680,6 +680,10 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
     quality.extend(recession.warnings)
     quality.extend(master_recession_warnings(master))
     k = recession.days
+    if np.isfinite(k) and k > 0 and np.isnan(x).any():
+        # With K known, a rise hidden in a gap (missing, zero or flagged days) is judged
+        # against the recession carried along K across it, not the flow before it.
+        rises = find_rises(x, lag, threshold, recession_index_days=k)
 
     clean = CleanDays(x)
     # Storm runs that cannot be read one by one are measured as composite events.
@@ -714,9 +718,9 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
     )
 
     if np.isfinite(k):
-        baseflow = separate_baseflow(q, settings.baseflow_method, k, settings.bfi_max)
+        baseflow = separate_baseflow(usable, settings.baseflow_method, k, settings.bfi_max)
     elif settings.baseflow_method != "eckhardt":
-        baseflow = separate_baseflow(q, settings.baseflow_method)
+        baseflow = separate_baseflow(usable, settings.baseflow_method)
     else:
         baseflow = np.full(q.size, np.nan)
     if series:
@@ -733,9 +737,16 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
         recession_index_days=k if np.isfinite(k) else None,
         events_low=events_low,
         events_high=events_high,
+        flagged=flagged if flagged.any() else None,
     )
     periods = annual_mod.period_columns(
-        days, q, events, area, settings.period, settings.water_year_start
+        days,
+        q,
+        events,
+        area,
+        settings.period,
+        settings.water_year_start,
+        flagged=flagged if flagged.any() else None,
     )
     dated = {
         "first_date": (day0 + segments["first"].astype("timedelta64[D]")).astype("datetime64[ns]"),

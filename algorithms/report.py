@@ -1024,7 +1024,9 @@ def _annual_html(annual):
         if complete[i]:
             status = "yes"
         elif np.isfinite(r["days_missing"]) and r["days_missing"]:
-            status = f"no, {int(r['days_missing'])} days missing"
+            unusable = float(r.get("days_zero_or_flagged", 0))
+            kind = f" ({int(unusable)} zero or flagged)" if unusable > 0 else ""
+            status = f"no, {int(r['days_missing'])} days missing{kind}"
         else:
             status = "no"
         row = cells(r, str(int(r["water_year"])), [events, status])

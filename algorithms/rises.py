@@ -176,13 +176,31 @@ def _turning_points(x, starts, ends, threshold):
     return troughs[keep], peaks[keep], long_enough[block[keep]]
 
 
-def _rises_hidden_in_gaps(x, starts, ends, troughs, block, threshold):
-    """Rises that happened in a gap: blocks whose first days climb ``threshold`` above the day
-    before the gap. Returns ``(block, peak)`` of each.
+#: Share of the fall carried along K across a gap that a rise must also clear: the recession in
+#: the gap may have run up to this share slower than K (low flows often recede slower than the
+#: K of the record; our own rule).
+CARRIED_ALLOWANCE = 0.5
+
+
+def _rises_hidden_in_gaps(x, starts, ends, troughs, block, threshold, recession_index_days=None):
+    """Rises that happened in a gap. Returns ``(block, peak)`` of each.
 
     The head of a block is its days up to its first trough (all of it when it has none); a
     block that starts on a trough has its own rise seen and flagged. The peak is the head's
     highest day (the first of equals).
+
+    Without K, a rise happened in the gap when the head climbs ``threshold`` above the day
+    before the gap. With K, the pre-gap flow is carried along the recession across the gap
+    (Rorabaugh 1964: log10 Q falls one cycle in K days), to the head's highest day ``g`` days
+    after the day before the gap::
+
+        expected = log10 Q(before) − g / K
+        rise     ⇔  log10 Q(top) − expected ≥ threshold + CARRIED_ALLOWANCE · g / K
+
+    The allowance lets the recession in the gap run slower than K (an error in K, or a slower
+    recession at low flow) before a rise is read into it; so with K a rise counts when the
+    head stands ``(1 − CARRIED_ALLOWANCE) g / K − threshold`` or less below the day before
+    the gap: every rise the rule without K finds, and those hidden below the pre-gap flow.
     """
     later = np.arange(1, starts.size)
     if later.size == 0:
@@ -199,7 +217,13 @@ def _rises_hidden_in_gaps(x, starts, ends, troughs, block, threshold):
         return np.empty(0, int), np.empty(0, int)
     top = _first_at(x, starts[candidates], head_end - starts[candidates] + 1, np.maximum)
     before_gap = ends[candidates - 1] - 1
-    hidden = x[top] - x[before_gap] >= threshold
+    climb = x[top] - x[before_gap]
+    k = recession_index_days
+    if k is not None and np.isfinite(k) and k > 0:
+        carried = (top - before_gap) / float(k)  # log cycles the recession falls to the top
+        hidden = climb + carried >= threshold + CARRIED_ALLOWANCE * carried
+    else:
+        hidden = climb >= threshold
     return candidates[hidden], top[hidden]
 
 
@@ -262,7 +286,7 @@ class Rises:
         return day[last]
 
 
-def find_rises(logq, lag_days, threshold) -> Rises:
+def find_rises(logq, lag_days, threshold, recession_index_days=None) -> Rises:
     """Find events: significant rises, with peaks closer than the runoff-end lag merged.
 
     Parameters
@@ -274,11 +298,17 @@ def find_rises(logq, lag_days, threshold) -> Rises:
         belongs to the same event: no clean recession day lies between them.
     threshold : float
         Smallest rise treated as an event, in log10 units (see :func:`rise_threshold`).
+    recession_index_days : float, optional
+        K. With it, a rise hidden in a gap is judged against the flow before the gap carried
+        along K across the gap (with an allowance, see :func:`_rises_hidden_in_gaps`);
+        without it, against the flow before the gap. Nothing else depends on K.
     """
     x = np.asarray(logq, dtype=float)
     starts, ends = gap_free_blocks(np.isfinite(x))
     troughs, peaks, block = _turning_points(x, starts, ends, threshold)
-    hidden_block, hidden_peak = _rises_hidden_in_gaps(x, starts, ends, troughs, block, threshold)
+    hidden_block, hidden_peak = _rises_hidden_in_gaps(
+        x, starts, ends, troughs, block, threshold, recession_index_days
+    )
     # The flow rose during a gap: keep the event so its year is not taken as complete,
     # anchored on the block's first day, after the gap (and flagged).
     rise = np.concatenate((starts[hidden_block], troughs))

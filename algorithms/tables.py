@@ -16,6 +16,7 @@ INTEGER_COLUMNS = {
     "water_year",
     "days",
     "days_missing",
+    "days_zero_or_flagged",
     "events",
     "events_skipped",
     "close_events",

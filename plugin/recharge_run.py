@@ -122,7 +122,8 @@ _TABLE_FIELDS = {
         complete:bool recharge_low_mm:double recharge_high_mm:double baseflow_mm:double
         baseflow_m3:double storage_change_mm:double storage_change_m3:double residual_mm:double
         seasonal_recharge_mm:double flow_mm:double baseflow_index:double days:int64
-        days_missing:int64 events:int64 events_skipped:int64 all_events_measured:bool
+        days_missing:int64 days_zero_or_flagged:int64 events:int64 events_skipped:int64
+        all_events_measured:bool
         incremental_recharge_mm:double""",
     "EVENTS": """gauge_id:string event:int64 peak_date:date rise_start_date:date
         peaks_merged:int64 critical_time_days:double critical_date:date q_before_m3s:double
@@ -132,8 +133,8 @@ _TABLE_FIELDS = {
         note:string last_peak_date:date reading_share:double close_to_next:bool
         recharge_mm:double""",
     "PERIODS": """gauge_id:string water_year:int64 period:string first_date:date last_date:date
-        recharge_mm:double recharge_m3:double complete:bool days_missing:int64 events:int64
-        events_skipped:int64 close_events:int64""",
+        recharge_mm:double recharge_m3:double complete:bool days_missing:int64
+        days_zero_or_flagged:int64 events:int64 events_skipped:int64 close_events:int64""",
     "SEGMENTS": """gauge_id:string first_date:date last_date:date days:int64 slope:double
         recession_index_days:double r2:double mean_flow_m3s:double""",
     "MASTER_RECESSION": """gauge_id:string flow_low_m3s:double flow_high_m3s:double

@@ -119,7 +119,15 @@ def test_flagged_days_are_kept_in_flow_but_not_in_the_method():
     segments = result.segments
     for first, last in zip(segments["first_date"], segments["last_date"]):
         assert last < flagged[0] or first > flagged[-1]
-    assert np.isfinite(result.baseflow.loc[flagged]).all()  # baseflow still covers them
+    # The flow keeps them; the baseflow filters do not use them (they restart after the
+    # flagged stretch), and the year counts them as missing.
+    assert np.isfinite(result.flow.loc[flagged]).all()
+    assert np.isnan(result.baseflow.loc[flagged]).all()
+    assert np.isfinite(result.baseflow.loc[flagged[-1] + pd.Timedelta(days=1) :]).all()
+    annual = result.annual.set_index("water_year")
+    zero_or_flagged = record.flagged.to_numpy() | (record.flow.to_numpy() == 0.0)
+    assert annual["days_zero_or_flagged"].sum() == np.count_nonzero(zero_or_flagged)
+    assert not annual.loc[[1994], "complete"].any()
 
 
 @pytest.mark.parametrize("seed", [101, 202, 303])
