@@ -23,8 +23,19 @@ from recharge_atlas.algorithms.recession import (
 from recharge_atlas.algorithms.rises import find_rises, log_flow
 
 
-def test_critical_time_is_rorabaughs_0_2144_k():
-    assert critical_time_days(1.0) == 0.2144  # Rorabaugh (1964)
+def test_critical_time_reads_half_the_pulse_from_the_series_solution():
+    """Worked from the strip-aquifer series solution (Rorabaugh 1960; Glover 1964), not from
+    the constant itself. After a pulse R, the late-time recession is q(t) = R (8/π²)(ln 10/K)
+    10^(−t/K), whose potential volume at t is q K / ln 10 = R (8/π²) 10^(−t/K). The
+    displacement method reads twice that at the critical time, so the exact critical time is
+    where it is R/2: t/K = log10(16/π²) = 0.2098. Rorabaugh (1964) gives 0.2144 K: twice the
+    volume there is 0.9895 R, the method's known 1 % shortfall."""
+    exact = np.log10(16.0 / np.pi**2)
+    assert exact == pytest.approx(0.2098, abs=5e-5)
+    tc = critical_time_days(45.0)
+    read = 2.0 * (8.0 / np.pi**2) * 10.0 ** (-tc / 45.0)
+    assert read == pytest.approx(0.9895, abs=5e-4)
+    assert tc / 45.0 == pytest.approx(exact, rel=0.025)
     # Rule of thumb (common practice, no published source): about 0.2 of the time to drop one
     # log cycle, so K = 45 days gives about 9–10 days.
     assert 9.0 <= critical_time_days(45.0) <= 10.0
