@@ -818,7 +818,8 @@ def _summary_html(result, names, quality, anchors, settings):
         "<table><thead><tr>"
         '<th class="text">Gauge</th><th class="text">Name</th><th>Drainage area<br>km²</th>'
         "<th>Recession index K<br>days (90% interval)</th>"
-        "<th>Mean annual recharge<br>mm/yr (from K interval)</th><th>Baseflow<br>index</th>"
+        "<th>Mean annual recharge<br>mm/yr, years with a complete record<br>(from K interval)"
+        "</th><th>Baseflow<br>index</th>"
         '<th>Complete<br>water years</th><th>Events<br>measured</th><th class="text">Quality</th>'
         "</tr></thead><tbody>" + "".join(rows) + "</tbody></table>"
     )
@@ -940,7 +941,15 @@ def _facts_html(g):
         text = f"{_fmt(g.recharge_mm_per_year)} mm/yr" + _range(
             g.recharge_mm_per_year, g.recharge_mm_per_year_low, g.recharge_mm_per_year_high
         )
-    facts.append(("Mean annual recharge", text))
+    facts.append(("Mean annual recharge (years with a complete record)", text))
+    if g.fully_measured_years != g.complete_years:
+        facts.append(
+            (
+                "Mean over years with every event measured",
+                f"{_fmt(g.recharge_mm_per_year_fully_measured)} mm/yr "
+                f"({g.fully_measured_years} years)",
+            )
+        )
     facts.append(("Baseflow index", _fmt(g.baseflow_index, 2)))
     facts.append(("Complete water years", str(g.complete_years)))
     if len(g.events):
