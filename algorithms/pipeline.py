@@ -42,7 +42,7 @@ from .recession import (
 from .rises import find_rises, log_flow, rise_threshold
 from .subbasins import UNGAUGED_CHOICES
 from .tables import ColumnTable, empty_table, pack_tables, stack, unpack_tables
-from .units import canonical_units
+from .units import DISCHARGE_UNITS, canonical_units
 
 #: Fields added to the catchments layer, in order. Later versions add; they never rename.
 CATCHMENT_FIELDS = [
@@ -316,7 +316,8 @@ class Reporter:
         """A plain message."""
 
     def warning(self, text: str) -> None:
-        """A caution about one gauge or catchment; the run goes on."""
+        """A caution about one gauge or catchment, or about most of them (a plausibility
+        check most gauges fail); the run goes on."""
 
 
 #: The tables of one gauge, with their columns.
@@ -360,6 +361,9 @@ class GaugeResult:
     fully_measured_years : int
     quality : list of str
         Problems in words; empty when all is well.
+    implausible : list of str
+        Keys of the plausibility checks the gauge fails (see :data:`PLAUSIBILITY_CHECKS`);
+        each has its note in ``quality`` too.
     """
 
     gauge_id: str
@@ -383,6 +387,7 @@ class GaugeResult:
     fully_measured_years: int = 0
     #: :meth:`event_figures`, kept when the events table itself went to a table sink.
     kept_event_figures: dict | None = field(default=None, repr=False)
+    implausible: list = field(default_factory=list)
 
     @property
     def quality_text(self) -> str:
@@ -814,8 +819,9 @@ def _checked_lag(x, rises, lag, given_k, recession, settings):
 
 
 def _record_quality(record: GaugeRecord, result: GaugeResult, settings: Settings):
-    """Plain-language cautions about a gauge's record and the method's fit to it."""
-    notes = []
+    """Plain-language cautions about a gauge's record and the method's fit to it (the
+    plausibility checks first: when they fail, nothing else about the gauge can be trusted)."""
+    notes = _plausibility_notes(record, result, settings)
     missing_share = 1.0 - record.days_with_value / max(record.days, 1)
     if missing_share > 0.05:
         notes.append(f"{100 * missing_share:.0f}% of days in the record have no value")
@@ -847,6 +853,288 @@ def _record_quality(record: GaugeRecord, result: GaugeResult, settings: Settings
             "the method suits baseflow-dominated streams"
         )
     return notes
+
+
+#: A river's mean annual flow depth (mean flow volume over the drainage area) lies in this
+#: range, mm/yr (common practice, not a published limit: the driest perennial streams carry
+#: about a millimetre a year, the wettest mountain basins a few metres). A gauge outside it is
+#: flagged: most often the discharge units are wrong, sometimes the catchment.
+FLOW_DEPTH_MM_PER_YEAR = (1.0, 5000.0)
+#: A typical river's mean flow depth, mm/yr: about the world's mean runoff (from memory: some
+#: 40,000 km³ of river flow a year over some 135 million km² of land). Of the unit mix-ups
+#: that would bring a depth from outside the range into it, the one bringing it nearest this
+#: is named (our own rule).
+TYPICAL_FLOW_DEPTH_MM_PER_YEAR = 300.0
+#: A depth this many times beyond the range is "far" beyond it.
+FAR_OUTSIDE = 10.0
+#: The words every flow-depth note ends with: the command-line option / the QGIS parameter.
+UNITS_HINT = "check the discharge units (--units / UNITS)"
+#: The plausibility checks, by key (see ``GaugeResult.implausible``), with what the run's
+#: summary says of the gauges that fail one.
+PLAUSIBILITY_CHECKS = {
+    "flow_depth_high": f"have a mean flow depth above what rivers carry: {UNITS_HINT}",
+    "flow_depth_low": f"have a mean flow depth below what rivers carry: {UNITS_HINT}",
+    "recharge_over_flow": (
+        "have more mean annual recharge than flow: check the recession index "
+        "(--recession-index / RECESSION_INDEX)"
+    ),
+    "baseflow_over_flow": (
+        "have more baseflow than flow: check the baseflow method "
+        "(--baseflow-method / BASEFLOW_METHOD)"
+    ),
+}
+#: Mean annual recharge may exceed the mean flow of the same years by this share before the
+#: gauge is flagged (our own rule: on a stream fed wholly by groundwater the two are equal, and
+#: the method's estimate is good to about this share, so a small excess is its error).
+RECHARGE_OVER_FLOW = 0.10
+#: The baseflow index may exceed 1 by this much, rounding only (the filters keep baseflow at
+#: or below the flow on every day).
+BASEFLOW_OVER_FLOW = 1e-6
+#: Seconds in a mean (Julian) year of 365.25 days.
+_SECONDS_PER_YEAR = 86400.0 * 365.25
+
+
+def _log10_mean(values) -> float:
+    """log10 of the mean of the finite values (all ≥ 0), with neither overflow nor warnings
+    for any size, subnormal numbers included: -inf when they are all zero, NaN when none."""
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v)]
+    if v.size == 0:
+        return np.nan
+    top = float(v.max())
+    if top <= 0.0:
+        return -np.inf
+    # Scaled by the largest value the sum cannot overflow; log10 of a subnormal is finite.
+    return float(np.log10(top)) + float(np.log10(np.mean(v / top)))
+
+
+def _number(log10_value: float) -> str:
+    """A positive number given by its log10, in words for a note: ``177,000``, ``12.3``,
+    ``0.18``, ``3.0×10^-298`` (three significant digits at most; never overflows)."""
+    if not np.isfinite(log10_value):
+        return "0" if log10_value < 0 else "infinity"
+    if -2.0 <= log10_value < 9.0:
+        value = float(f"{10.0**log10_value:.3g}")
+        if value >= 100:
+            return f"{value:,.0f}"
+        return f"{value:.3g}" if value >= 1 else f"{value:.2g}"
+    exponent = math.floor(log10_value)
+    mantissa = round(10.0 ** (log10_value - exponent), 1)
+    if mantissa >= 10.0:
+        mantissa, exponent = mantissa / 10.0, exponent + 1
+    return f"{mantissa:.1f}×10^{exponent}"
+
+
+def _at_least(log10_factor: float) -> str:
+    """A factor given by its log10, rounded down (it is a lower bound): ``20,000``, ``10^297``."""
+    if log10_factor >= 6.0:
+        return f"10^{math.floor(log10_factor)}"
+    step = 10.0 ** (math.floor(log10_factor) - 1)  # two significant digits
+    value = math.floor(10.0**log10_factor / step) * step
+    return f"{value:,.0f}" if value >= 100 else f"{value:.2g}"
+
+
+def _unit_mix_ups(units):
+    """Every other unit read as ``units``: ``(factor, written, read)``, the flow coming out
+    ``factor`` times the truth (factors from :data:`units.DISCHARGE_UNITS`, NIST SP 811)."""
+    read = canonical_units(units)
+    return [
+        (DISCHARGE_UNITS[read] / to_m3s, written, read)
+        for written, to_m3s in DISCHARGE_UNITS.items()
+        if written != read
+    ]
+
+
+def flow_depth_note(flow_m3s, area_km2, units="m3/s"):
+    """A gauge's mean annual flow depth checked against what rivers carry.
+
+    The depth is the mean flow over the days with a value, as a volume per year of 365.25
+    days, over the drainage area: d = Q̄ · 31,557,600 s / (A · 10⁶ m²) · 10³ mm/m. Outside
+    :data:`FLOW_DEPTH_MM_PER_YEAR` (common practice) the gauge is flagged with the likely
+    cause: when reading the values in another of the offered units would bring d into the
+    range, that unit mix-up is named (the one bringing d nearest
+    :data:`TYPICAL_FLOW_DEPTH_MM_PER_YEAR`); otherwise the least factor that would.
+    Worked in log10 throughout, so values of any size (1e-300 m³/s, subnormal ones) neither
+    overflow nor warn.
+
+    Parameters
+    ----------
+    flow_m3s : array_like
+        Daily flows, m³/s (NaN for days without a value).
+    area_km2 : float
+        Drainage area; NaN (or not positive) skips the check.
+    units : str
+        The units the values were read in (names the mix-up).
+
+    Returns
+    -------
+    tuple of (str, str) or None
+        The check's key (``flow_depth_high`` or ``flow_depth_low``) and the note; None when
+        the depth is in the range, or cannot be worked out (no area, no value, no flow).
+
+    Examples
+    --------
+    >>> flow_depth_note([1.0] * 365, 100.0) is None  # 316 mm/yr
+    True
+    >>> flow_depth_note([1000.0] * 365, 100.0)[1][:60]
+    'mean flow depth 316,000 mm/yr is far above what rivers carry'
+    """
+    area = float(area_km2)
+    if not (np.isfinite(area) and area > 0):
+        return None
+    log_flow_mean = _log10_mean(flow_m3s)
+    if not np.isfinite(log_flow_mean):  # no value, or no flow at all (noted elsewhere)
+        return None
+    depth = log_flow_mean + math.log10(_SECONDS_PER_YEAR) - math.log10(area * 1e3)
+    low, high = (math.log10(v) for v in FLOW_DEPTH_MM_PER_YEAR)
+    if low <= depth <= high:
+        return None
+    above = depth > high
+    beyond = depth - high if above else low - depth
+    typical = math.log10(TYPICAL_FLOW_DEPTH_MM_PER_YEAR)
+    best = None
+    for factor, written, read in _unit_mix_ups(units):
+        corrected = depth - math.log10(factor)
+        if (factor > 1.0) == above and low <= corrected <= high:
+            if best is None or abs(corrected - typical) < best[0]:
+                best = (abs(corrected - typical), factor, written, read)
+    lo_text, hi_text = (f"{v:,.0f}" for v in FLOW_DEPTH_MM_PER_YEAR)
+    far = "far " if beyond >= math.log10(FAR_OUTSIDE) else ""
+    way = "large" if above else "small"
+    text = (
+        f"mean flow depth {_number(depth)} mm/yr is {far}{'above' if above else 'below'} what "
+        f"rivers carry (about {lo_text} to {hi_text} mm/yr): "
+    )
+    if best is not None:
+        _, factor, written, read = best
+        times = factor if factor > 1 else 1.0 / factor
+        times_text = f"{times:,.0f}" if times >= 100 else f"{times:.3g}"
+        text += (
+            f"the discharge {'looks' if far else 'may be'} about {times_text} times too {way} "
+            "for the drainage area, "
+            f"as when values in {written} are read as {read}; {UNITS_HINT}"
+        )
+    else:
+        text += (
+            f"the discharge is at least {_at_least(beyond)} times too {way} for the drainage "
+            f"area, which no mix-up of the offered units explains; {UNITS_HINT} and the "
+            "catchment linked to the gauge"
+        )
+    return ("flow_depth_high" if above else "flow_depth_low"), text
+
+
+def _flow_m3_by_water_year(flow: pd.Series, start_month, years) -> np.ndarray:
+    """The flow volume (m³) of each water year in ``years``, from every day with a value (as
+    the annual table's ``flow_mm``, but needing no area)."""
+    q = flow.to_numpy(dtype=float)
+    years = np.asarray(years, dtype=np.int64)
+    out = np.zeros(years.size)
+    if q.size == 0 or years.size == 0:
+        return out
+    first = flow.index[0]
+    if first.tzinfo is not None:
+        first = first.tz_localize(None)  # the local day
+    days = np.datetime64(first.to_datetime64(), "D") + np.arange(q.size).astype("timedelta64[D]")
+    slot = annual_mod._water_year_of_days(days, start_month) - years[0]
+    inside = (slot >= 0) & (slot < years.size)
+    volume = np.where(np.isfinite(q), q, 0.0) * 86400.0
+    return np.bincount(slot[inside], weights=volume[inside], minlength=years.size)[: years.size]
+
+
+def _amount(value: float, area_km2: float) -> str:
+    """A yearly volume in words: as a depth where there is an area, else in m³."""
+    if np.isfinite(area_km2) and area_km2 > 0:
+        return f"{_number(_log10_amount(value) - math.log10(area_km2 * 1e3))} mm/yr"
+    return f"{_number(_log10_amount(value))} m³/yr"
+
+
+def _log10_amount(value: float) -> float:
+    return math.log10(value) if value > 0 else -math.inf
+
+
+def water_balance_notes(result: GaugeResult, flow_m3_by_year=None):
+    """Recharge and baseflow checked against the flow they are part of.
+
+    Recharge that returns to the stream, and the baseflow, are parts of the flow: over the
+    same years neither can exceed it (a single year's recharge may, while the aquifer fills;
+    a mean over the complete years may not). Flagged: mean annual recharge over the complete
+    water years more than :data:`RECHARGE_OVER_FLOW` above the mean annual flow of the same
+    years (on a stream fed wholly by groundwater the two are equal, so the method's own error
+    is allowed), and a baseflow index (Σ baseflow / Σ flow) above 1.
+
+    Parameters
+    ----------
+    result : GaugeResult
+        With its ``annual`` table, ``baseflow_index`` and recession index.
+    flow_m3_by_year : array_like, optional
+        Flow volume of each row of the annual table, m³ (default: the table's ``flow_mm``
+        times the area).
+
+    Returns
+    -------
+    list of (str, str)
+        ``(check key, note)`` for each check failed.
+    """
+    out = []
+    annual = result.table("annual")
+    area = result.area_km2
+    if len(annual):
+        if flow_m3_by_year is None:
+            flow_m3_by_year = np.asarray(annual["flow_mm"], dtype=float) * area * 1e3
+        flow = np.asarray(flow_m3_by_year, dtype=float)
+        recharge = np.asarray(annual["recharge_m3"], dtype=float)
+        same = np.asarray(annual["complete"], dtype=bool) & np.isfinite(recharge)
+        same &= np.isfinite(flow)
+        if same.any():
+            mean_recharge, mean_flow = float(recharge[same].mean()), float(flow[same].mean())
+            if mean_recharge > (1.0 + RECHARGE_OVER_FLOW) * mean_flow:
+                k = result.recession
+                k_text = (
+                    f"the given recession index ({k.days:,.0f} days) is likely far too long"
+                    if k is not None and k.source == "given"
+                    else f"the recession index ({k.days:,.0f} days) or the events are likely wrong"
+                    if k is not None and np.isfinite(k.days)
+                    else "the recession index or the events are likely wrong"
+                )
+                out.append(
+                    (
+                        "recharge_over_flow",
+                        f"mean annual recharge {_amount(mean_recharge, area)} is more than the "
+                        f"mean flow of the same {counted(int(same.sum()), 'water year')} "
+                        f"({_amount(mean_flow, area)}), which recharge returning to the stream "
+                        f"cannot be: {k_text}",
+                    )
+                )
+    bfi = result.baseflow_index
+    if np.isfinite(bfi) and bfi > 1.0 + BASEFLOW_OVER_FLOW:
+        out.append(
+            (
+                "baseflow_over_flow",
+                f"baseflow index {bfi:.2f} is above 1: the baseflow exceeds the flow, which "
+                "cannot be; the baseflow separation went wrong (check the baseflow method, "
+                "--baseflow-method / BASEFLOW_METHOD)",
+            )
+        )
+    return out
+
+
+def _plausibility_notes(record: GaugeRecord, result: GaugeResult, settings: Settings):
+    """The plausibility checks of one gauge (:func:`flow_depth_note`,
+    :func:`water_balance_notes`): their notes, with the keys of the failed checks kept in
+    ``result.implausible``."""
+    found = []
+    depth = flow_depth_note(record.flow.to_numpy(dtype=float), result.area_km2, settings.units)
+    if depth is not None:
+        found.append(depth)
+    annual = result.table("annual")
+    flow = (
+        _flow_m3_by_water_year(record.flow, settings.water_year_start, annual["water_year"])
+        if len(annual)
+        else None
+    )
+    found.extend(water_balance_notes(result, flow))
+    result.implausible = [key for key, _ in found]
+    return [note for _, note in found]
 
 
 #: The complete years' mean flow depth may differ from the whole record's by this share before
@@ -1426,15 +1714,23 @@ def _summary(results, failed, tally=None):
     record, no usable value, or a failure inside the computation); it is flagged when it was
     computed but its quality is not ok. ``with_record`` counts the gauges the discharge table
     holds rows for; ``unmatched_ids`` lists (some of) the table's gauge ids that match no
-    gauge, ``unmatched`` how many there are."""
+    gauge, ``unmatched`` how many there are. ``implausible`` counts the gauges failing each
+    plausibility check, and ``plausibility`` is the line said when most gauges fail one (see
+    :func:`_plausibility_line`; empty otherwise)."""
     skipped = sum(1 for r in results.values() if r.recession is None)
     flagged = sum(1 for r in results.values() if r.recession is not None and r.quality)
+    implausible = {}
+    for result in results.values():
+        for key in result.implausible:
+            implausible[key] = implausible.get(key, 0) + 1
     summary = {
         "gauges": len(results),
         "computed": len(results) - skipped,
         "flagged": flagged,
         "skipped": skipped,
         "failed": failed,
+        "implausible": implausible,
+        "plausibility": _plausibility_line(implausible, len(results)),
     }
     if tally is not None:
         summary.update(
@@ -1445,6 +1741,23 @@ def _summary(results, failed, tally=None):
             }
         )
     return summary
+
+
+def _plausibility_line(implausible, gauges):
+    """One line for the run's summary when most gauges (more than half, and at least 2) fail
+    the same plausibility check, e.g. ``5 of 6 gauges have a mean flow depth above what rivers
+    carry: check the discharge units (--units / UNITS)``: a fault of the whole input (most
+    often its units) rather than of a gauge. The check failed by the most gauges is named
+    (the first in :data:`PLAUSIBILITY_CHECKS` on a tie); empty when there is none."""
+    most = [
+        (count, -order, key)
+        for order, key in enumerate(PLAUSIBILITY_CHECKS)
+        if (count := implausible.get(key, 0)) >= 2 and count > gauges / 2
+    ]
+    if not most:
+        return ""
+    count, _, key = max(most)
+    return f"{count} of {gauges} gauges {PLAUSIBILITY_CHECKS[key]}"
 
 
 def _some(ids, total, shown=3):
@@ -1595,6 +1908,8 @@ def run_atlas(
         f"{len(links.catchment_of)} linked to catchments ({links.method}); "
         f"{len(links.without_gauge)} catchments without a gauge"
     )
+    if summary["plausibility"]:
+        reporter.warning(summary["plausibility"])
     names = catchments["name"].tolist() if "name" in catchments.columns else None
     return AtlasResult(
         catchments=out,
@@ -1651,6 +1966,8 @@ def run_gauges(
             reporter.warning(f"gauge {gid}: {result.quality_text}")
     summary = _summary(results, failed, tally)
     reporter.info(_summary_text(summary))
+    if summary["plausibility"]:
+        reporter.warning(summary["plausibility"])
     return AtlasResult(
         catchments=None,
         annual=_stack(results, "annual"),
