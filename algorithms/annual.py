@@ -133,6 +133,16 @@ def _day_slots(day0, n_days, kind, start_month):
     return first, slot, counts
 
 
+def day_water_years(days, start_month=10):
+    """Water year of each day of a record of consecutive days (datetime64[D]), as a read-only
+    array (worked out once per date range and kept)."""
+    if len(days) == 0:
+        return np.empty(0, np.int64)
+    start_month = _check_month(start_month)
+    first, slot, _ = _day_slots(int(days[0].astype(np.int64)), len(days), "year", start_month)
+    return slot  # positions of the water years from the first: labels enough to group by
+
+
 @functools.lru_cache(maxsize=64)
 def _water_year_calendar(first_year, n, start_month):
     """First days (and the day after the last) and lengths of ``n`` water years (kept)."""
@@ -216,6 +226,113 @@ def _event_sums(events, slot_of_event, n_slots):
     return sums, counts, skipped
 
 
+def _reading_sums(reading, slot_of_event, n_slots):
+    """Per slot: Σ|systematic| and Σ spread² of the measured events' reading errors (m³)."""
+    if reading is None or not len(reading):
+        return np.zeros(n_slots), np.zeros(n_slots)
+    used = np.asarray(reading["used"], dtype=bool)
+    inside = used & (slot_of_event >= 0) & (slot_of_event < n_slots)
+    slot = slot_of_event[inside]
+    systematic = np.abs(np.asarray(reading["systematic_m3"], dtype=float)[inside])
+    spread = np.asarray(reading["spread_m3"], dtype=float)[inside]
+    return (
+        np.bincount(slot, weights=np.nan_to_num(systematic), minlength=n_slots),
+        np.bincount(slot, weights=np.nan_to_num(spread) ** 2, minlength=n_slots),
+    )
+
+
+#: One-sided 95 % point of the normal distribution: the band runs from 5 to 95 %.
+BAND_Z = 1.6448536269514722
+
+
+def recharge_band(recharge, at_low_k, at_high_k, systematic=0.0, spread=0.0):
+    """Low and high ends of a recharge band: K's interval and the reading error together.
+
+    Parameters
+    ----------
+    recharge : array_like
+        The estimate (one year's sum, or a mean).
+    at_low_k, at_high_k : array_like
+        The same recomputed with K at the two ends of its 90 % interval (either may be the
+        larger: a longer K moves both Q1 and Q2).
+    systematic : array_like
+        Reading error that does not average out (Σ|ε R| over the events,
+        :func:`recession.reading_error`), taken as a bound.
+    spread : array_like
+        One standard deviation of the reading error that is independent between events.
+
+    Returns
+    -------
+    low, high : numpy.ndarray
+        ``high = R + √(u² + h²)`` and ``low = R − √(d² + h²)``, with ``u`` and ``d`` how far
+        the K ends take the estimate up and down (0 when neither does) and the reading error's
+        half-width ``h = √((1.645 s)² + e²)`` (``s`` the spread, ``e`` the systematic part).
+        The K error and the reading error are independent, so they add in quadrature (our own
+        rule). ``low ≤ R ≤ high`` always; NaN where neither K end is known.
+    """
+    r = np.asarray(recharge, dtype=float)
+    a = np.asarray(at_low_k, dtype=float)
+    b = np.asarray(at_high_k, dtype=float)
+    with np.errstate(invalid="ignore"):
+        up = np.maximum(np.fmax(a - r, b - r), 0.0)
+        down = np.maximum(np.fmax(r - a, r - b), 0.0)
+    reading = np.hypot(BAND_Z * np.asarray(spread, float), np.asarray(systematic, float))
+    return r - np.hypot(down, reading), r + np.hypot(up, reading)
+
+
+def mean_recharge_band(
+    annual,
+    events_low,
+    events_high,
+    reading_error,
+    start_month=10,
+    area_km2=np.nan,
+    years="complete",
+):
+    """The band of the mean annual recharge over the years marked in column ``years``.
+
+    Notes
+    -----
+    K is one value for the whole record, so its error moves every year the same way: the K
+    part of the mean's band comes from the means at the two K ends. The reading error is
+    independent from year to year: its random part adds in quadrature over the years and is
+    divided by their number (``s̄ = √(Σ s_y²) / n``); its systematic part is the mean of the
+    years' (``ē = Σ e_y / n``). Then :func:`recharge_band` joins them (so the mean's band is
+    narrower than the mean of the years' bands, as it should be). Returns ``(low, high)`` in
+    mm over ``area_km2`` (m³ when ``area_km2`` is NaN), NaN when there are no such years or no
+    K interval.
+    """
+    if not len(annual) or events_low is None or events_high is None:
+        return np.nan, np.nan
+    water_years = np.asarray(annual["water_year"], dtype=np.int64)
+    n = water_years.size
+
+    def slots(table):
+        if table is None or not len(table):
+            return np.empty(0, np.intp)
+        peaks = np.asarray(table["peak_date"]).astype("datetime64[D]")
+        return (_water_year_of_days(peaks, start_month) - water_years[0]).astype(np.intp)
+
+    recharge = np.asarray(annual["recharge_m3"], dtype=float)
+    keep = np.asarray(annual[years], dtype=bool) & np.isfinite(recharge)
+    if not keep.any():
+        return np.nan, np.nan
+    at_low = _event_sums(events_low, slots(events_low), n)[0]
+    at_high = _event_sums(events_high, slots(events_high), n)[0]
+    systematic, variance = _reading_sums(reading_error, slots(reading_error), n)
+    count = keep.sum()
+    low, high = recharge_band(
+        recharge[keep].mean(),
+        at_low[keep].mean(),
+        at_high[keep].mean(),
+        systematic[keep].sum() / count,
+        np.sqrt(variance[keep].sum()) / count,
+    )
+    if np.isfinite(area_km2) and area_km2 > 0:
+        return float(_mm(low, area_km2)), float(_mm(high, area_km2))
+    return float(low), float(high)
+
+
 def _per_slot(slot, values, n_slots):
     return np.bincount(slot, weights=values, minlength=n_slots)
 
@@ -291,12 +408,16 @@ def annual_columns(
     events_low=None,
     events_high=None,
     flagged=None,
+    reading_error=None,
 ) -> ColumnTable:
     """:func:`annual_recharge` as columns, for flows ``q`` on the days ``days`` (datetime64[D]).
 
     ``events``, ``events_low`` and ``events_high`` need ``peak_date``, ``recharge_m3`` and
     ``used`` (a DataFrame, a :class:`tables.ColumnTable` or a dict of arrays); ``flagged``
-    marks flagged days (see :func:`annual_recharge`).
+    marks flagged days (see :func:`annual_recharge`). ``reading_error`` (``peak_date``,
+    ``used``, ``systematic_m3``, ``spread_m3`` per event, from
+    :func:`recession.reading_error`) joins the reading error of each year's events to the
+    band ``recharge_low_mm``–``recharge_high_mm`` (see :func:`recharge_band`).
     """
     start_month = _check_month(start_month)
     if len(days) == 0:
@@ -323,16 +444,12 @@ def annual_columns(
         return (_water_year_of_days(peaks, start_month) - first_year).astype(np.intp)
 
     recharge, n_events, skipped = _event_sums(events, event_slots(events), n)
-    low = (
-        _event_sums(events_low, event_slots(events_low), n)[0]
-        if events_low is not None and len(events_low)
-        else None
-    )
-    high = (
-        _event_sums(events_high, event_slots(events_high), n)[0]
-        if events_high is not None and len(events_high)
-        else None
-    )
+    low = high = None
+    if events_low is not None and len(events_low) and events_high is not None and len(events_high):
+        at_low = _event_sums(events_low, event_slots(events_low), n)[0]
+        at_high = _event_sums(events_high, event_slots(events_high), n)[0]
+        systematic, variance = _reading_sums(reading_error, event_slots(reading_error), n)
+        low, high = recharge_band(recharge, at_low, at_high, systematic, np.sqrt(variance))
 
     bounds, lengths = _water_year_calendar(first_year, n, start_month)
     missing = lengths - with_value.astype(int) + unusable

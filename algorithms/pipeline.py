@@ -35,11 +35,12 @@ from .recession import (
     estimate_recession_index,
     master_columns,
     master_recession_warnings,
+    reading_error,
     recession_warnings,
     runoff_end_lag_days,
     settling_days,
 )
-from .rises import find_rises, log_flow, rise_threshold
+from .rises import find_rises, log_flow, noise_level, rise_threshold
 from .subbasins import UNGAUGED_CHOICES
 from .tables import ColumnTable, empty_table, pack_tables, stack, unpack_tables
 from .units import DISCHARGE_UNITS, canonical_units
@@ -656,13 +657,17 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
     )
     # The record's own estimate is made even when K is given: its segments and master
     # recession curve are diagnostics, and a given K far from it deserves a word.
-    recession = estimate_recession_index(x, rises, lag, settings.min_segment_days)
+    # K's interval resamples whole water years (a segment in the year of its first day).
+    day_years = annual_mod.day_water_years(days, settings.water_year_start)
+    recession = estimate_recession_index(x, rises, lag, settings.min_segment_days, years=day_years)
     lag, lag_note = _checked_lag(x, rises, lag, given, recession, settings)
     if lag_note:
         quality.append(lag_note)
         if settings.runoff_end_lag_days is None:  # the record's lag is used from here on
             result.lag_days = lag
-            recession = estimate_recession_index(x, rises, lag, settings.min_segment_days)
+            recession = estimate_recession_index(
+                x, rises, lag, settings.min_segment_days, years=day_years
+            )
     if given is not None:
         k = float(given)
         notes = recession_warnings(k)
@@ -721,6 +726,7 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
         else {"peak_date": event_table["peak_date"], "recharge_m3": end[0], "used": end[1]}
         for end in ends
     )
+    reading = _reading_errors(event_table, k, noise_level(x)) if ends[0] is not None else None
 
     if np.isfinite(k):
         baseflow = separate_baseflow(usable, settings.baseflow_method, k, settings.bfi_max)
@@ -743,6 +749,7 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
         events_low=events_low,
         events_high=events_high,
         flagged=flagged if flagged.any() else None,
+        reading_error=reading,
     )
     periods = annual_mod.period_columns(
         days,
@@ -773,16 +780,38 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
     result.recharge_mm_per_year_fully_measured = mean(
         annual, "recharge_mm", years="all_events_measured"
     )
-    # Recharge from the two ends of the K interval, smaller first (either end may give either).
-    ends = sorted(
-        [mean(annual, "recharge_low_mm"), mean(annual, "recharge_high_mm")],
-        key=lambda v: (np.isnan(v), v),
+    # The band of the mean: K's interval (the same for every year) and the reading error
+    # (independent between years) together; it always holds the estimate.
+    result.recharge_mm_per_year_low, result.recharge_mm_per_year_high = (
+        annual_mod.mean_recharge_band(
+            annual, events_low, events_high, reading, settings.water_year_start, area
+        )
     )
-    result.recharge_mm_per_year_low, result.recharge_mm_per_year_high = ends
     result.baseflow_mm_per_year = mean(annual, "baseflow_mm")
     result.seasonal_recharge_mm_per_year = mean(annual, "seasonal_recharge_mm")
     quality.extend(_record_quality(record, result, settings))
     return result
+
+
+def _reading_errors(events, k, noise):
+    """The reading error of each event (:func:`recession.reading_error`), for the band."""
+    used = np.asarray(events["used"], dtype=bool)
+    day = np.timedelta64(1, "D")
+    reading_days = (events["post_anchor_date"] - events["last_peak_date"]) / day
+    systematic, spread = reading_error(
+        k,
+        np.where(used, reading_days, np.nan),
+        events["q_before_m3s"],
+        events["q_after_m3s"],
+        noise,
+        np.where(used, events["reading_share"], 1.0),
+    )
+    return {
+        "peak_date": events["peak_date"],
+        "used": used,
+        "systematic_m3": systematic,
+        "spread_m3": spread,
+    }
 
 
 #: The record's settling time must exceed the later of the area's lag and Tc by a quarter and

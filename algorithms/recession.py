@@ -82,6 +82,114 @@ def displacement_recharge_m3(flow_before_m3s, flow_after_m3s, recession_index_da
     return 2.0 * (q2 - q1) * SECONDS_PER_DAY * np.asarray(recession_index_days, float) / LN10
 
 
+# --------------------------------------------------------------------------- reading error
+
+#: The one-sided 95 % point of the normal distribution: a 5–95 % band is ±1.645 σ.
+Z90 = 1.6448536269514722
+
+
+def reading_offset(recession_index_days, reading_days, terms=200):
+    """Systematic relative error of one displacement read from daily means (Rorabaugh 1960).
+
+    Notes
+    -----
+    After a recharge pulse R the groundwater discharge of a strip aquifer is the series
+    ``q(t) = R (8α/π²) Σ_{n odd} exp(−n²αt)``, ``α = ln 10 / K`` (Rorabaugh 1960; Glover 1964).
+    The method reads the post-event recession on one day, ``t_r`` days after the pulse (the
+    reading day's centre; the pulse at the centre of the peak day), moves it along K to the
+    critical time Tc = 0.2144 K (Rorabaugh 1964) and takes ``2 V = 2 Q K / ln 10 = 2 Q / α``.
+    The daily mean of ``exp(−xt)`` over the day centred on ``t`` is ``exp(−xt) S(x)`` with
+    ``S(x) = sinh(x/2)/(x/2)``; the pre-event recession (first term only) carries the same
+    ``S(α)`` in Q1 and in Q2, so it cancels. The event's own part reads::
+
+        R_read / R = (16/π²) Σ_{n odd} S(n²α) exp(−n²α t_r + α (t_r − Tc))
+
+    Three errors of reading a daily record are in it: Rorabaugh's critical-time approximation
+    (first term alone, read late: ``(16/π²) 10^(−0.2144) = 0.9895``, i.e. 0.4947 R rather than
+    R/2 for the half reading), the higher terms still present when the reading day is close to
+    the peak (``+1.9 %`` at exactly Tc) and the daily mean instead of the instantaneous value
+    (``S(α) − 1 ≈ α²/24``: +0.2 % at K = 10 days). Returns ``R_read / R − 1``.
+    """
+    k = np.asarray(recession_index_days, dtype=float)
+    alpha = LN10 / k
+    # The day holding the pulse is never read; half a day after it the series still converges.
+    t = np.maximum(np.asarray(reading_days, dtype=float), 0.5)
+    tc = CRITICAL_TIME_FACTOR * k
+    n2 = (np.arange(1, 2 * terms, 2, dtype=float) ** 2).reshape((-1,) + (1,) * np.ndim(t * k))
+    x = n2 * alpha
+    # S(x) exp(−x t) = (exp(−x (t − ½)) − exp(−x (t + ½))) / x: no overflow for t ≥ ½.
+    daily = (np.exp(-x * (t - 0.5)) - np.exp(-x * (t + 0.5))) / x
+    ratio = (16.0 / np.pi**2) * np.exp(alpha * (t - tc)) * daily.sum(axis=0)
+    return ratio - 1.0
+
+
+def timing_spread(recession_index_days):
+    """Relative standard deviation of a displacement from not knowing when in the day it came.
+
+    Notes
+    -----
+    A daily record puts every pulse at its peak day's centre; the pulse really came ``δ`` days
+    later, ``δ`` uniform on ``[−½, ½]``. Read at a fixed day and moved along K to the critical
+    time, the late-time displacement ``∝ exp(−α(t_r − δ))`` is then off by the factor
+    ``exp(αδ)`` (``α = ln 10 / K``; Rorabaugh 1960 series solution, first term), whose mean is
+    ``S(α)`` and whose mean square is ``S(2α)`` (``S(x) = sinh(x/2)/(x/2)``). So the spread is
+    ``√(S(2α) − S(α)²) ≈ ln 10 / (K √12)``: 6.6 % at K = 10 days, 1.5 % at 45. It is
+    independent from event to event.
+    """
+    alpha = LN10 / np.asarray(recession_index_days, dtype=float)
+
+    def s(v):
+        return np.sinh(v / 2.0) / (v / 2.0)
+
+    return np.sqrt(np.maximum(s(2.0 * alpha) - s(alpha) ** 2, 0.0))
+
+
+def reading_error(recession_index_days, reading_days, q_before_m3s, q_after_m3s, noise, share=1.0):
+    """The error of reading one event's recharge from a daily record, in m³.
+
+    Parameters
+    ----------
+    recession_index_days : float
+        K.
+    reading_days : array_like
+        Days from the event's (last) peak to the day the post-event recession was read.
+    q_before_m3s, q_after_m3s : array_like
+        Q1 and Q2 at the critical time (the event table's ``q_before_m3s``, ``q_after_m3s``).
+    noise : float
+        The gauge's day-to-day noise σ in log10 units (:func:`rises.noise_level`).
+    share : array_like
+        The event's reading share (:func:`displacement.reading_share`; 1 for one pulse).
+
+    Returns
+    -------
+    systematic, spread : numpy.ndarray
+        ``systematic = ε R`` with ``ε`` from :func:`reading_offset` (signed, the same for every
+        event read alike: it does not average out), and ``spread``, one standard deviation of
+        the parts that are independent from event to event::
+
+            spread² = (s_t R)² + (2 K σ √(Q1² + Q2²) / C)²     (Q in m³/day)
+
+        with ``R = 2 (Q2 − Q1) K / ln 10 / C`` the event's recharge (Rorabaugh 1964),
+        ``s_t`` from :func:`timing_spread` and ``C`` the share. The second term is the noise of
+        the two single-day readings: each day's value is off by a factor ``10^ε``, ``ε`` of
+        standard deviation σ, so Q is off by ``ln 10 σ Q`` and R by ``(2K/ln 10) ln 10 σ Q / C``;
+        the anchor day before the rise and the reading day after the peak are different days,
+        so the two add in quadrature. As a share of the event's recharge the two terms are
+        ``s_t`` and ``ln 10 σ √(Q1² + Q2²) / |Q2 − Q1|``: large for a small event on a large
+        baseflow. For a year's sum (or any set of events), add ``|systematic|`` and add
+        ``spread`` in quadrature.
+    """
+    k = float(recession_index_days)
+    q1 = np.asarray(q_before_m3s, dtype=float)
+    q2 = np.asarray(q_after_m3s, dtype=float)
+    c = np.asarray(share, dtype=float)
+    recharge = displacement_recharge_m3(q1, q2, k) / c
+    systematic = reading_offset(k, reading_days) * recharge
+    gauging = 2.0 * k * SECONDS_PER_DAY * float(noise) * np.hypot(q1, q2) / c
+    spread = np.hypot(timing_spread(k) * recharge, gauging)
+    return systematic, spread
+
+
 # --------------------------------------------------------------------------- segments
 
 
@@ -94,7 +202,7 @@ class RecessionIndex:
     days : float
         K, days per log cycle (NaN when it could not be estimated).
     low, high : float
-        A 90 % bootstrap interval over segments.
+        A 90 % interval from resampling whole water years (:func:`combine_segments`).
     segments_used : int
         Number of recession segments behind the estimate.
     source : str
@@ -280,35 +388,91 @@ def _segment_fits(sums, first, last):
     return slope, r2, sum_x / n
 
 
-def combine_segments(segments, quantile=0.5, n_boot=200, seed=0):
-    """Combine segment slopes into one K with a bootstrap interval.
+#: The interval of K is a 90 % interval: the 5 and 95 % points.
+INTERVAL_PROBABILITIES = (0.05, 0.95)
+#: Days in a resampling block when the days' water years are not given.
+YEAR_BLOCK_DAYS = 365
+#: Segments from fewer water years than this make K's interval itself unsure (our own rule).
+FEW_YEARS = 3
+
+
+def combine_segments(segments, quantile=0.5, n_boot=200, seed=0, groups=None):
+    """Combine segment slopes into one K with a 90 % interval from resampling whole years.
 
     The combined slope is the length-weighted ``quantile`` of the segment slopes; K = −1/slope.
-    The interval is the 5–95 % range of that estimate over segments resampled with replacement
-    (``n_boot`` resamples; 0 skips the interval). Each resample is kept as the count of times
-    each segment was drawn, so the sorted slopes are shared by all resamples.
+
+    The interval resamples whole water years: ``groups`` labels each segment with the water
+    year of its first day (by default, 365-day blocks from the record start), and each of the
+    ``n_boot`` resamples draws as many years as there are, with replacement, each with all its
+    segments; the combined estimator is taken on each resample (0 skips the interval). Years
+    differ (wet and dry years leave different quickflow in their recessions, evapotranspiration
+    acts in some summers), so the spread between years, not the resampling error of one median
+    over hundreds of segments, is what K's uncertainty is.
+
+    The 5–95 % points of the resampled K, taken about K on a log scale, are then widened by the
+    small-sample factor ``f(G) = t(0.95, G − 1) / z(0.95) · √(G / (G − 1))`` for ``G`` years
+    (Student's t over the normal point, and the ``(G − 1)/G`` by which a resample's variance
+    falls short; our own rule, after the usual bootstrap caveat for few clusters):
+    ``low = K (low*/K)^f`` and ``high = K (high*/K)^f``. So ``low ≤ K ≤ high`` always,
+    ``f`` is 2.2 for 3 years, 1.2 for 10 and 1.08 for 20, and the interval never reaches 0.
+    With one year only, segments are resampled one by one instead (its width then says
+    nothing of the spread between years: :func:`estimate_recession_index` warns).
+
+    Returns
+    -------
+    tuple of float
+        ``(K, low, high)``; NaN where not defined.
     """
+    k, low, high, _ = _combine(segments, quantile, n_boot, seed, groups)
+    return k, low, high
+
+
+def _combine(segments, quantile, n_boot, seed, groups):
+    """:func:`combine_segments`, also giving the number of years (groups) behind it."""
     slopes = np.asarray(segments["slope"], dtype=float)
     weights = np.asarray(segments["days"], dtype=float)
     finite = np.isfinite(slopes)
+    if groups is None:
+        first = np.asarray(segments["first"], dtype=np.int64)
+        groups = first // YEAR_BLOCK_DAYS
+    labels = np.asarray(groups)[finite]
     slopes, weights = slopes[finite], weights[finite]
     if slopes.size == 0:
-        return np.nan, np.nan, np.nan
+        return np.nan, np.nan, np.nan, 0
     order = np.argsort(slopes, kind="stable")
-    slopes, weights = slopes[order], weights[order]
+    slopes, weights, labels = slopes[order], weights[order], labels[order]
+    _, group = np.unique(labels, return_inverse=True)
+    n_groups = int(group.max()) + 1
     k = float(_k_from(slopes, weights[None, :], quantile)[0])
     if slopes.size < 2 or n_boot <= 0:
-        return k, np.nan, np.nan
-    counts = _resample_counts(slopes.size, n_boot, seed)
-    boot = _k_from(slopes, counts * _whole_weights(weights, counts.shape[1])[None, :], quantile)
+        return k, np.nan, np.nan, n_groups
+    if n_groups >= 2:
+        counts = _resample_counts(n_groups, n_boot, seed)[:, group]
+    else:  # one year: its segments one by one
+        counts = _resample_counts(slopes.size, n_boot, seed)
+    # A resample may draw the largest year many times: bound its total by its draws.
+    most = int(counts.sum(axis=1).max())
+    boot = _k_from(slopes, counts * _whole_weights(weights, most)[None, :], quantile)
     boot = np.sort(boot[np.isfinite(boot)])
-    if boot.size == 0:
-        return k, np.nan, np.nan
+    if boot.size == 0 or not np.isfinite(k):
+        return k, np.nan, np.nan, n_groups
     low, high = (
         _sorted_quantile(boot, np.zeros(1, np.int64), np.array([boot.size]), p)[0]
-        for p in (0.05, 0.95)
+        for p in INTERVAL_PROBABILITIES
     )
-    return k, float(low), float(high)
+    widen = _few_years_factor(max(n_groups, 2))
+    low = k * (min(float(low), k) / k) ** widen
+    high = k * (max(float(high), k) / k) ** widen
+    return k, float(low), float(high), n_groups
+
+
+@functools.lru_cache(maxsize=128)
+def _few_years_factor(n_years):
+    """``t(0.95, G − 1) / z(0.95) · √(G / (G − 1))`` (see :func:`combine_segments`)."""
+    from scipy.stats import norm, t
+
+    g = float(n_years)
+    return float(t.ppf(0.95, g - 1.0) / norm.ppf(0.95) * np.sqrt(g / (g - 1.0)))
 
 
 @functools.lru_cache(maxsize=256)
@@ -361,7 +525,7 @@ def _k_from(sorted_slopes, weights, quantile):
 
 
 def estimate_recession_index(
-    logq, rises: Rises, lag_days, min_days=7, quantile=0.5, seed=0
+    logq, rises: Rises, lag_days, min_days=7, quantile=0.5, seed=0, years=None
 ) -> RecessionIndex:
     """Estimate K from the record's recession segments.
 
@@ -370,7 +534,9 @@ def estimate_recession_index(
     late-time slope (Rorabaugh 1960 series solution), so early days would bias K low. A first
     pass from N gives the critical time; the second pass gives K.
 
-    See :func:`recession_segments` and :func:`combine_segments`.
+    ``years`` gives the water year of each day (any label per day); a segment belongs to the
+    year of its first day, and K's interval resamples whole years (by default 365-day blocks
+    from the record start). See :func:`recession_segments` and :func:`combine_segments`.
     """
     x = np.asarray(logq, dtype=float)
     sums = _Sums(x)
@@ -381,15 +547,22 @@ def estimate_recession_index(
         segs2 = segment_columns(x, rises, later, min_days, sums)
         if len(segs2) >= 2:
             segs = segs2
-    k, low, high = combine_segments(segs, quantile, seed=seed)
+    groups = None if years is None else np.asarray(years)[np.asarray(segs["first"], np.int64)]
+    k, low, high, n_years = _combine(segs, quantile, 200, seed, groups)
     used = int(np.isfinite(segs["slope"]).sum())
+    warnings = recession_warnings(k, used)
+    if np.isfinite(k) and used >= 2 and n_years < FEW_YEARS:
+        warnings.append(
+            f"recession index interval from segments of only {n_years} water "
+            f"year{'s' if n_years != 1 else ''}: the spread between years is barely known"
+        )
     return RecessionIndex(
         days=k,
         low=low,
         high=high,
         segments_used=used,
         segment_columns=segs,
-        warnings=recession_warnings(k, used),
+        warnings=warnings,
     )
 
 
