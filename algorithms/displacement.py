@@ -6,6 +6,9 @@ For each event:
   extrapolated along K to the critical time Tc = 0.2144 K after the peak;
 * Q2, the post-event recession, is read on a clean day at least N days after the peak and no
   later than the next rise, the day nearest to peak + Tc, and moved along K to peak + Tc;
+* each anchor's value is the mean, along K, of up to :data:`ANCHOR_DAYS` clean days of the same
+  recession (the anchor day and the days before it, or after it): one day's gauging noise
+  would pass whole into the recharge, and the lowest day is biased low by being picked;
 * recharge R = 2 (Q2 − Q1) K / ln 10, with Q as volume per day.
 
 Events chain: the lowest day before one event's rise lies on the recession that follows the
@@ -275,10 +278,10 @@ def _event_table(q, day0, rises, parts):
         "q_before_m3s": np.where(used, parts["q1"], np.nan),
         "q_after_m3s": np.where(used, parts["q2"], np.nan),
         "pre_anchor_date": dates(start),
-        "pre_anchor_m3s": q[start],
+        "pre_anchor_m3s": parts["pre_value"],
         "pre_extrapolation_days": parts["pre_span"],
         "post_anchor_date": post_dates,
-        "post_anchor_m3s": np.where(has_post, q[np.where(has_post, post, 0)], np.nan),
+        "post_anchor_m3s": np.where(has_post, parts["post_value"], np.nan),
         "post_extrapolation_days": parts["post_span"],
         "recharge_m3": parts["recharge_m3"],
         "used": used,
@@ -365,11 +368,17 @@ def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days, clean=No
     start = rises.rise_start
     target = peak + tc  # the critical time, as a fractional day position
 
-    # Pre-event: anchored at the lowest day before the rise, moved along K to peak + Tc.
+    # Pre-event: anchored at the lowest day before the rise (its value the mean along K of the
+    # clean days of the recession that end there), moved along K to peak + Tc.
     pre_span = target - start
-    q1 = q[start] * 10.0 ** (-pre_span / k)
+    settled = int(np.ceil(max(float(lag_days), float(np.max(tc)))))
+    prev_peak = np.concatenate(([-(10**9)], rises.last_peak[:-1]))
+    pre_anchor = _along_k(x, start, -1, prev_peak + settled, start)
+    pre_value = _anchored(q, start, pre_anchor, k)
+    q1 = pre_value * 10.0 ** (-pre_span / k)
 
-    # Post-event: the clean day nearest peak + Tc within [peak + N, next rise].
+    # Post-event: the clean day nearest peak + Tc within [peak + N, next rise] (its value the
+    # mean along K of the clean days that follow it on the same recession).
     lo = peak + int(np.ceil(lag_days))
     hi = rises.recession_end
     post_day = np.clip(np.rint(target).astype(int), lo, np.maximum(hi, lo))
@@ -377,7 +386,11 @@ def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days, clean=No
     has_post = post_day >= 0
     safe_post = np.where(has_post, post_day, 0)
     post_span = np.where(has_post, safe_post - target, np.nan)
-    q2 = np.where(has_post, q[safe_post] * 10.0 ** (post_span / k), np.nan)
+    next_start = np.append(start[1:], np.iinfo(np.int64).max // 4)
+    post_hi = np.where(hi >= next_start, next_start - 1, hi)  # never the next (lowest) day
+    post_anchor = _along_k(x, safe_post, 1, safe_post, np.where(has_post, post_hi, -1))
+    post_value = np.where(has_post, _anchored(q, safe_post, post_anchor, k), np.nan)
+    q2 = post_value * 10.0 ** (post_span / k)
 
     note = np.full(n_events, "", dtype=object) if notes else None
     used = np.ones(np.shape(target), bool)
@@ -425,6 +438,8 @@ def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days, clean=No
         "close": close,
         "q1": q1,
         "q2": q2,
+        "pre_value": pre_value,
+        "post_value": post_value,
         "pre_span": pre_span,
         "post_day": np.where(has_post, post_day, -1),
         "post_span": post_span,
@@ -432,6 +447,45 @@ def _displacements(q, logq, rises, k, lag_days, max_extrapolation_days, clean=No
         "note": note,
         "recharge_m3": recharge,
     }
+
+
+#: Days averaged along K for each anchor value (the anchor day and up to four more on the same
+#: recession; our own rule). One day's gauging noise would pass whole into Q1 or Q2, and the
+#: lowest day before a rise is picked for being low, so its noise is biased low (in tests +1 %
+#: of recharge at 2 % noise and +3 % at 5 % from that alone).
+ANCHOR_DAYS = 5
+
+
+def _along_k(x, anchor, step, lo, hi, width=None):
+    """Sums for the mean along K of the clean days next to each anchor.
+
+    From each ``anchor`` day, walks ``step`` (−1 back, +1 on) over up to ``width`` days within
+    ``[lo, hi]``, stopping at the first day without a value. Returns ``(sum_x, sum_offset,
+    count)``: the sum of log10 flow over those days, the sum of their offsets ``d − anchor`` and
+    their number. On a recession ``log q(anchor) = x_d + (d − anchor)/K``, so the anchor's
+    value is ``(sum_x + sum_offset / K) / count`` (see :func:`_anchored`).
+    """
+    anchor = np.asarray(anchor, dtype=np.int64)
+    offsets = step * np.arange(ANCHOR_DAYS if width is None else width, dtype=np.int64)
+    days = anchor[..., None] + offsets
+    inside = (days >= np.asarray(lo)[..., None]) & (days <= np.asarray(hi)[..., None])
+    inside &= (days >= 0) & (days < x.size)
+    values = x[np.clip(days, 0, max(x.size - 1, 0))] if x.size else np.full(days.shape, np.nan)
+    good = np.logical_and.accumulate(inside & np.isfinite(values), axis=-1)
+    return (
+        np.where(good, values, 0.0).sum(axis=-1),
+        np.where(good, offsets, 0).sum(axis=-1).astype(float),
+        good.sum(axis=-1),
+    )
+
+
+def _anchored(q, anchor, sums, k):
+    """The flow at each anchor day from :func:`_along_k`'s sums with K (one K or a column);
+    the day's own value where no clean day is there to average."""
+    sum_x, sum_offset, count = sums
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = (sum_x + sum_offset / k) / count
+    return np.where(count > 0, 10.0**mean, q[np.asarray(anchor)])
 
 
 def _next_first_pulse(rises):

@@ -144,6 +144,27 @@ def timing_spread(recession_index_days):
     return np.sqrt(np.maximum(s(2.0 * alpha) - s(alpha) ** 2, 0.0))
 
 
+#: The method's own allowance, as a share of the recharge (90 % half-width; our own rule). What
+#: the reading error and K's interval do not hold: the sharing of a composite among its pulses,
+#: quickflow that lingers a little past the lag without reaching the rule that adopts the
+#: record's lag, and the choice of the rise's lowest day. Measured on the analytic families of
+#: ``benchmarks/hard_records.py`` (seeds 1–3): once these are in, the band holds the truth of the
+#: mean on 90–100 % of the gauges where the method's assumptions hold or are only bent.
+METHOD_ALLOWANCE = 0.02
+#: How much of the day-to-day noise (as a share, ``ln 10 σ``) the lowest day before a rise is
+#: biased low by, after the anchors are averaged over days (measured in the same tests: +0.5 %
+#: of recharge at 2 % noise and +1.7 % at 5 %; our own rule).
+NOISE_BIAS_SHARE = 0.4
+
+
+def method_allowance(noise):
+    """The method's allowance for a gauge with day-to-day noise ``noise`` (σ, log10 units), as a
+    share of the recharge: ``√(a² + (b ln 10 σ)²)`` with ``a`` :data:`METHOD_ALLOWANCE` and ``b``
+    :data:`NOISE_BIAS_SHARE`."""
+    sigma = float(noise) if np.isfinite(noise) else 0.0
+    return float(np.hypot(METHOD_ALLOWANCE, NOISE_BIAS_SHARE * LN10 * sigma))
+
+
 def reading_error(recession_index_days, reading_days, q_before_m3s, q_after_m3s, noise, share=1.0):
     """The error of reading one event's recharge from a daily record, in m³.
 
@@ -163,9 +184,10 @@ def reading_error(recession_index_days, reading_days, q_before_m3s, q_after_m3s,
     Returns
     -------
     systematic, spread : numpy.ndarray
-        ``systematic = ε R`` with ``ε`` from :func:`reading_offset` (signed, the same for every
-        event read alike: it does not average out), and ``spread``, one standard deviation of
-        the parts that are independent from event to event::
+        ``systematic = (|ε| + m) |R|``, a bound on the parts that do not average out: ``ε`` from
+        :func:`reading_offset` (the same for every event read alike) and ``m`` the method's
+        allowance (:func:`method_allowance`); and ``spread``, one standard deviation of the
+        parts that are independent from event to event::
 
             spread² = (s_t R)² + (2 K σ √(Q1² + Q2²) / C)²     (Q in m³/day)
 
@@ -184,7 +206,9 @@ def reading_error(recession_index_days, reading_days, q_before_m3s, q_after_m3s,
     q2 = np.asarray(q_after_m3s, dtype=float)
     c = np.asarray(share, dtype=float)
     recharge = displacement_recharge_m3(q1, q2, k) / c
-    systematic = reading_offset(k, reading_days) * recharge
+    systematic = (np.abs(reading_offset(k, reading_days)) + method_allowance(noise)) * np.abs(
+        recharge
+    )
     gauging = 2.0 * k * SECONDS_PER_DAY * float(noise) * np.hypot(q1, q2) / c
     spread = np.hypot(timing_spread(k) * recharge, gauging)
     return systematic, spread
@@ -669,6 +693,68 @@ def _sorted_quantile(values, starts, counts, p):
 LEVEL_RATIO = 1.5
 
 
+#: How far :func:`rising_share` may stray from 0 before the segments are said to hold small
+#: storms (above) or sudden losses (below) (our own rule: on invented records of seven other
+#: kinds, seeds 1–4, it stayed within ±0.4 %; with many small storms it was +1.6 to +6.7 % and K
+#: came out 50–150 % long; on a losing stream that dries up, −2.6 to −4.8 % and K 5–26 % short).
+RISING_SHARE_LIMIT = 0.01
+
+
+def rising_share_warnings(share):
+    """Plain-language cautions from :func:`rising_share` (none within the limit)."""
+    if not np.isfinite(share) or abs(share) <= RISING_SHARE_LIMIT:
+        return []
+    if share > 0:
+        return [
+            f"small rises inside the recessions ({100 * share:.0f}% more of their days rise "
+            "beyond the gauging noise than fall beyond it): storms too small to count as events "
+            "still recharge, so K and the recharge are likely too high"
+        ]
+    return [
+        f"sudden drops inside the recessions ({100 * -share:.0f}% more of their days fall "
+        "beyond the gauging noise than rise beyond it): flow lost to the ground or taken from "
+        "the stream, so K is likely too short"
+    ]
+
+
+#: The least spread of day-to-day steps :func:`rising_share` assumes (log10 units, about 0.5 %
+#: of flow): a record without noise still bends a little after Tc and carries rounding to a few
+#: significant figures, which are no storms (the floor of :func:`recession_breaks` too).
+STEP_SPREAD_FLOOR = 0.002
+
+
+def rising_share(logq, segments, recession_index_days):
+    """Share of the day-to-day steps inside recession segments that rise beyond the noise, less
+    the share that fall as far beyond it.
+
+    A step is ``d = x[t+1] − x[t] + 1/K`` (its excess over the recession along K). Gauging noise
+    scatters the steps evenly about their centre; storms too small to count as events add steps
+    far above it, and flatten the segments (K then comes out too long, and the recharge with
+    it). With ``m`` the median step and ``s = 1.4826 MAD`` their robust spread (the normal
+    consistency factor, at least :data:`STEP_SPREAD_FLOOR`), this returns
+    ``P(d > m + 3s) − P(d < m − 3s)``: about 0 under noise alone, whatever its size (our own
+    test). ``segments`` holds ``first`` and ``last`` (day
+    positions). Returns NaN when there are fewer than 30 steps.
+    """
+    x = np.asarray(logq, dtype=float)
+    first = np.asarray(segments["first"], dtype=np.int64)
+    last = np.asarray(segments["last"], dtype=np.int64)
+    k = float(recession_index_days)
+    if not first.size or not np.isfinite(k) or k <= 0:
+        return np.nan
+    inside = np.zeros(x.size, dtype=np.int64)  # +1 where a segment starts, −1 at its last day
+    np.add.at(inside, first, 1)
+    np.add.at(inside, last, -1)
+    step_in_segment = np.cumsum(inside)[:-1] > 0  # the step from day t to t + 1
+    d = np.diff(x)[step_in_segment] + 1.0 / k
+    d = d[np.isfinite(d)]
+    if d.size < 30:
+        return np.nan
+    centre = float(np.median(d))
+    spread = max(1.4826 * float(np.median(np.abs(d - centre))), STEP_SPREAD_FLOOR)
+    return float(np.mean(d > centre + 3 * spread) - np.mean(d < centre - 3 * spread))
+
+
 def master_recession_warnings(table):
     """Caution when K changes with flow level on the master recession curve.
 
@@ -716,9 +802,16 @@ def recession_warnings(k, segments_used=None):
 SETTLED_EXCESS = 0.01
 #: Events with a clean recession needed before the record's settling time is trusted.
 SETTLING_EVENTS = 5
+#: When the record's typical displacement is known, a recession has settled once its excess is
+#: below this share of it (our own rule). The excess left in Q2 passes into the recharge as
+#: about ``excess / log10(Q2/Q1)`` of it, so 0.01 log10 is a 23 % error on an event that lifts
+#: the recession by a tenth: small events on a large baseflow need a stricter test.
+SETTLED_SHARE = 0.05
 
 
-def settling_days(logq, rises: Rises, recession_index_days, lag_days, noise=None):
+def settling_days(
+    logq, rises: Rises, recession_index_days, lag_days, noise=None, displacement=None
+):
     """Days after a peak when the record's recessions have settled onto the recession along K.
 
     For each event whose recession runs clean (no gap, no new rise) for long enough, the late
@@ -734,6 +827,10 @@ def settling_days(logq, rises: Rises, recession_index_days, lag_days, noise=None
     lasts longer, a displacement read at the critical time carries quickflow (+18 % to +26 % in
     tests). This checks it on the gauge's own hydrographs (our own rule, in the spirit of the
     master recession curve). Returns NaN with fewer than :data:`SETTLING_EVENTS` such events.
+
+    ``displacement``, the record's typical ``log10(Q2/Q1)`` (median over its events), makes the
+    test stricter where events are small: the excess must then also be below
+    :data:`SETTLED_SHARE` of it.
     """
     x = np.asarray(logq, dtype=float)
     k = float(recession_index_days)
@@ -765,6 +862,9 @@ def settling_days(logq, rises: Rises, recession_index_days, lag_days, noise=None
     if excess.size >= 3:
         excess[1:-1] = np.median(np.stack((excess[:-2], excess[1:-1], excess[2:])), axis=0)
     sigma = noise_level(x) if noise is None else float(noise)
-    tolerance = max(SETTLED_EXCESS, 3.0 * 1.25 * sigma / np.sqrt(chosen.size))
+    settled = SETTLED_EXCESS
+    if displacement is not None and np.isfinite(displacement) and displacement > 0:
+        settled = min(settled, SETTLED_SHARE * float(displacement))
+    tolerance = max(settled, 3.0 * 1.25 * sigma / np.sqrt(chosen.size))
     above = np.flatnonzero(excess > tolerance)
     return float(above[-1] + 2) if above.size else 1.0

@@ -593,6 +593,7 @@ padding:6px 14px;margin:8px 0}
 .row{display:flex;flex-wrap:wrap;gap:18px;align-items:flex-start}
 nav ol{columns:3;font-size:14px}
 .note{color:#555;font-size:13px}
+.caution{background:#fff8e1;border-left:6px solid #e0b000;padding:6px 10px}
 a{color:#08519c}
 .wide{overflow-x:auto;max-width:100%}
 caption{font-size:13px;text-align:left;color:#444}
@@ -818,12 +819,16 @@ def _summary_html(result, names, quality, anchors, settings):
         "<table><thead><tr>"
         '<th class="text">Gauge</th><th class="text">Name</th><th>Drainage area<br>km²</th>'
         "<th>Recession index K<br>days (90% interval)</th>"
-        "<th>Mean annual recharge<br>mm/yr, years with a complete record<br>(from K interval)"
+        "<th>Mean annual recharge<br>mm/yr, years with a complete record<br>(90% band)"
         "</th><th>Baseflow<br>index</th>"
         '<th>Complete<br>water years</th><th>Events<br>measured</th><th class="text">Quality</th>'
         "</tr></thead><tbody>" + "".join(rows) + "</tbody></table>"
     )
-    out = ['<section id="summary"><h2>Summary</h2>', table]
+    out = ['<section id="summary"><h2>Summary</h2>']
+    line = (result.summary or {}).get("plausibility", "")
+    if line:  # most gauges fail the same check: a fault of the whole input, said first
+        out.append(f'<p class="caution"><b>Check the input:</b> {_e(line)}.</p>')
+    out.append(table)
     without = _catchments_without_gauge(result.catchments)
     if without:
         shown = ", ".join(_e(n) for n in without[:30]) + (" …" if len(without) > 30 else "")

@@ -13,6 +13,7 @@ Sources beside the checks:
 
 from __future__ import annotations
 
+import html
 import math
 import warnings
 
@@ -112,6 +113,13 @@ def test_litres_read_as_cubic_metres_flag_every_gauge(demo_region, clean_run):
     assert line in reporter.warnings
     # The run is a result: every gauge computed, none failed.
     assert result.summary["computed"] == 6 and result.summary["failed"] == 0
+    # The report says it first, above the summary table.
+    from recharge_atlas.algorithms.report import report_html
+
+    page = report_html(result, max_gauges=1, include_year_maps=False)
+    said = page.index("Check the input:")
+    assert html.escape(line) in page[said : said + 400]
+    assert said < page.index("<table>", page.index('id="summary"'))
 
 
 def test_cubic_feet_read_as_cubic_metres_name_the_35_factor(demo_region):

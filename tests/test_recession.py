@@ -178,3 +178,22 @@ def test_a_rise_too_small_for_an_event_still_breaks_a_segment():
     for day in found:
         assert not ((segments["first"] < day) & (segments["last"] >= day)).any()
     assert recession.days == pytest.approx(k, rel=0.03)
+
+
+def test_small_rises_left_inside_recessions_are_counted():
+    # Day-to-day steps along a recession scatter evenly about −1/K under gauging noise alone
+    # (as many beyond 3 robust standard deviations above as below: 0.13 % each for a normal
+    # variable); storms too small to count as events add steps far above it.
+    from recharge_atlas.algorithms.recession import rising_share
+
+    rng = np.random.default_rng(5)
+    k, days = 40.0, 3000
+    clean = 2.0 - np.arange(days) / k + 0.01 * rng.standard_normal(days)
+    segments = {"first": np.array([0]), "last": np.array([days - 1])}
+    assert abs(rising_share(clean, segments, k)) < 0.005
+    bumped = clean.copy()
+    for day in rng.choice(days - 10, 150, replace=False):
+        bumped[day:] += 0.06  # 15 % rises, below a rise threshold of 5σ
+    assert rising_share(bumped, segments, k) > 0.03
+    none = {"first": np.array([], int), "last": np.array([], int)}
+    assert np.isnan(rising_share(clean, none, k))
