@@ -651,7 +651,8 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
     flagged = record.flagged.to_numpy(dtype=bool)
     usable = np.where(flagged, np.nan, q) if flagged.any() else q
     x = log_flow(usable)
-    threshold = rise_threshold(x)
+    noise = noise_level(x)  # worked out once: the rise threshold, segment breaks, the band
+    threshold = rise_threshold(x, noise=noise)
     rises = find_rises(x, lag, threshold)
     result.lag_days, result.rise_threshold = lag, threshold
 
@@ -662,14 +663,16 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
     # recession curve are diagnostics, and a given K far from it deserves a word.
     # K's interval resamples whole water years (a segment in the year of its first day).
     day_years = annual_mod.day_water_years(days, settings.water_year_start)
-    recession = estimate_recession_index(x, rises, lag, settings.min_segment_days, years=day_years)
-    lag, lag_note = _checked_lag(x, rises, lag, given, recession, settings)
+    recession = estimate_recession_index(
+        x, rises, lag, settings.min_segment_days, years=day_years, noise=noise
+    )
+    lag, lag_note = _checked_lag(x, rises, lag, given, recession, settings, noise)
     if lag_note:
         quality.append(lag_note)
         if settings.runoff_end_lag_days is None:  # the record's lag is used from here on
             result.lag_days = lag
             recession = estimate_recession_index(
-                x, rises, lag, settings.min_segment_days, years=day_years
+                x, rises, lag, settings.min_segment_days, years=day_years, noise=noise
             )
     if given is not None:
         k = float(given)
@@ -730,7 +733,7 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
         else {"peak_date": event_table["peak_date"], "recharge_m3": end[0], "used": end[1]}
         for end in ends
     )
-    reading = _reading_errors(event_table, k, noise_level(x)) if ends[0] is not None else None
+    reading = _reading_errors(event_table, k, noise) if ends[0] is not None else None
 
     if np.isfinite(k):
         baseflow = separate_baseflow(usable, settings.baseflow_method, k, settings.bfi_max)
@@ -836,7 +839,7 @@ def _typical_displacement(x, rises, k, lag):
     return float(np.median(ratio)) if ratio.size else np.nan
 
 
-def _checked_lag(x, rises, lag, given_k, recession, settings):
+def _checked_lag(x, rises, lag, given_k, recession, settings, noise=None):
     """The runoff-end lag checked on the record's own hydrographs (see
     :func:`recession.settling_days`): ``(lag, note)``. Where runoff clearly lasts longer than
     the lag, the record's settling time is returned with a note saying so, unless the user set
@@ -844,7 +847,9 @@ def _checked_lag(x, rises, lag, given_k, recession, settings):
     k = float(given_k) if given_k is not None else recession.days
     if not np.isfinite(k) or k <= 0:
         return lag, ""
-    settled = settling_days(x, rises, k, lag, displacement=_typical_displacement(x, rises, k, lag))
+    settled = settling_days(
+        x, rises, k, lag, noise, displacement=_typical_displacement(x, rises, k, lag)
+    )
     reading = max(lag, float(critical_time_days(k)))
     if not (np.isfinite(settled) and settled > LAG_MARGIN[0] * reading + LAG_MARGIN[1]):
         return lag, ""

@@ -332,11 +332,11 @@ def recession_breaks(logq, noise=None):
 class _Sums:
     """Running sums of a record for least-squares fits on any span (computed once)."""
 
-    def __init__(self, x):
+    def __init__(self, x, noise=None):
         finite = np.isfinite(x)
         xf = np.where(finite, x, 0.0)
         self.bad = ~finite
-        self.breaks = recession_breaks(x)
+        self.breaks = recession_breaks(x, noise)
         # Sums of x, t·x and x² from the start; sums over t alone have closed forms.
         stacked = np.empty((3, x.size + 1))
         stacked[:, 0] = 0.0
@@ -549,7 +549,7 @@ def _k_from(sorted_slopes, weights, quantile):
 
 
 def estimate_recession_index(
-    logq, rises: Rises, lag_days, min_days=7, quantile=0.5, seed=0, years=None
+    logq, rises: Rises, lag_days, min_days=7, quantile=0.5, seed=0, years=None, noise=None
 ) -> RecessionIndex:
     """Estimate K from the record's recession segments.
 
@@ -561,9 +561,10 @@ def estimate_recession_index(
     ``years`` gives the water year of each day (any label per day); a segment belongs to the
     year of its first day, and K's interval resamples whole years (by default 365-day blocks
     from the record start). See :func:`recession_segments` and :func:`combine_segments`.
+    ``noise`` is the record's noise level when already known (:func:`rises.noise_level`).
     """
     x = np.asarray(logq, dtype=float)
-    sums = _Sums(x)
+    sums = _Sums(x, noise)
     segs = segment_columns(x, rises, lag_days, min_days, sums)
     k, low, high = combine_segments(segs, quantile, n_boot=0)
     if np.isfinite(k):

@@ -997,7 +997,7 @@ def _annual_html(annual):
         if name not in table.columns:
             table[name] = np.nan
     complete = table["complete"].astype(bool).to_numpy()
-    # The low–high column only when the K interval moves some year's recharge by 1 mm or more.
+    # The low–high column only when the band is 1 mm or more wide in some year.
     show_range = any(
         _range(v, lo, hi) for v, lo, hi in table[list(ANNUAL_SHOWN[:3])].itertuples(index=False)
     )
@@ -1055,9 +1055,10 @@ def _annual_html(annual):
         "left out of the means."
     )
     note += (
-        " Low–high: recharge from the two ends of the K interval."
+        " Low–high: the year's 90 % band (K's interval, the error of reading a daily record and "
+        "the method's allowance; it says nothing for a flagged gauge)."
         if show_range
-        else " The K interval changes no year's recharge by 1 mm or more."
+        else " The 90 % band is under 1 mm wide in every year."
     )
     return (
         '<h3>Water years</h3><div class="wide"><table><thead><tr>'

@@ -55,9 +55,11 @@ def _median(values):
     return 0.5 * float(part[half - 1] + part[half])
 
 
-def rise_threshold(logq, min_rise=0.01, noise_multiple=5.0) -> float:
-    """The smallest rise (log10 units) treated as an event: the larger of a floor and k·σ."""
-    return float(max(min_rise, noise_multiple * noise_level(logq)))
+def rise_threshold(logq, min_rise=0.01, noise_multiple=5.0, noise=None) -> float:
+    """The smallest rise (log10 units) treated as an event: the larger of a floor and k·σ
+    (``noise``, σ when already known; else :func:`noise_level` of ``logq``)."""
+    sigma = noise_level(logq) if noise is None else float(noise)
+    return float(max(min_rise, noise_multiple * sigma))
 
 
 def gap_free_blocks(valid):

@@ -34,7 +34,8 @@ def _summary(label, table):
         f"worst_k={100 * s['worst_k_error']:.1f}% "
         f"worst_ok_recharge={100 * s['worst_ok_recharge_error']:.1f}% "
         f"worst_ok_k={100 * s['worst_ok_k_error']:.1f}% "
-        f"coverage={100 * s['coverage']:.0f}% band_holds_estimate={100 * s['band_holds_estimate']:.0f}%"
+        f"coverage={100 * s['coverage']:.0f}% coverage_ok={100 * s['coverage_ok']:.0f}% "
+        f"band_holds_estimate={100 * s['band_holds_estimate']:.0f}%"
     )
 
 

@@ -538,7 +538,8 @@ def score_family(rows) -> dict:
 
     Returns ``gauges``, ``ok`` (how many say ok), ``off_and_ok``, the worst absolute recharge
     and K errors (over all gauges, and over the ``ok`` ones), ``coverage`` (share of gauges
-    whose truth lies in the band; meant to be 90 %) and ``band_holds_estimate`` (share whose
+    whose truth lies in the band) and ``coverage_ok`` (the same over the ``ok`` gauges, whose
+    band claims 90 %) and ``band_holds_estimate`` (share whose
     band contains the estimate; must be 100 %).
     """
     table = pd.DataFrame(rows)
@@ -557,5 +558,6 @@ def score_family(rows) -> dict:
         "worst_ok_recharge_error": worst(ok, "recharge_error"),
         "worst_ok_k_error": worst(ok, "k_error"),
         "coverage": float(table["truth_in_band"].mean()),
+        "coverage_ok": float(ok["truth_in_band"].mean()) if len(ok) else np.nan,
         "band_holds_estimate": float(table["estimate_in_band"].mean()),
     }
