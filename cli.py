@@ -58,6 +58,9 @@ def _parser():
         description="Groundwater recharge from streamflow records, mapped across catchments.",
     )
     _debug_option(parser, False)
+    from recharge_atlas.algorithms.provenance import tool_version
+
+    parser.add_argument("--version", action="version", version=f"recharge-atlas {tool_version()}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     sub.required = True
 
@@ -162,7 +165,31 @@ def _parser():
         help="folder for the results (default: demo_output)",
     )
     _debug_option(demo, argparse.SUPPRESS)
+    parser.commands = {"run": run, "demo": demo}  # for the provenance of a run
     return parser
+
+
+#: The command line's inputs, recorded with their size and SHA-256 in every output.
+INPUT_OPTIONS = ("--gauges", "--catchments", "--subbasins", "--discharge")
+
+
+def _provenance(command_parser, args):
+    """Where a run's outputs come from: its inputs and every setting (defaults included) in
+    the option names a user types (:class:`provenance.Provenance`)."""
+    from recharge_atlas.algorithms.provenance import Provenance
+
+    inputs, settings = [], []
+    for action in command_parser._actions:
+        names = [o for o in action.option_strings if o.startswith("--")]
+        if not names or action.dest in ("help", "debug"):
+            continue
+        name, value = max(names, key=len), getattr(args, action.dest, None)
+        if name in INPUT_OPTIONS:
+            if value is not None:
+                inputs.append((name, value))
+        else:
+            settings.append((name, value))
+    return Provenance("command line", inputs, settings)
 
 
 def _add_field_options(run):
@@ -400,10 +427,13 @@ def run_files(
     scheme="quantiles",
     classes=5,
     gauges_per_group=None,
+    provenance=None,
 ):
     """Read the inputs, run the pipeline and write the outputs. Returns the AtlasResult.
 
     Give either ``catchments`` (total drainage areas) or ``subbasins`` (a subbasin map).
+    ``provenance`` (:class:`provenance.Provenance`) is recorded in every output; without it
+    the inputs are recorded under plain names and the settings as the pipeline holds them.
     """
     from recharge_atlas.algorithms import files
     from recharge_atlas.algorithms.errors import InputError
@@ -445,6 +475,11 @@ def run_files(
 
     class_breaks([1.0, 2.0], scheme, classes)  # a bad scheme or class count fails before the run
     settings = settings.resolved()  # bad settings fail before any file is read
+    if provenance is None:
+        from recharge_atlas.algorithms.provenance import Provenance
+
+        named = [("gauges", gauges), (what, basins), ("discharge", discharge)]
+        provenance = Provenance("Python (run_files)", named, sorted(vars(settings).items()))
     spill = None
     try:
         gauge_layer = files.read_layer(gauges, "gauges")
@@ -480,16 +515,27 @@ def run_files(
     # at the end: a failure or an interrupt leaves none half-written and touches none.
     try:
         with files.staged_outputs() as stage:
-            files.write_geopackage(result, stage.path(out), daily=daily, spill=spill)
+            files.write_geopackage(
+                result,
+                stage.path(out),
+                daily=daily,
+                spill=spill,
+                scheme=scheme,
+                classes=classes,
+                provenance=provenance,
+            )
+            footer = provenance.footer()
             if map_path:
                 mapped = result.subbasins if result.subbasins is not None else result.catchments
                 figure = recharge_map(mapped, gauge_layer, scheme=scheme, classes=classes)
-                files.save_figure(figure, stage.path(map_path, "map"))
+                files.save_figure(figure, stage.path(map_path, "map"), footer=footer)
             if year_maps_path:
                 figure = year_maps(
                     result.catchments, result.annual, gauge_layer, scheme=scheme, classes=classes
                 )
-                files.save_figure(figure, stage.path(year_maps_path, "per-year map"), dpi=100)
+                files.save_figure(
+                    figure, stage.path(year_maps_path, "per-year map"), dpi=100, footer=footer
+                )
             if report_path:
                 from recharge_atlas.algorithms.report import write_report
 
@@ -501,6 +547,7 @@ def run_files(
                     scheme=scheme,
                     classes=classes,
                     reporter=reporter,
+                    provenance=provenance,
                 )
     finally:
         if spill is not None:
@@ -609,7 +656,7 @@ def _settings(args):
     )
 
 
-def _demo(args):
+def _demo(args, parser=None):
     from recharge_atlas.algorithms.pipeline import Settings
     from recharge_atlas.sample_layers import generate
 
@@ -621,6 +668,17 @@ def _demo(args):
     years_png = out_dir / "recharge_by_year.png"
     html = out_dir / "report.html"
     print(f"Demo region: {generate.REGION_NAME} (invented), from {folder}")
+    # Recorded as the run command that does the same, every default shown.
+    run_parser = (parser or _parser()).commands["run"]
+    same = [
+        "--gauges", str(folder / "gauges.gpkg"),
+        "--catchments", str(folder / "catchments.gpkg"),
+        "--discharge", str(folder / "discharge.csv"),
+        "--out", str(gpkg), "--map", str(png), "--year-maps", str(years_png),
+        "--report", str(html),
+    ]  # fmt: skip
+    provenance = _provenance(run_parser, run_parser.parse_args(same))
+    provenance.interface = "command line (demo)"
     result = run_files(
         folder / "gauges.gpkg",
         folder / "catchments.gpkg",
@@ -631,6 +689,7 @@ def _demo(args):
         reporter=_StderrReporter(),
         report_path=html,
         year_maps_path=years_png,
+        provenance=provenance,
     )
     print(
         f"Results: {gpkg} (layers catchments, incremental_areas; tables annual, events, periods, segments, master_recession, links)"
@@ -654,7 +713,7 @@ def main(argv=None):
         with warnings.catch_warnings():
             if not debug:  # library warnings are noise to users; our cautions are printed
                 warnings.simplefilter("ignore")
-            return _command(args)
+            return _command(args, parser)
     except InputError as exc:
         print(f"recharge-atlas: error: {exc}", file=sys.stderr)
         if debug:
@@ -685,10 +744,11 @@ def _print_trace():
     traceback.print_exc(file=sys.stderr)
 
 
-def _command(args):
+def _command(args, parser=None):
     if args.command == "demo":
-        _demo(args)
+        _demo(args, parser)
         return EXIT_OK
+    provenance = _provenance(parser.commands["run"], args) if parser is not None else None
     run_files(
         args.gauges,
         args.catchments,
@@ -704,6 +764,7 @@ def _command(args):
         scheme=args.classes.replace("-", "_"),
         classes=args.class_count,
         gauges_per_group=args.gauges_per_group,
+        provenance=provenance,
     )
     written = [p for p in (args.out, args.map, args.year_maps, args.report) if p]
     print("wrote " + ", ".join(written))

@@ -23,6 +23,12 @@ from pandas.api.types import union_categoricals
 
 from .errors import InputError, describe, listed, quoted
 
+#: The GeoPackage version written (the ``VERSION`` creation option of GDAL's driver). GDAL 3.8
+#: and later write 1.4 by default, which GDAL 3.6 (QGIS 3.22 on Debian 12) opens with a warning
+#: that it "may only be partially supported"; 1.2 holds everything written here and every
+#: supported QGIS reads it cleanly.
+GPKG_VERSION = "1.2"
+
 #: File suffixes read as delimited text.
 TEXT_SUFFIXES = {".csv", ".txt", ".tsv"}
 #: Text tables: only an empty cell is missing; ``NA`` or ``None`` stay text (a gauge may be
@@ -636,21 +642,110 @@ RESULT_TABLES = (
 )
 
 
-def write_geopackage(result, path, daily=False, spill=None):
+def write_layer(frame, path, layer):
+    """Write a GeoDataFrame as one layer of a GeoPackage of :data:`GPKG_VERSION` (added to
+    the file when it exists)."""
+    frame.to_file(path, layer=layer, driver="GPKG", VERSION=GPKG_VERSION)
+
+
+def write_layer_style(db, layer, name, description, qml, geometry_column="geom"):
+    """Store ``qml`` as the default QGIS style of ``layer`` in an open GeoPackage.
+
+    QGIS's convention (QGIS writes the same table when a style is saved "in the datasource
+    database"): table ``layer_styles`` with ``f_table_catalog`` and ``f_table_schema`` empty,
+    ``f_table_name`` and ``f_geometry_column`` naming the layer, the style document in
+    ``styleQML`` and ``useAsDefault`` true on the style QGIS applies when the layer opens. The
+    table is listed among the contents as attributes, so GDAL sees it too.
+    """
+    now = pd.Timestamp.now(tz="UTC").tz_localize(None).floor("s")
+    row = {
+        "f_table_catalog": "",
+        "f_table_schema": "",
+        "f_table_name": layer,
+        "f_geometry_column": geometry_column,
+        "styleName": name,
+        "styleQML": qml,
+        "styleSLD": "",
+        "useAsDefault": True,
+        "description": description,
+        "owner": "",
+        "ui": "",
+        "update_time": now + pd.Timedelta(milliseconds=1),  # a time, so DATETIME, not DATE
+    }
+    frame = pd.DataFrame([row])
+    frame["update_time"] = frame["update_time"].astype("datetime64[ns]")
+    add_attribute_table(db, "layer_styles", frame, "Styles of the layers, read by QGIS")
+
+
+#: The GeoPackage metadata extension (OGC 12-128r15, annex F.8): its tables, as the standard
+#: gives them, and the URI our own JSON provenance document is filed under.
+METADATA_SQL = (
+    "CREATE TABLE IF NOT EXISTS gpkg_metadata (id INTEGER CONSTRAINT m_pk PRIMARY KEY ASC NOT "
+    "NULL, md_scope TEXT NOT NULL DEFAULT 'dataset', md_standard_uri TEXT NOT NULL, mime_type "
+    "TEXT NOT NULL DEFAULT 'text/xml', metadata TEXT NOT NULL DEFAULT '')",
+    "CREATE TABLE IF NOT EXISTS gpkg_metadata_reference (reference_scope TEXT NOT NULL, "
+    "table_name TEXT, column_name TEXT, row_id_value INTEGER, timestamp DATETIME NOT NULL "
+    "DEFAULT (strftime('%Y-%m-%dT%H:%M:%fZ','now')), md_file_id INTEGER NOT NULL, md_parent_id "
+    "INTEGER, CONSTRAINT crmr_mfi_fk FOREIGN KEY (md_file_id) REFERENCES gpkg_metadata(id), "
+    "CONSTRAINT crmr_mpi_fk FOREIGN KEY (md_parent_id) REFERENCES gpkg_metadata(id))",
+    "CREATE TABLE IF NOT EXISTS gpkg_extensions (table_name TEXT, column_name TEXT, "
+    "extension_name TEXT NOT NULL, definition TEXT NOT NULL, scope TEXT NOT NULL, CONSTRAINT "
+    "ge_tce UNIQUE (table_name, column_name, extension_name))",
+)
+METADATA_EXTENSION = "http://www.geopackage.org/spec120/#extension_metadata"
+PROVENANCE_URI = "urn:recharge-atlas:provenance:1"
+
+
+def write_provenance(db, provenance):
+    """Store where an output came from (a :class:`provenance.Provenance`) in an open
+    GeoPackage: as the plain ``run`` table (any SQL user can read it) and as a JSON document
+    in the GeoPackage metadata extension, referenced for the whole GeoPackage."""
+    add_attribute_table(
+        db, "run", provenance.table(), "How this output was made: version, inputs, settings"
+    )
+    for sql in METADATA_SQL:
+        db.execute(sql)
+    for table in ("gpkg_metadata", "gpkg_metadata_reference"):
+        db.execute(
+            "INSERT OR IGNORE INTO gpkg_extensions (table_name, column_name, extension_name, "
+            "definition, scope) VALUES (?, NULL, 'gpkg_metadata', ?, 'read-write')",
+            (table, METADATA_EXTENSION),
+        )
+    cursor = db.execute(
+        "INSERT INTO gpkg_metadata (md_scope, md_standard_uri, mime_type, metadata) "
+        "VALUES ('dataset', ?, 'application/json', ?)",
+        (PROVENANCE_URI, provenance.as_json()),
+    )
+    db.execute(
+        "INSERT INTO gpkg_metadata_reference (reference_scope, md_file_id) VALUES ('geopackage', ?)",
+        (cursor.lastrowid,),
+    )
+
+
+def write_geopackage(
+    result, path, daily=False, spill=None, scheme="quantiles", classes=5, provenance=None
+):
     """Write a run's results as one GeoPackage.
 
     Layers ``catchments``, ``incremental_areas`` (and ``subbasins`` with a subbasin map); tables ``annual``,
     ``events``, ``periods``, ``segments``, ``master_recession`` and ``links``; with
     ``daily=True`` also ``daily`` (flow and baseflow of every day). Tables a large run kept on
-    disk as it went (``spill``, a :class:`TableSpill`) are copied from there.
+    disk as it went (``spill``, a :class:`TableSpill`) are copied from there. The catchments
+    layer carries its choropleth of mean annual recharge (classes by ``scheme`` and
+    ``classes``) as its default QGIS style (:func:`write_layer_style`). ``provenance`` (a
+    :class:`provenance.Provenance`) goes in as the ``run`` table and the GeoPackage's metadata
+    (:func:`write_provenance`).
     """
+    from .layer_style import recharge_style
+
+    style = recharge_style(result.catchments, scheme=scheme, classes=classes)
     with atomic_path(path) as temp:
-        result.catchments.to_file(temp, layer="catchments", driver="GPKG")
+        write_layer(result.catchments, temp, "catchments")
         if getattr(result, "subbasins", None) is not None:
-            result.subbasins.to_file(temp, layer="subbasins", driver="GPKG")
+            write_layer(result.subbasins, temp, "subbasins")
         incremental = result.incremental_areas()
         if len(incremental):
-            incremental.to_file(temp, layer="incremental_areas", driver="GPKG")
+            write_layer(incremental, temp, "incremental_areas")
         db = sqlite3.connect(temp)
         try:
             if spill is not None:
@@ -665,13 +760,31 @@ def write_geopackage(result, path, daily=False, spill=None):
                     add_attribute_table(
                         db, "daily", result.daily(), "Daily flow and baseflow by gauge"
                     )
+                if style is not None:
+                    name, title, qml = style
+                    write_layer_style(db, "catchments", name, f"Choropleth: {title}", qml)
+                if provenance is not None:
+                    write_provenance(db, provenance)
         finally:
             db.close()
     return Path(path)
 
 
-def save_figure(figure, path, dpi=150):
-    """Save a matplotlib figure as PNG, atomically."""
+def save_figure(figure, path, dpi=150, footer=None):
+    """Save a matplotlib figure as PNG, atomically; ``footer`` (the version and date of the
+    run, :meth:`provenance.Provenance.footer`) is written small in its bottom right corner."""
+    if footer:  # just under everything drawn, at its right edge
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+        canvas = figure.canvas
+        if not hasattr(canvas, "get_renderer"):
+            canvas = FigureCanvasAgg(figure)
+        box = figure.get_tightbbox(canvas.get_renderer())
+        width, height = figure.get_size_inches()
+        figure.text(
+            box.x1 / width, box.y0 / height - 0.004, footer,
+            ha="right", va="top", fontsize=6.5, color="#666666",
+        )  # fmt: skip
     with atomic_path(path) as temp:
         figure.savefig(temp, dpi=dpi, format="png", bbox_inches="tight")
     return Path(path)
@@ -705,11 +818,14 @@ def _cells(series, kind):
         return _with_none(_day_texts(values.astype("datetime64[D]")), np.isnat(values))
     if kind == "DATETIME":
         values = series.to_numpy(dtype="datetime64[ns]")
-        text = np.char.add(np.datetime_as_string(values.astype("datetime64[s]")), "Z")
+        # GeoPackage 1.2, Requirement 5: YYYY-MM-DDTHH:MM:SS.SSSZ (GDAL warns on any other).
+        text = np.char.add(np.datetime_as_string(values.astype("datetime64[ms]")), "Z")
         return _with_none(text.tolist(), np.isnat(values))
     if kind == "BOOLEAN":
         return series.to_numpy(dtype=bool).astype(np.int64).tolist()
     if kind == "INTEGER":
+        if series.hasnans:  # a nullable integer column with missing values
+            return [None if pd.isna(v) else int(v) for v in series.to_numpy(dtype=object)]
         return series.to_numpy(dtype=np.int64).tolist()
     if kind == "DOUBLE":
         values = series.to_numpy(dtype=float)

@@ -87,6 +87,7 @@ def report_html(
     water_year_start=None,
     include_year_maps=True,
     reporter=None,
+    provenance=None,
 ):
     """The run's report as one self-contained HTML page.
 
@@ -112,6 +113,9 @@ def report_html(
     reporter : pipeline.Reporter, optional
         Told ``progress(done, total, gauge_id)`` before each gauge and asked ``cancelled()``;
         a cancel raises :class:`errors.Cancelled` (drawing takes about a second per gauge).
+    provenance : provenance.Provenance, optional
+        Where the run came from (version, inputs with their SHA-256, every setting in the
+        names a user types), shown in the summary in place of ``settings``.
 
     Returns
     -------
@@ -140,13 +144,14 @@ def report_html(
 
     parts = [_head(title)]
     parts.append(f"<h1>{_e(title)}</h1>")
-    now = _dt.datetime.now().strftime("%Y-%m-%d %H:%M")
-    parts.append(
-        f'<p class="lead">{_e(_summary_sentence(result))} Made with Recharge Atlas on {now}.</p>'
-    )
+    if provenance is not None:
+        made = provenance.footer().replace(" · ", " on ", 1)
+    else:
+        made = "Recharge Atlas on " + _dt.datetime.now().strftime("%Y-%m-%d %H:%M")
+    parts.append(f'<p class="lead">{_e(_summary_sentence(result))} Made with {_e(made)}.</p>')
     parts.append(_cautions_html())
     parts.append(_maps_html(result, gauges, scheme, classes, include_year_maps))
-    parts.append(_summary_html(result, names, quality, anchors, settings))
+    parts.append(_summary_html(result, names, quality, anchors, settings, provenance))
     parts.append(_contents_html(drawn, names, quality, anchors, result))
     for done, gid in enumerate(drawn):
         if reporter is not None:
@@ -326,11 +331,12 @@ def recession_figure(gauge_result):
                 label=f"90% interval {recession.low:.1f}–{recession.high:.1f} days",
             )
         ax.axhline(0.1, color="#999999", linewidth=0.8, linestyle=":")
-        ax.annotate(
-            "one log cycle: the fitted line crosses here at K days",
+        ax.annotate(  # under the dotted line at the left, clear of the fitted line
+            "one log cycle: the fitted line crosses it at K days",
             (0.0, 0.1),
-            xytext=(2, 3),
+            xytext=(2, -3),
             textcoords="offset points",
+            va="top",
             fontsize=7,
             color="#555555",
         )
@@ -639,12 +645,34 @@ def _sig(value, figures=3):
     return _fmt(round(v, digits), digits)
 
 
-def _range(value, low, high, digits=0):
-    """``" (low–high)"`` after a value, or nothing when all three round alike."""
-    texts = [_fmt(v, digits) for v in (value, low, high)]
-    if "–" in texts[1:] or texts[0] == texts[1] == texts[2]:
+def _range(value, low, high, digits=0, always=False):
+    """``" (low–high)"`` after a value, or nothing when all three round alike (with
+    ``always``, the interval is shown with up to two more digits until its ends differ). The
+    low end is rounded down and the high end up, so the range shown always holds the value
+    shown."""
+    try:
+        numbers = [float(v) for v in (value, low, high)]
+    except (TypeError, ValueError):
         return ""
-    return f" ({texts[1]}–{texts[2]})"
+    if not all(math.isfinite(v) for v in numbers):
+        return ""
+    for extra in range(3 if always else 1):
+        low_text, high_text = _ends(numbers[1], numbers[2], digits + extra)
+        if low_text != high_text:
+            return f" ({low_text}–{high_text})"
+    return " (interval under 0.01 wide)" if always else ""
+
+
+def _ends(low, high, digits=0):
+    """The two ends of a range as text, the low one rounded down and the high one up."""
+    try:
+        low, high = float(low), float(high)
+    except (TypeError, ValueError):
+        return "–", "–"
+    scale = 10.0**digits
+    down = math.floor(low * scale) / scale if math.isfinite(low) else low
+    up = math.ceil(high * scale) / scale if math.isfinite(high) else high
+    return _fmt(down, digits), _fmt(up, digits)
 
 
 def _img(figure, alt, caption=None, width=None, tight=True):
@@ -788,7 +816,7 @@ def _maps_html(result, gauges, scheme, classes, include_year_maps):
     return "\n".join(out)
 
 
-def _summary_html(result, names, quality, anchors, settings):
+def _summary_html(result, names, quality, anchors, settings, provenance=None):
     rows = []
     for gid, g in result.gauges.items():
         k = g.recession
@@ -796,7 +824,7 @@ def _summary_html(result, names, quality, anchors, settings):
         link = f'<a href="#{anchors[gid]}">{_e(gid)}</a>' if gid in anchors else _e(gid)
         k_text = "–"
         if k is not None and np.isfinite(k.days):
-            k_text = _fmt(k.days, 1) + _range(k.days, k.low, k.high, 1)
+            k_text = _fmt(k.days, 1) + _range(k.days, k.low, k.high, 1, always=True)
             if k.source == "given":
                 k_text += " (given)"
         r_text = _fmt(g.recharge_mm_per_year) + _range(
@@ -833,7 +861,9 @@ def _summary_html(result, names, quality, anchors, settings):
     if without:
         shown = ", ".join(_e(n) for n in without[:30]) + (" …" if len(without) > 30 else "")
         out.append(f'<p class="note">Catchments without a gauge (no estimate): {shown}.</p>')
-    if settings is not None:
+    if provenance is not None:
+        out.append(_provenance_html(provenance))
+    elif settings is not None:
         out.append(_settings_html(settings))
     out.append(
         '<p class="note">All numbers are in the run\'s GeoPackage: layer <code>catchments</code>, '
@@ -854,6 +884,42 @@ def _catchments_without_gauge(catchments):
         ):
             out.append(str(catchments[column].iloc[i]) if column else f"row {i + 1}")
     return out
+
+
+def _provenance_html(provenance):
+    """How the run was made: version and time, the inputs with their size and SHA-256, every
+    setting in the names a user types, and the libraries that computed it."""
+
+    def rows(pairs):
+        return "".join(
+            f'<tr><td class="text">{_e(k)}</td><td class="text">{v}</td></tr>' for k, v in pairs
+        )
+
+    inputs = rows(
+        (name, f"{_e(path)}<br><small>{'' if size is None else f'{size:,} bytes · '}"
+         f"SHA-256 {_e(sha) if sha else '–'}</small>")
+        for name, path, size, sha in provenance.input_facts()
+    )  # fmt: skip
+    settings = rows((name, _e(_plain(value))) for name, value in provenance.settings)
+    libraries = ", ".join(f"{_e(k)} {_e(v)}" for k, v in provenance.libraries.items())
+    return (
+        "<details><summary>How this run was made: version, inputs and settings</summary>"
+        f"<p>Recharge Atlas {_e(provenance.version)}, {_e(provenance.interface)}, started "
+        f"{_e(provenance.created)}. The same is in the GeoPackage's <code>run</code> table.</p>"
+        f'<table><thead><tr><th class="text">Input</th><th class="text">File</th></tr>'
+        f"</thead><tbody>{inputs}</tbody></table>"
+        f'<table><thead><tr><th class="text">Setting</th><th class="text">Value</th></tr>'
+        f"</thead><tbody>{settings}</tbody></table>"
+        f'<p class="note">Libraries: {libraries}.</p></details>'
+    )
+
+
+def _plain(value):
+    if value is None:
+        return "–"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    return str(value)
 
 
 def _settings_html(settings):
@@ -1019,7 +1085,7 @@ def _annual_html(annual):
         v = values
         out = [first, _fmt(v["recharge_mm"])]
         if show_range:
-            out.append(f"{_fmt(v['recharge_low_mm'])}–{_fmt(v['recharge_high_mm'])}")
+            out.append("–".join(_ends(v["recharge_low_mm"], v["recharge_high_mm"])))
         out += [
             _sig(v["recharge_m3"] / 1e6),
             _fmt(v["baseflow_mm"]),

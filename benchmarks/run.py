@@ -67,12 +67,13 @@ def _reset_peak():
 
 def generate(folder, gauges, years, seed):
     """Write the network's flows, dates and areas into ``folder`` (run in a child process)."""
+    from recharge_atlas.algorithms.files import write_layer
     from recharge_atlas.sample_layers.generate import make_network
 
     network = make_network(gauges, years, seed=seed)
     np.save(Path(folder) / "flow.npy", network.flow)
-    network.gauges.to_file(Path(folder) / "gauges.gpkg", driver="GPKG")
-    network.catchments.to_file(Path(folder) / "catchments.gpkg", driver="GPKG")
+    write_layer(network.gauges, Path(folder) / "gauges.gpkg", "gauges")
+    write_layer(network.catchments, Path(folder) / "catchments.gpkg", "catchments")
     meta = {
         "start": str(network.dates[0].date()),
         "days": int(network.dates.size),

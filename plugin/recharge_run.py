@@ -778,6 +778,39 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
         """Read what a subclass needs beyond the shared parameters, before any input is read
         (``gauges`` is the gauges' feature source)."""
 
+    def _provenance(self, parameters, context):
+        """Where this run's outputs come from (:class:`provenance.Provenance`): the input
+        layers' sources and every other parameter's value under its Processing name (the
+        names ``qgis_process`` and scripts use), defaults included."""
+        from qgis.core import Qgis
+
+        from ..algorithms.provenance import Provenance
+
+        inputs, settings = [], []
+        for definition in self.parameterDefinitions():
+            name = definition.name()
+            if definition.isDestination():
+                continue
+            value = parameters.get(name)
+            if value is None:
+                value = definition.defaultValue()
+            if name in self._INPUTS:
+                layer = self.parameterAsVectorLayer(parameters, name, context)
+                source = layer.source() if layer is not None else value
+                if source:
+                    inputs.append((name, str(source)))
+            else:
+                settings.append((name, "" if value is None else str(value)))
+        interface = f"QGIS Processing ({self.id()}), QGIS {Qgis.QGIS_VERSION}"
+        return Provenance(interface, inputs, settings)
+
+    def _log_provenance(self, provenance, feedback):
+        """The run's version and inputs (with their SHA-256) in the Processing log."""
+        feedback.pushInfo(f"Recharge Atlas {provenance.version}, {provenance.interface}")
+        for name, path, size, sha in provenance.input_facts():
+            facts = f"{size:,} bytes, SHA-256 {sha}" if sha else "not a single file"
+            feedback.pushInfo(f"{name}: {path} ({facts})")
+
     def _summarize(self, result, feedback):
         """The last line of the log: how many gauges were computed, flagged and skipped.
 
@@ -820,6 +853,8 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
         from .feedback import FeedbackReporter, push_warning
 
         settings = self._settings(parameters, context)
+        provenance = self._provenance(parameters, context)
+        self._log_provenance(provenance, feedback)
         try:
             self._check_outputs_are_not_inputs(parameters, context)
             settings = settings.resolved()
@@ -846,7 +881,9 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
 
                 require_records(result)
             if report_path:
-                self._write_report(result, tables, settings, scheme, classes, report_path, feedback)
+                self._write_report(
+                    result, tables, settings, scheme, classes, report_path, feedback, provenance
+                )
         except InputError as exc:
             raise QgsProcessingException(str(exc)) from None
         except Cancelled:
@@ -1052,7 +1089,9 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             feedback.setProgress(_READ_END * (n + 1) / len(steps))
         return tables
 
-    def _write_report(self, result, tables, settings, scheme, classes, path, feedback):
+    def _write_report(
+        self, result, tables, settings, scheme, classes, path, feedback, provenance=None
+    ):
         """Write the HTML report after the run and before any layer, so that neither a cancel
         nor a failure leaves a report without layers or layers without it. The core writes it
         atomically and checks the cancel button before each gauge it draws."""
@@ -1077,6 +1116,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             classes=classes,
             settings=settings,
             reporter=reporter,
+            provenance=provenance,
         )
         if feedback.isCanceled():
             Path(path).unlink(missing_ok=True)

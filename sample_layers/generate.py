@@ -594,9 +594,10 @@ def write_region(region: SyntheticRegion, folder) -> dict:
     for key in ("gauges", "catchments", "subbasins"):
         if paths[key].exists():
             paths[key].unlink()
-    region.gauges.to_file(paths["gauges"], layer="gauges", driver="GPKG")
-    region.catchments.to_file(paths["catchments"], layer="catchments", driver="GPKG")
-    region.subbasins.to_file(paths["subbasins"], layer="subbasins", driver="GPKG")
+    from recharge_atlas.algorithms.files import write_layer
+
+    for key in ("gauges", "catchments", "subbasins"):
+        write_layer(getattr(region, key), paths[key], key)
     region.discharge.to_csv(paths["discharge"], index=False, float_format="%.6g", na_rep="")
     region.truth_gauges.to_csv(paths["truth_gauges"], index=False, float_format="%.6g")
     region.truth_annual.to_csv(paths["truth_annual"], index=False, float_format="%.6g")

@@ -64,6 +64,20 @@ def test_geopackage_has_the_stable_schema(demo_run):
     assert len(demo_run["catchments"]) == 9  # every input polygon comes back
 
 
+def test_geopackages_are_version_1_2(demo_run, sample_paths):
+    # OGC GeoPackage 1.2 (OGC 12-128r15): PRAGMA application_id 'GPKG' (0x47504B47) and
+    # user_version 10200. GDAL 3.6 (QGIS 3.22 on Debian 12) warns about 1.4 (10400), which
+    # newer GDALs write by default.
+    import sqlite3
+
+    shipped = [sample_paths["gauges"], sample_paths["catchments"]]
+    shipped.append(sample_paths["gauges"].with_name("subbasins.gpkg"))
+    for path in [demo_run["gpkg"], *shipped]:
+        with sqlite3.connect(path) as db:
+            assert db.execute("PRAGMA application_id").fetchone()[0] == 0x47504B47, path
+            assert db.execute("PRAGMA user_version").fetchone()[0] == 10200, path
+
+
 def test_recharge_and_recession_index_match_the_known_truth(demo_run, sample_paths):
     truth = pd.read_csv(sample_paths["truth_gauges"], dtype={"gauge_id": str}).set_index("gauge_id")
     truth_annual = pd.read_csv(sample_paths["truth_annual"], dtype={"gauge_id": str})

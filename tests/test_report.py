@@ -348,3 +348,18 @@ def test_report_reports_progress_and_stops_when_cancelled(demo, tmp_path):
     first = next(iter(result.gauges))
     assert stopper.seen == [(0, len(result.gauges), first)]
     assert list(tmp_path.iterdir()) == []  # nothing half-written
+
+
+def test_ranges_hold_the_value_and_k_always_shows_its_interval():
+    # Issue 15: a summary promised K's interval but showed one number, and a low-high of
+    # "383-382" read as reversed. Ends are rounded outwards; K's interval gets more digits.
+    from recharge_atlas.algorithms.report import _ends, _range
+
+    assert _range(382.5, 382.49, 382.51) == " (382–383)"
+    assert _range(45.0, 44.99, 45.01, 1, always=True) == " (44.9–45.1)"
+    assert _range(45.0, 45.0, 45.0, 1) == ""
+    assert _range(45.0, 45.0, 45.0, 1, always=True) == " (interval under 0.01 wide)"
+    assert _range(45.0, None, 46.0) == "" and _range(45.0, float("nan"), 46.0) == ""
+    for low, high in ((382.49, 382.51), (0.05, 0.95), (-1.5, -1.4)):
+        a, b = _ends(low, high)
+        assert float(a) <= low and float(b) >= high

@@ -69,22 +69,12 @@ def _same(a, b):
     )
 
 
-def test_recharge_classes_are_drawn_in_distinct_colours(processing_run, tmp_path):
-    from recharge_atlas.algorithms.maps import NO_ESTIMATE_COLOUR, class_colours
-    from recharge_atlas.plugin.styling import NO_ESTIMATE_LABEL, recharge_post_processor
+def _check_drawn(layer, ranges, wanted, path):
+    """Render ``layer`` and check each catchment's own part shows its class's colour (grey
+    without an estimate), every class drawn in its own colour."""
+    from recharge_atlas.algorithms.maps import NO_ESTIMATE_COLOUR
 
-    path = processing_run["path"]
-    layer = QgsVectorLayer(f"{path}|layername=catchments", "recharge", "ogr")
-    assert layer.isValid()
-    recharge_post_processor().postProcessLayer(
-        layer, QgsProcessingContext(), QgsProcessingFeedback()
-    )
-    ranges = [r for r in layer.renderer().ranges() if r.label() != NO_ESTIMATE_LABEL]
-    assert len(ranges) == 5
-    wanted = [QColor(c) for c in class_colours(len(ranges))]
-    assert [r.symbol().color().name() for r in ranges] == [c.name() for c in wanted]
-
-    image, settings = _render(layer, tmp_path / "recharge.png")
+    image, settings = _render(layer, path)
     to_pixel = settings.mapToPixel()
     seen = {}
     grey = QColor(NO_ESTIMATE_COLOUR)
@@ -108,6 +98,24 @@ def test_recharge_classes_are_drawn_in_distinct_colours(processing_run, tmp_path
     assert sorted(seen) == list(range(len(ranges))), "every class is drawn"
     assert len(set(seen.values())) == len(ranges), "each class in its own colour"
     assert without, "the demo region has catchments without an estimate"
+
+
+def test_recharge_classes_are_drawn_in_distinct_colours(processing_run, tmp_path):
+    from recharge_atlas.algorithms.maps import class_colours
+    from recharge_atlas.plugin.styling import NO_ESTIMATE_LABEL, recharge_post_processor
+
+    path = processing_run["path"]
+    layer = QgsVectorLayer(f"{path}|layername=catchments", "recharge", "ogr")
+    assert layer.isValid()
+    recharge_post_processor().postProcessLayer(
+        layer, QgsProcessingContext(), QgsProcessingFeedback()
+    )
+    ranges = [r for r in layer.renderer().ranges() if r.label() != NO_ESTIMATE_LABEL]
+    assert len(ranges) == 5
+    wanted = [QColor(c) for c in class_colours(len(ranges))]
+    assert [r.symbol().color().name() for r in ranges] == [c.name() for c in wanted]
+
+    _check_drawn(layer, ranges, wanted, tmp_path / "recharge.png")
 
 
 def _memory_catchments(values):
@@ -188,3 +196,40 @@ def test_no_grey_class_when_every_catchment_has_an_estimate(qgis_app):
     labels = _legend_labels(layer)
     assert NO_ESTIMATE_LABEL not in labels
     assert all(label.endswith(" mm/yr") for label in labels), labels
+
+
+def test_command_line_geopackage_opens_styled(processing_run, tmp_path):
+    # The CLI writes the choropleth into the GeoPackage's layer_styles table (QGIS's
+    # convention): QGIS applies it when the layer is opened, with the same classes, labels and
+    # colours as the plugin gives its own outputs, and draws the same picture.
+    from support_qgis import SAMPLE
+
+    from recharge_atlas.algorithms.maps import class_colours
+    from recharge_atlas.cli import main
+    from recharge_atlas.plugin.styling import NO_ESTIMATE_LABEL, recharge_post_processor
+
+    out = tmp_path / "recharge.gpkg"
+    args = ["run", "--gauges", str(SAMPLE / "gauges.gpkg"), "--catchments",
+            str(SAMPLE / "catchments.gpkg"), "--discharge", str(SAMPLE / "discharge.csv"),
+            "--out", str(out)]  # fmt: skip
+    assert main(args) == 0
+    layer = QgsVectorLayer(f"{out}|layername=catchments", "recharge", "ogr")
+    assert layer.isValid()
+    renderer = layer.renderer()
+    assert renderer.type() == "graduatedSymbol"
+    assert renderer.orderByEnabled()
+    ours = [(r.lowerValue(), r.upperValue(), r.label(), r.symbol().color().name())
+            for r in renderer.ranges()]  # fmt: skip
+    plugin = QgsVectorLayer(f"{out}|layername=catchments", "plugin", "ogr")
+    recharge_post_processor().postProcessLayer(
+        plugin, QgsProcessingContext(), QgsProcessingFeedback()
+    )
+    theirs = [(r.lowerValue(), r.upperValue(), r.label(), r.symbol().color().name())
+              for r in plugin.renderer().ranges()]  # fmt: skip
+    assert len(ours) == len(theirs) == 6  # five classes and "no estimate"
+    for a, b in zip(ours, theirs):
+        assert a[0] == pytest.approx(b[0]) and a[1] == pytest.approx(b[1]), (a, b)
+        assert a[2:] == b[2:]
+    ranges = [r for r in renderer.ranges() if r.label() != NO_ESTIMATE_LABEL]
+    wanted = [QColor(c) for c in class_colours(len(ranges))]
+    _check_drawn(layer, ranges, wanted, tmp_path / "styled.png")

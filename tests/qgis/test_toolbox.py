@@ -221,6 +221,19 @@ def test_report_is_written_alone(toolbox_runs):
         "report.html"
     ], "no temporary file is left beside it"
     assert "Summary: 6 gauges: 1 computed" in run["log"].text("info")
+    # Where it came from (issue 15): the version, the inputs with their SHA-256 in the log and
+    # the report, and the settings under their Processing names.
+    import hashlib
+
+    from recharge_atlas.algorithms.provenance import tool_version
+
+    sha = hashlib.sha256((SAMPLE / "gauges.gpkg").read_bytes()).hexdigest()
+    log = run["log"].text("info")
+    assert (
+        f"Recharge Atlas {tool_version()}, QGIS Processing (recharge_atlas:rechargereport)" in log
+    )
+    assert sha in log and sha in text
+    assert "How this run was made" in text and "BFI_MAX" in text
 
 
 # --------------------------------------------------------------------------- inputs
