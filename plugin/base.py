@@ -49,6 +49,48 @@ def help_text(name: str) -> str:
     return _folded(_INCLUDE.sub(lambda match: shared_help(match.group(1)), text))
 
 
+_WHAT_IT_DOES = re.compile(r"<h3>What it does</h3>\s*(<p>.*?</p>)", re.S)
+
+
+@cache
+def short_help(name: str) -> str:
+    """The short help of algorithm ``name``: its "What it does" paragraph and the cautions in
+    brief (``shared/cautions_short.html``). The dialog shows it beside the parameters and
+    ``qgis_process help`` prints it; the full page is behind :func:`help_page`."""
+    found = _WHAT_IT_DOES.search(_read(HELP_DIR / f"{name}.html"))
+    first = _folded(found.group(1)) if found else ""
+    return (first + " " + shared_help("cautions_short")).strip()
+
+
+def help_page(name: str) -> Path | None:
+    """The full help of algorithm ``name`` as a page of its own, for the Help button.
+
+    The help file's includes are resolved (see :func:`help_text`), so the page is written once
+    per version into a folder of the temporary directory (the plugin's own folder may be
+    read-only). None when there is no help or nothing can be written.
+    """
+    import tempfile
+
+    body = help_text(name)
+    if not body:
+        return None
+    from ..algorithms.provenance import tool_version
+
+    folder = Path(tempfile.gettempdir()) / f"recharge-atlas-help-{tool_version()}"
+    page = folder / f"{name}.html"
+    text = (
+        '<!DOCTYPE html><html><head><meta charset="utf-8">'
+        f"<title>Recharge Atlas: {name}</title></head><body>{body}</body></html>\n"
+    )
+    try:
+        if not page.is_file() or page.read_text(encoding="utf-8") != text:
+            folder.mkdir(parents=True, exist_ok=True)
+            page.write_text(text, encoding="utf-8")
+    except OSError:
+        return None
+    return page
+
+
 class RechargeAtlasAlgorithm(QgsProcessingAlgorithm):
     """Base class: subclasses declare ``name``, ``displayName``, parameters and the work."""
 
@@ -59,7 +101,14 @@ class RechargeAtlasAlgorithm(QgsProcessingAlgorithm):
         return type(self)()
 
     def shortHelpString(self) -> str:  # noqa: N802
-        return help_text(self.name())
+        return short_help(self.name())
+
+    def helpUrl(self) -> str:  # noqa: N802
+        """The full help page (a local file: see :func:`help_page`)."""
+        from qgis.PyQt.QtCore import QUrl
+
+        page = help_page(self.name())
+        return QUrl.fromLocalFile(str(page)).toString() if page is not None else ""
 
     def canExecute(self):  # noqa: N802
         """``(False, message)`` when a package the core needs is missing (GUI only)."""

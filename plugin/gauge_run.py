@@ -21,6 +21,7 @@ from .recharge_run import RechargeRunAlgorithm
 
 
 class GaugeAlgorithm(RechargeRunAlgorithm):
+    OUTPUT_LAYER = "gauges"
     """Base of the gauge algorithms. Subclasses declare their parameters (with
     :meth:`_init_gauge_inputs`), :data:`_GAUGE_FIELDS` and, if needed,
     :meth:`_gauge_values`."""

@@ -20,6 +20,7 @@ from qgis.core import (
     QgsCoordinateReferenceSystem,
     QgsProcessingException,
     QgsProcessingFeedback,
+    QgsProcessingOutputLayerDefinition,
     QgsProcessingParameterEnum,
     QgsProcessingParameterFeatureSink,
     QgsProcessingParameterFeatureSource,
@@ -833,6 +834,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
         self.require_dependencies()
         feedback = feedback or QgsProcessingFeedback()
         parameters = self._completed(parameters)
+        self._gpkg_written = set()  # GeoPackages this run has started (_named_destination)
 
         gauges = self.source(parameters, self.GAUGES, context)
         discharge = (
@@ -1150,7 +1152,55 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             if dest is not None:
                 outputs[name] = dest
 
+    #: The layer each output gets inside a GeoPackage given as a plain file path: the names
+    #: of the command line's GeoPackage (QGIS would name it after the file). ``OUTPUT`` is
+    #: :attr:`OUTPUT_LAYER`.
+    LAYER_NAMES = {
+        "INCREMENTAL_AREAS": "incremental_areas",
+        "CATCHMENTS": "catchments",
+        "ANNUAL": "annual",
+        "EVENTS": "events",
+        "PERIODS": "periods",
+        "SEGMENTS": "segments",
+        "MASTER_RECESSION": "master_recession",
+        "DAILY": "daily",
+        "LINKS": "links",
+    }
+    OUTPUT_LAYER = "catchments"
+
+    def _named_destination(self, parameters, name, geometry):
+        """``parameters`` with output ``name`` sent to its own layer (:attr:`LAYER_NAMES`)
+        when it is a plain ``.gpkg`` path: several outputs may then share one file, as on the
+        command line. A file this run has not yet written is replaced, as QGIS replaces it for
+        a plain path; other destinations are left as they are."""
+        layer = self.OUTPUT_LAYER if name == self.OUTPUT else self.LAYER_NAMES.get(name)
+        value = parameters.get(name)
+        definition = value if isinstance(value, QgsProcessingOutputLayerDefinition) else None
+        sink = definition.sink.staticValue() if definition is not None else value
+        if layer is None or not isinstance(sink, str):
+            return parameters
+        text = sink.strip()
+        if not text.lower().endswith(".gpkg") or "|" in text or ":" in text.split("/")[0]:
+            return parameters
+        written = self.__dict__.setdefault("_gpkg_written", set())  # set per run
+        path = Path(text)
+        if str(path) not in written:
+            written.add(str(path))
+            if path.is_file():
+                path.unlink()
+        quoted = text.replace("'", "''")
+        named = f"ogr:dbname='{quoted}' table=\"{layer}\"" + (" (geom)" if geometry else "")
+        copy = dict(parameters)
+        if definition is not None:
+            definition = QgsProcessingOutputLayerDefinition(definition)
+            definition.sink.setStaticValue(named)
+            copy[name] = definition
+        else:
+            copy[name] = named
+        return copy
+
     def _write(self, parameters, name, context, fields, rows, wkb_type, crs, geometries=None):
+        parameters = self._named_destination(parameters, name, wkb_type != compat.WKB_NO_GEOMETRY)
         sink, dest_id = self.parameterAsSink(
             parameters, name, context, fields, wkb_type, crs, compat.SINK_REGENERATE_PRIMARY_KEY
         )

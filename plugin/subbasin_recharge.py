@@ -31,6 +31,7 @@ SUBBASIN_FIELDS = (
 
 
 class SubbasinRecharge(RechargeRunAlgorithm):
+    OUTPUT_LAYER = "subbasins"
     """Recharge of every subbasin from the gauge downstream of it, by recession-curve
     displacement (Rorabaugh 1964) and incremental areas between nested gauges."""
 

@@ -1,8 +1,9 @@
 """The cautions every algorithm's help states come from one shared snippet,
 ``plugin/help/shared/cautions.html``: each help file includes it once inside its Cautions list,
 no help file repeats its words, and every registered algorithm's help as QGIS shows it holds
-the whole snippet (with the algorithm's own cautions around it). The help is shortHelpString:
-the algorithms give no helpString, which QGIS deprecates."""
+the whole snippet (with the algorithm's own cautions around it). That full page is behind the
+Help button (helpUrl, a local file); the dialog's short help (shortHelpString, also what
+``qgis_process help`` prints) is one paragraph and the cautions in brief."""
 
 from __future__ import annotations
 
@@ -61,12 +62,12 @@ def test_each_help_file_includes_the_cautions_once_and_repeats_none(qgis_app):
 
 
 def test_every_algorithm_help_shows_the_shared_cautions(qgis_app):
-    from recharge_atlas.plugin.base import shared_help
+    from recharge_atlas.plugin.base import help_text, shared_help
 
     shared = shared_help("cautions")
     for algorithm in _algorithms():
         name = algorithm.name()
-        short = algorithm.shortHelpString()
+        short = help_text(name)  # the full page, behind the Help button
         assert short.count(shared) == 1, name
         assert "<!--" not in short, f"{name}: an include was left unresolved"
         section = re.search(r"<h3>Cautions</h3>\s*<ul>(.*?)</ul>", short)
@@ -75,6 +76,8 @@ def test_every_algorithm_help_shows_the_shared_cautions(qgis_app):
 
 def test_each_help_keeps_its_own_cautions(qgis_app):
     """Where an algorithm's cautions differ, its help still says so beside the shared ones."""
+    from recharge_atlas.plugin.base import help_text
+
     own = {
         "baseflowseparation": "does not measure groundwater",
         "eventrecharge": "Single events are less certain than annual sums",
@@ -85,4 +88,26 @@ def test_each_help_keeps_its_own_cautions(qgis_app):
         "catchmentrecharge": "a gauge that cannot be computed",
     }
     for algorithm in _algorithms():
-        assert own[algorithm.name()] in algorithm.shortHelpString(), algorithm.name()
+        assert own[algorithm.name()] in help_text(algorithm.name()), algorithm.name()
+
+
+def test_short_help_is_short_plain_and_points_to_the_full_page(qgis_app):
+    # Issue 15: qgis_process help printed the whole page, about 20,000 characters on one line.
+    from pathlib import Path
+
+    from qgis.PyQt.QtCore import QUrl
+
+    from recharge_atlas.plugin.base import help_text, shared_help
+
+    brief = shared_help("cautions_short")
+    for words in ("homogeneous aquifer", "qualified hydrogeologists", "quality field"):
+        assert words in brief
+    for algorithm in _algorithms():
+        name = algorithm.name()
+        short = algorithm.shortHelpString()
+        assert 200 < len(short) <= 2000, (name, len(short))
+        assert "<h3>" not in short and "<!--" not in short and brief in short, name
+        page = Path(QUrl(algorithm.helpUrl()).toLocalFile())
+        assert page.is_file(), name
+        text = page.read_text(encoding="utf-8")
+        assert text.startswith("<!DOCTYPE html>") and help_text(name) in text, name

@@ -384,9 +384,10 @@ def test_no_run_changed_the_inputs(processing_run, input_digests):
 def test_help_describes_every_output_field_and_the_cautions(algorithm, core_result):
     """Every field the algorithm writes to any output, the parameters with their ids, and the
     cautions, are in the help."""
+    from recharge_atlas.plugin.base import help_text
     from recharge_atlas.plugin.recharge_run import _TABLE_FIELDS, table_fields
 
-    text = algorithm.shortHelpString()
+    text = help_text(algorithm.name())  # the full page (Help button)
     input_fields = {"name", "geometry"}  # the demo catchments' own fields
     produced = {c for c in core_result.catchments.columns if c not in input_fields}
     for frame in (

@@ -224,3 +224,64 @@ def test_qgis_process_subbasins_left_empty_with_a_report(
     text = report.read_text(encoding="utf-8")
     assert text.lstrip().lower().startswith("<!doctype html")
     assert ONE_GAUGE in text
+
+
+def test_outputs_into_one_geopackage_keep_the_command_lines_layer_names(qgis_process, tmp_path):
+    # Issue 15: QGIS named the layer after the file ("recharge"), the command line
+    # "catchments". Plain .gpkg paths now get the command line's names, and several outputs
+    # can share one file as on the command line.
+    out = tmp_path / "recharge.gpkg"
+    out.write_bytes(b"an old file, replaced as QGIS replaces a plain path")
+    done = qgis_process(
+        *_args(
+            GAUGES=SAMPLE / "gauges.gpkg",
+            DISCHARGE=SAMPLE / "discharge.csv",
+            CATCHMENTS=SAMPLE / "catchments.gpkg",
+            OUTPUT=out,
+            ANNUAL=out,
+            EVENTS=out,
+        )
+    )
+    assert done.returncode == 0, done.stderr[-2000:]
+    from osgeo import ogr
+
+    source = ogr.Open(str(out))
+    names = sorted(source.GetLayer(i).GetName() for i in range(source.GetLayerCount()))
+    assert names == ["annual", "catchments", "events"]
+    layer = QgsVectorLayer(f"{out}|layername=catchments", "c", "ogr")
+    assert layer.isValid() and layer.featureCount() == 9
+
+
+def test_readme_qgis_example_runs_as_written(tmp_path):
+    # The README's headless example, pasted into a shell in a folder holding the demo's
+    # files under the names it uses. Only the plugin path and, on Debian 12, the name of the
+    # qgis_process binary are filled in (the README says both).
+    import re
+    import shutil
+    import subprocess
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    block = re.search(r"```sh\n(export QGIS_PLUGINPATH=.*?)```", readme, re.S).group(1)
+    for name in ("gauges.gpkg", "catchments.gpkg", "discharge.csv"):
+        shutil.copy(SAMPLE / name, tmp_path / name)
+    plugin_path = Path(__file__).resolve().parents[2] / ".qgis-path"
+    script = block.replace("/path/containing/recharge_atlas", str(plugin_path))
+    if Path("/usr/bin/qgis_process.bin").exists():
+        script = re.sub(r"^qgis_process ", "/usr/bin/qgis_process.bin ", script, flags=re.M)
+    import os
+
+    # A fresh user profile, as on a first run (a second "enable" says it already is, exit 1).
+    env = {k: v for k, v in os.environ.items() if not k.startswith(("QGIS_", "QT_QPA"))}
+    env.update(HOME=str(tmp_path / "home"), XDG_DATA_HOME=str(tmp_path / "home" / "data"))
+    done = subprocess.run(
+        ["bash", "-e", "-c", script],
+        cwd=tmp_path,
+        capture_output=True,
+        text=True,
+        timeout=600,
+        env=env,
+    )
+    assert done.returncode == 0, done.stdout[-2000:] + done.stderr[-2000:]
+    layer = QgsVectorLayer(f"{tmp_path / 'recharge.gpkg'}|layername=catchments", "c", "ogr")
+    assert layer.isValid() and layer.featureCount() == 9

@@ -344,9 +344,10 @@ def test_parameters(subbasin_algorithm):
 
 
 def test_help_describes_every_output_field_and_the_cautions(subbasin_algorithm, core_subbasins):
+    from recharge_atlas.plugin.base import help_text
     from recharge_atlas.plugin.recharge_run import _TABLE_FIELDS, table_fields
 
-    text = subbasin_algorithm.shortHelpString()
+    text = help_text(subbasin_algorithm.name())  # the full page (Help button)
     assert text, "plugin/help/subbasinrecharge.html is missing"
     produced = {c for c in core_subbasins.subbasins.columns if c not in INPUT_FIELDS}
     produced |= set(core_subbasins.catchments.columns)

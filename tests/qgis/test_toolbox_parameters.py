@@ -319,7 +319,9 @@ def _output_fields(run):
 @pytest.mark.parametrize("name", TOOLBOX)
 def test_help_covers_parameters_outputs_and_cautions(toolbox_runs, name):
     alg = _alg(name)
-    text = alg.shortHelpString()
+    from recharge_atlas.plugin.base import help_text
+
+    text = help_text(alg.name())  # the full page (Help button)
     assert text, f"plugin/help/{name}.html is missing"
     for heading in (
         "What it does",
