@@ -125,6 +125,11 @@ def _parser():
         help="number of map classes, 1 to 12 (default 5)",
     )
     files.add_argument(
+        "--overwrite",
+        action="store_true",
+        help="with a PostgreSQL --out: replace tables of the same names in the schema",
+    )
+    files.add_argument(
         "--daily",
         action="store_true",
         help="also write table daily (flow and baseflow of every day; large)",
@@ -428,14 +433,16 @@ def run_files(
     classes=5,
     gauges_per_group=None,
     provenance=None,
+    overwrite=False,
 ):
     """Read the inputs, run the pipeline and write the outputs. Returns the AtlasResult.
 
     Give either ``catchments`` (total drainage areas) or ``subbasins`` (a subbasin map).
-    ``provenance`` (:class:`provenance.Provenance`) is recorded in every output; without it
+    ``out`` may be a PostgreSQL target (``postgresql://…|schema=NAME``; ``overwrite`` replaces
+    tables there). ``provenance`` (:class:`provenance.Provenance`) is recorded in every output; without it
     the inputs are recorded under plain names and the settings as the pipeline holds them.
     """
-    from recharge_atlas.algorithms import files
+    from recharge_atlas.algorithms import database, files
     from recharge_atlas.algorithms.errors import InputError
     from recharge_atlas.algorithms.pipeline import (
         require_records,
@@ -443,22 +450,28 @@ def run_files(
         run_atlas_subbasins,
     )
 
-    out = Path(out)
+    to_database = database.is_database(out)
+    out = str(out).strip() if to_database else Path(out)
     basins = subbasins if subbasins is not None else catchments
     what = "subbasins" if subbasins is not None else "catchments"
-    sources = {
-        "gauges": files.split_layer(gauges)[0],
-        what: files.split_layer(basins)[0],
-        "discharge table": files.split_layer(discharge)[0],
-    }
-    outputs = [(out, "output"), (map_path, "map"), (year_maps_path, "per-year map")]
+
+    def where(source):  # a file, or a database shown without its password
+        return (
+            database.describe(source)
+            if database.is_database(source)
+            else (files.split_layer(source)[0])
+        )
+
+    sources = {"gauges": where(gauges), what: where(basins), "discharge table": where(discharge)}
+    outputs = [(map_path, "map"), (year_maps_path, "per-year map")]
+    outputs = ([] if to_database else [(out, "output")]) + outputs
     outputs = [(Path(p), w) for p, w in outputs + [(report_path, "report")] if p]
     for n, (target, kind) in enumerate(outputs):
         if any(files.same_file(target, p) for p in sources.values()):
             raise InputError(f"the {kind} path is one of the input files", file=str(target))
         if any(files.same_file(target, other) for other, _ in outputs[:n]):
             raise InputError(f"the {kind} path is also another output's", file=str(target))
-    if out.suffix.lower() != ".gpkg":
+    if not to_database and out.suffix.lower() != ".gpkg":
         raise InputError("the output must be a GeoPackage ending in .gpkg", file=str(out))
     for path, suffixes, kind in (
         (map_path, (".png",), "map"),
@@ -515,15 +528,16 @@ def run_files(
     # at the end: a failure or an interrupt leaves none half-written and touches none.
     try:
         with files.staged_outputs() as stage:
-            files.write_geopackage(
-                result,
-                stage.path(out),
-                daily=daily,
-                spill=spill,
-                scheme=scheme,
-                classes=classes,
-                provenance=provenance,
-            )
+            if not to_database:
+                files.write_geopackage(
+                    result,
+                    stage.path(out),
+                    daily=daily,
+                    spill=spill,
+                    scheme=scheme,
+                    classes=classes,
+                    provenance=provenance,
+                )
             footer = provenance.footer()
             if map_path:
                 mapped = result.subbasins if result.subbasins is not None else result.catchments
@@ -548,6 +562,10 @@ def run_files(
                     classes=classes,
                     reporter=reporter,
                     provenance=provenance,
+                )
+            if to_database:  # last: one transaction, once every file is ready to move in
+                database.write_results(
+                    result, out, provenance=provenance, overwrite=overwrite, daily=daily
                 )
     finally:
         if spill is not None:
@@ -597,9 +615,25 @@ def _located(exc, sources, settings):
 
 def _discharge(files, path, gauge_layer, settings, gauges_per_group):
     """The discharge table whole, or (large files) an iterator over gauge groups of it."""
+    from recharge_atlas.algorithms import database
     from recharge_atlas.algorithms.discharge import gauge_id_text, require_columns
     from recharge_atlas.algorithms.errors import InputError
 
+    if database.is_database(path):  # read on the server, a gauge group at a time
+        require_columns(gauge_layer, [settings.gauge_id_field], "gauges layer")
+        ids = [
+            g
+            for g in dict.fromkeys(gauge_id_text(gauge_layer[settings.gauge_id_field].to_numpy()))
+            if g is not None
+        ]
+        needed = [settings.date_field, settings.value_field, settings.flag_field]
+        return database.discharge_groups(
+            path,
+            settings.discharge_gauge_field,
+            ids,
+            gauges_per_group or files.GAUGES_PER_GROUP,
+            [c for c in needed if c],
+        )
     file_path = files.split_layer(path)[0]
     if gauges_per_group is None:
         large = file_path.exists() and file_path.stat().st_size > files.STREAM_BYTES
@@ -765,8 +799,11 @@ def _command(args, parser=None):
         classes=args.class_count,
         gauges_per_group=args.gauges_per_group,
         provenance=provenance,
+        overwrite=args.overwrite,
     )
-    written = [p for p in (args.out, args.map, args.year_maps, args.report) if p]
+    from recharge_atlas.algorithms.database import describe
+
+    written = [describe(p) for p in (args.out, args.map, args.year_maps, args.report) if p]
     print("wrote " + ", ".join(written))
     return EXIT_OK
 

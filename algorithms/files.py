@@ -86,9 +86,14 @@ def _check_signature(file_path, what):
 
 
 def read_layer(path, what="layer"):
-    """Read a vector layer (any format GDAL reads) as a GeoDataFrame."""
+    """Read a vector layer (any format GDAL reads, or a PostGIS table given as
+    ``postgresql://…|layername=schema.table``: see :mod:`.database`) as a GeoDataFrame."""
     import geopandas as gpd
 
+    from . import database
+
+    if database.is_database(path):
+        return database.read_layer(path, what)
     file_path, layer = _existing(path, what)
     try:
         frame = gpd.read_file(file_path, layer=layer) if layer else gpd.read_file(file_path)
@@ -143,6 +148,10 @@ def read_table(path, what="discharge table"):
     Text files are read with every column as text; the core converts ids, dates and values
     itself, so gauge ids keep their leading zeros.
     """
+    from . import database
+
+    if database.is_database(path):
+        return database.read_table(path, what)
     file_path, layer = _existing(path, what)
     suffix = file_path.suffix.lower()
     try:

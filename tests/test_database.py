@@ -227,3 +227,43 @@ def test_clear_errors(server, monkeypatch):
     monkeypatch.setattr(builtins, "__import__", no_psycopg)
     with pytest.raises(InputError, match="needs the psycopg package"):
         database.read_table(server.uri() + "|layername=gauges")
+
+
+def test_command_line_reads_and_writes_the_database(server, sample_paths, tmp_path, capsys):
+    from recharge_atlas.cli import main
+
+    reader = server.uri(user="reader", password="s3cret")
+    inputs = [
+        "--gauges", reader + "|layername=gauges",
+        "--catchments", reader + "|layername=catchments",
+        "--discharge", reader + "|layername=telemetry.daily_flow",
+    ]  # fmt: skip
+    # A read-only role with a GeoPackage output.
+    gpkg = tmp_path / "recharge.gpkg"
+    assert main(["run", *inputs, "--out", str(gpkg)]) == 0
+    from recharge_atlas.algorithms.files import read_attribute_table
+
+    run = read_attribute_table(gpkg, "run")
+    assert "s3cret" not in run.to_string()
+    assert "***" in " ".join(run["value"].astype(str))
+    capsys.readouterr()
+    # The same role cannot write: exit 2, the plain reason, nothing written.
+    target = reader + "|schema=cli_out"
+    assert main(["run", *inputs, "--out", target]) == 2
+    err = capsys.readouterr().err
+    assert "no permission to write into schema 'cli_out'" in err and "s3cret" not in err
+    # The owner writes, is refused a second time, and replaces with --overwrite.
+    owner = server.uri() + "|schema=cli_out"
+    assert main(["run", *inputs, "--out", owner]) == 0
+    assert main(["run", *inputs, "--out", owner]) == 2
+    assert "give --overwrite" in capsys.readouterr().err
+    assert main(["run", *inputs, "--out", owner, "--overwrite"]) == 0
+    from_file = read_layer(f"{gpkg}|layername=catchments", "catchments")
+    with server.connect() as conn:
+        values = [r[0] for r in conn.execute(
+            "SELECT recharge_mm_per_year FROM cli_out.catchments ORDER BY fid")]  # fmt: skip
+    np.testing.assert_allclose(
+        np.array([np.nan if v is None else v for v in values], float),
+        from_file["recharge_mm_per_year"].to_numpy(float),
+        equal_nan=True,
+    )
