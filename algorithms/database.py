@@ -178,6 +178,8 @@ def _frame(rows, names, types):
         kind = types.get(name, "")
         if kind in ("double precision", "real") or kind.startswith("numeric"):
             frame[name] = pd.to_numeric(frame[name], errors="coerce").astype(float)
+        elif kind == "date" or kind.startswith("timestamp"):
+            frame[name] = pd.to_datetime(frame[name])
     return frame
 
 

@@ -6,9 +6,11 @@ feature through QGIS that takes about 15 µs a row (a 200-gauge, 30-year table: 
 core's own reader takes a fraction of it, and gives the very values the command line reads.
 So when the layer is a plain CSV, TSV or text table (or Parquet) on disk, read whole (no
 selection, no filter, no feature limit, no unsaved edits) and opened with options that do not
-change its values, the file is read by the core. Any other source (a database, a memory layer,
-a selection, a delimited-text layer with a decimal comma or skipped lines …) is read through
-QGIS as before. Which way it went is said in the log.
+change its values, the file is read by the core. A PostgreSQL table read whole (no filter or
+SQL of its own, credentials in the layer's connection or libpq's usual places, not in a QGIS
+authentication configuration) is read by one query on the layer's own connection. Any other
+source (a memory layer, a selection, a delimited-text layer with a decimal comma or skipped
+lines …) is read through QGIS as before. Which way it went is said in the log.
 """
 
 from __future__ import annotations
@@ -110,6 +112,35 @@ def _ogr_file(source: str):
     return None
 
 
+def _postgres_source(source: str):
+    """The core's form of a PostgreSQL layer's table (``postgresql:///?…|layername="s"."t"``,
+    see :mod:`recharge_atlas.algorithms.database`), or None when the layer is not a whole
+    table the core can reach with the same connection."""
+    from urllib.parse import quote
+
+    from qgis.core import QgsDataSourceUri
+
+    uri = QgsDataSourceUri(source)
+    table = uri.table()
+    if not table or table.startswith("(") or uri.sql() or uri.authConfigId():
+        return None
+    items = {
+        "dbname": uri.database(),
+        "host": uri.host(),
+        "port": uri.port(),
+        "user": uri.username(),
+        "password": uri.password(),
+        "service": uri.service(),
+    }
+    query = "&".join(f"{k}={quote(str(v), safe='')}" for k, v in items.items() if v)
+
+    def quoted(name):
+        return '"' + name.replace('"', '""') + '"'
+
+    name = quoted(table) if not uri.schema() else f"{quoted(uri.schema())}.{quoted(table)}"
+    return f"postgresql:///?{query}|layername={name}"
+
+
 def discharge_file(layer, value):
     """The file the core may read in place of ``layer`` (the DISCHARGE parameter's layer;
     ``value`` its parameter value), or None when QGIS must read it."""
@@ -122,6 +153,8 @@ def discharge_file(layer, value):
         path = _delimited_text_file(layer.source())
     elif provider == "ogr":
         path = _ogr_file(layer.source())
+    elif provider == "postgres":
+        return _postgres_source(layer.source())
     else:
         return None
     return path if path is not None and path.is_file() else None
@@ -131,11 +164,14 @@ def read_discharge(path, wanted, expected_rows):
     """The columns ``wanted`` of the table at ``path``, read by the core; None when it cannot
     (QGIS then reads the layer): a reading error, a missing column, or a row count other than
     the ``expected_rows`` QGIS counts (-1: unknown)."""
-    from ..algorithms import files
+    from ..algorithms import database, files
     from ..algorithms.errors import InputError
 
     try:
-        frame = files.read_table(path, "discharge table")
+        if database.is_database(path):  # only the needed columns, by one query
+            frame = database.read_table(path, "discharge table", columns=list(wanted))
+        else:
+            frame = files.read_table(path, "discharge table")
     except InputError:
         return None
     if any(name not in frame.columns for name in wanted):

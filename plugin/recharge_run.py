@@ -1060,12 +1060,16 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
                 frame = direct_read.read_discharge(direct, names, source.featureCount())
                 if frame is not None:
                     table = conversion.LayerTable(frame, source.fields())
-                    feedback.pushInfo(
-                        self.tr(
-                            "Discharge table read from its file, as the command line reads "
-                            "it: {} rows"
-                        ).format(len(frame))
+                    from ..algorithms.database import is_database
+
+                    text = (
+                        "Discharge table read from the database by one query on the layer's "
+                        "connection, as the command line reads it: {} rows"
+                        if is_database(direct)
+                        else "Discharge table read from its file, as the command line reads "
+                        "it: {} rows"
                     )
+                    feedback.pushInfo(self.tr(text).format(len(frame)))
             if table is None:
                 table = conversion.read_source(
                     source,

@@ -11,6 +11,7 @@ import subprocess
 import tempfile
 from pathlib import Path
 
+import pandas as pd
 import pytest
 
 BIN = Path("/usr/lib/postgresql/15/bin")
@@ -81,3 +82,38 @@ def start_or_skip(base: Path) -> Server:
     with server.connect() as conn:
         conn.execute("CREATE EXTENSION postgis")
     return server
+
+
+def load_frame(conn, schema, table, frame, srid=None):
+    """Put ``frame`` into ``schema.table`` with plain SQL (geometry as WKB), for the tests."""
+    from psycopg import sql
+    from shapely import wkb
+
+    geometry = srid is not None
+    columns = [c for c in frame.columns if not (geometry and c == "geometry")]
+    kinds = {c: ("double precision" if frame[c].dtype.kind == "f" else "text") for c in columns}
+    conn.execute(sql.SQL("CREATE SCHEMA IF NOT EXISTS {}").format(sql.Identifier(schema)))
+    parts = [sql.SQL("{} " + kinds[c]).format(sql.Identifier(c)) for c in columns]
+    if geometry:
+        parts.append(sql.SQL(f"geom geometry(Geometry, {int(srid)})"))
+    conn.execute(
+        sql.SQL("CREATE TABLE {} ({})").format(
+            sql.Identifier(schema, table), sql.SQL(", ").join(parts)
+        )
+    )
+    marks = [sql.Placeholder()] * len(columns)
+    if geometry:
+        marks.append(sql.SQL(f"ST_GeomFromWKB(%s, {int(srid)})"))
+    names = [sql.Identifier(c) for c in columns] + ([sql.Identifier("geom")] if geometry else [])
+    insert = sql.SQL("INSERT INTO {} ({}) VALUES ({})").format(
+        sql.Identifier(schema, table), sql.SQL(", ").join(names), sql.SQL(", ").join(marks)
+    )
+    rows = []
+    for record in frame.itertuples(index=False):
+        values = dict(zip(frame.columns, record))
+        row = [None if pd.isna(values[c]) else values[c] for c in columns]
+        if geometry:
+            row.append(wkb.dumps(values["geometry"]))
+        rows.append(row)
+    with conn.cursor() as cursor:
+        cursor.executemany(insert, rows)
