@@ -565,7 +565,12 @@ def run_files(
                 )
             if to_database:  # last: one transaction, once every file is ready to move in
                 database.write_results(
-                    result, out, provenance=provenance, overwrite=overwrite, daily=daily
+                    result,
+                    out,
+                    provenance=provenance,
+                    overwrite=overwrite,
+                    daily=daily,
+                    spill=spill,
                 )
     finally:
         if spill is not None:

@@ -269,13 +269,25 @@ def discharge_groups(source, gauge_field, gauge_ids, gauges_per_group, columns):
 # ------------------------------------------------------------------------------- writing
 
 
-def write_results(result, target, provenance=None, overwrite=False, daily=False):
+#: PostgreSQL types of the GeoPackage column kinds a run's kept tables have (files.TableSpill).
+SPILL_TYPES = {
+    "DATE": "date",
+    "DATETIME": "timestamp",
+    "BOOLEAN": "boolean",
+    "INTEGER": "bigint",
+    "DOUBLE": "double precision",
+    "TEXT": "text",
+}
+
+
+def write_results(result, target, provenance=None, overwrite=False, daily=False, spill=None):
     """Write a run's layers and tables into schema ``|schema=NAME`` of the target database,
     in one transaction (all or nothing), under the GeoPackage's names.
 
     The schema is created when missing. A table that exists already is an error unless
     ``overwrite``; then it is replaced. A write the role has no privilege for is an error
-    naming the schema, and nothing is written.
+    naming the schema, and nothing is written. Tables a large run kept on disk as it went
+    (``spill``, a :class:`files.TableSpill`) are copied from there a slice at a time.
     """
     from . import files
 
@@ -307,7 +319,10 @@ def write_results(result, target, provenance=None, overwrite=False, daily=False)
             for name, layer in layers:
                 _write_frame(conn, sql, schema, name, layer, geometry=True)
             for name, table in tables:
-                _write_frame(conn, sql, schema, name, table, geometry=False)
+                if spill is not None and spill.holds(name):
+                    _write_spilled(conn, sql, schema, name, spill)
+                else:
+                    _write_frame(conn, sql, schema, name, table, geometry=False)
     except psycopg.errors.InsufficientPrivilege as exc:
         raise InputError(
             f"no permission to write into schema {schema!r} of the database: "
@@ -374,6 +389,33 @@ def _write_frame(conn, sql, schema, name, frame, geometry):
     with conn.cursor().copy(copy) as writer:
         for row in zip(*cells) if cells else ():
             writer.write_row(row)
+
+
+def _write_spilled(conn, sql, schema, name, spill):
+    """Table ``name`` from a run's :class:`files.TableSpill`, in its order."""
+    kinds = spill.kinds[name]
+    columns = [sql.Identifier(str(c)) for c in kinds]
+    definitions = [
+        sql.SQL("{} {}").format(sql.Identifier(str(c)), sql.SQL(SPILL_TYPES.get(k, "text")))
+        for c, k in kinds.items()
+    ]
+    conn.execute(
+        sql.SQL("CREATE TABLE {} (fid bigserial PRIMARY KEY, {})").format(
+            sql.Identifier(schema, name), sql.SQL(", ").join(definitions)
+        )
+    )
+    copy = sql.SQL("COPY {} ({}) FROM STDIN").format(
+        sql.Identifier(schema, name), sql.SQL(", ").join(columns)
+    )
+    booleans = [i for i, k in enumerate(kinds.values()) if k == "BOOLEAN"]
+    with conn.cursor().copy(copy) as writer:
+        for chunk in spill.batches(name):
+            for row in chunk:
+                if booleans:
+                    row = list(row)
+                    for i in booleans:
+                        row[i] = None if row[i] is None else bool(row[i])
+                writer.write_row(row)
 
 
 def _cells(series, kind):

@@ -1027,6 +1027,17 @@ class TableSpill:
         )
         _register_attributes(db, name, description, self.rows[name])
 
+    def batches(self, name, rows=50_000):
+        """Table ``name``'s rows in their order, a list of tuples at a time (cells as the
+        GeoPackage stores them: dates as ISO text, booleans as 0 and 1)."""
+        columns = ", ".join(_identifier(c) for c in self.kinds[name])
+        cursor = self.db.execute(f"SELECT {columns} FROM {_identifier(name)} ORDER BY fid")
+        while True:
+            chunk = cursor.fetchmany(rows)
+            if not chunk:
+                return
+            yield chunk
+
     def close(self):
         self.db.close()
         for leftover in self.folder.glob("*"):

@@ -3,7 +3,12 @@
 Usage::
 
     python benchmarks/grouped_reading.py --gauges 2000 --years 30 [--gauges-per-group 250]
-                                         [--format parquet|csv] [--seed 1]
+                                         [--format parquet|csv|postgres|both] [--seed 1]
+
+``postgres`` loads the table into a throwaway PostgreSQL server (tests/pg_server.py: Debian's
+PostgreSQL 15 and PostGIS, a Unix socket only) and reads it on the server a gauge group at a
+time; ``both`` measures the Parquet run and the database run one after the other and prints
+their figures side by side.
 
 It generates a synthetic network (in a child process), writes its discharge table as Parquet
 (or CSV), then runs the command line's own path (``run_files``: read the layers, read the table
@@ -60,6 +65,40 @@ def _write_table(folder, fmt):
     return path, whole, whole / n_gauges
 
 
+def _load_postgres(folder, server):
+    """The network's flows as table ``public.discharge`` of the server (COPY of CSV text, a
+    gauge group at a time); returns the source string the command line takes."""
+    import io
+
+    import pandas as pd
+
+    meta = json.loads((Path(folder) / "meta.json").read_text())
+    flow = np.load(Path(folder) / "flow.npy")
+    n_gauges, n_days = flow.shape
+    dates = pd.date_range(meta["start"], periods=n_days, freq="D").strftime("%Y-%m-%d")
+    with server.connect() as conn:
+        conn.execute(
+            "CREATE TABLE discharge (gauge_id text, date date, discharge double precision)"
+        )
+        with conn.cursor().copy("COPY discharge FROM STDIN (FORMAT csv)") as copy:
+            for start in range(0, n_gauges, 100):
+                part = slice(start, min(start + 100, n_gauges))
+                ids = np.asarray(meta["ids"], dtype=object)[part]
+                block = pd.DataFrame(
+                    {
+                        "gauge_id": np.repeat(ids, n_days),
+                        "date": np.tile(dates.to_numpy(), len(ids)),
+                        "discharge": flow[part].reshape(-1),
+                    }
+                )
+                text = io.StringIO()
+                block.to_csv(text, index=False, header=False)
+                copy.write(text.getvalue())
+        conn.execute("CREATE INDEX ON discharge (gauge_id)")
+        conn.execute("ANALYZE discharge")
+    return server.uri() + "|layername=public.discharge"
+
+
 def _measure(folder, table_path, per_group):
     """Run in a fresh process: baseline after imports, then the run, then the peak (bytes)."""
     from run import _peak_rss_bytes as peak_rss_bytes
@@ -91,12 +130,40 @@ def _measure(folder, table_path, per_group):
     return {"baseline": baseline, "peak": max(peak_rss_bytes(), baseline), "seconds": seconds}
 
 
+def _report(args, fmt, folder, table_path, whole, per_gauge, size):
+    """Measure one run in a fresh process and print its figures."""
+    measured = subprocess.run(
+        [sys.executable, __file__, "--measure", folder, str(table_path),
+         str(args.gauges_per_group)],
+        check=True, capture_output=True, text=True,
+    )  # fmt: skip
+    figures = json.loads(measured.stdout.strip().splitlines()[-1])
+    # 0 gauges per group: the whole table at once (for comparison).
+    group = per_gauge * min(args.gauges_per_group or args.gauges, args.gauges)
+    above = figures["peak"] - figures["baseline"]
+    gauge_years = args.gauges * args.years
+    print(
+        f"== {fmt}: {args.gauges} gauges x {args.years} years, table {size}, "
+        f"{args.gauges_per_group} gauges per group"
+    )
+    print(
+        f"run_seconds={figures['seconds']:.1f} "
+        f"({gauge_years / figures['seconds']:,.0f} gauge-years/s, one process)"
+    )
+    print(f"whole_table_bytes={whole:,.0f}")
+    print(f"group_table_bytes={group:,.0f}")
+    print(f"peak_above_baseline_bytes={above:,.0f}")
+    print(f"group_memory_ratio={above / group:.2f}")
+
+
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--gauges", type=int, default=1000)
     parser.add_argument("--years", type=int, default=30)
     parser.add_argument("--gauges-per-group", type=int, default=250)
-    parser.add_argument("--format", choices=("parquet", "csv"), default="parquet")
+    parser.add_argument(
+        "--format", choices=("parquet", "csv", "postgres", "both"), default="parquet"
+    )
     parser.add_argument("--seed", type=int, default=1)
     parser.add_argument("--measure", nargs=3, help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
@@ -121,35 +188,26 @@ def main(argv=None):
             ],
             check=True,
         )
-        table_path, whole, per_gauge = _write_table(folder, args.format)
-        measured = subprocess.run(
-            [
-                sys.executable,
-                __file__,
-                "--measure",
-                folder,
-                str(table_path),
-                str(args.gauges_per_group),
-            ],
-            check=True,
-            capture_output=True,
-            text=True,
-        )
-        figures = json.loads(measured.stdout.strip().splitlines()[-1])
-        # 0 gauges per group: the whole table at once (for comparison).
-        group = per_gauge * min(args.gauges_per_group or args.gauges, args.gauges)
-        above = figures["peak"] - figures["baseline"]
-        gauge_years = args.gauges * args.years
-        print(
-            f"network: {args.gauges} gauges x {args.years} years, table as {args.format} ({table_path.stat().st_size / 1e6:,.0f} MB on disk), {args.gauges_per_group} gauges per group"
-        )
-        print(
-            f"run_seconds={figures['seconds']:.1f} ({gauge_years / figures['seconds']:,.0f} gauge-years/s, one process)"
-        )
-        print(f"whole_table_bytes={whole:,.0f}")
-        print(f"group_table_bytes={group:,.0f}")
-        print(f"peak_above_baseline_bytes={above:,.0f}")
-        print(f"group_memory_ratio={above / group:.2f}")
+        formats = ["parquet", "postgres"] if args.format == "both" else [args.format]
+        server = None
+        try:
+            for fmt in formats:
+                table_path, whole, per_gauge = _write_table(
+                    folder, "parquet" if fmt == "postgres" else fmt
+                )
+                size = f"{table_path.stat().st_size / 1e6:,.0f} MB on disk as {table_path.suffix}"
+                if fmt == "postgres":
+                    sys.path.insert(0, str(HERE.parent / "tests"))
+                    from pg_server import start_or_skip
+
+                    server = start_or_skip(Path(folder) / "pg")
+                    loading = time.perf_counter()
+                    table_path = _load_postgres(folder, server)
+                    size = f"loaded into PostgreSQL in {time.perf_counter() - loading:.0f} s"
+                _report(args, fmt, folder, table_path, whole, per_gauge, size)
+        finally:
+            if server is not None:
+                server.stop()
     return 0
 
 

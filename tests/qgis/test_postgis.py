@@ -22,11 +22,15 @@ from support_qgis import SAMPLE, sample_parameters  # noqa: E402
 
 @pytest.fixture(scope="module")
 def server(qgis_app, tmp_path_factory):
-    from recharge_atlas.algorithms.files import read_table
+    from recharge_atlas.algorithms.files import read_layer, read_table
 
     server = start_or_skip(tmp_path_factory.mktemp("pg"))
     flow = read_table(SAMPLE / "discharge.csv")
+    gauges = read_layer(SAMPLE / "gauges.gpkg", "gauges")
+    catchments = read_layer(SAMPLE / "catchments.gpkg", "catchments")
     with server.connect() as conn:
+        load_frame(conn, "public", "gauges", gauges, gauges.crs.to_epsg())
+        load_frame(conn, "public", "catchments", catchments, catchments.crs.to_epsg())
         load_frame(conn, "telemetry", "flow_text", flow[["gauge_id", "date", "discharge"]])
         # Typed as an agency keeps it: real dates and numbers.
         conn.execute(
@@ -39,10 +43,9 @@ def server(qgis_app, tmp_path_factory):
     server.stop()
 
 
-def _layer(server, schema, table):
-    source = (
-        f'dbname=\'hydro\' host={server.socket} user={SUPERUSER} table="{schema}"."{table}" sql='
-    )
+def _layer(server, schema, table, geometry=None):
+    where = f'table="{schema}"."{table}"' + (f" ({geometry})" if geometry else "")
+    source = f"dbname='hydro' host={server.socket} user={SUPERUSER} {where} sql="
     layer = QgsVectorLayer(source, table, "postgres")
     assert layer.isValid(), source
     return layer
@@ -59,9 +62,15 @@ def test_discharge_from_postgres_by_one_query_and_output_to_postgis(
         f"postgis:dbname='hydro' host={server.socket} user={SUPERUSER} "
         'table="results"."catchments" (geom)'
     )
+    # Every input from the database: gauges, catchments and discharge.
     results = processing.run(
         "recharge_atlas:catchmentrecharge",
-        sample_parameters(DISCHARGE=layer, OUTPUT=destination),
+        sample_parameters(
+            GAUGES=_layer(server, "public", "gauges", "geom"),
+            CATCHMENTS=_layer(server, "public", "catchments", "geom"),
+            DISCHARGE=layer,
+            OUTPUT=destination,
+        ),
         feedback=feedback,
     )
     assert "read from the database by one query" in feedback.text("info")
