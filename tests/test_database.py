@@ -261,3 +261,40 @@ def _same_table(got, expected, name="catchments"):
             if pd.api.types.is_bool_dtype(b):
                 left = [None if v is None else str(v in ("True", "1", "true")) for v in left]
             assert left == right, f"{name}.{column}"
+
+
+def test_a_generated_network_runs_in_gauge_groups_from_the_database(server, tmp_path):
+    # The benchmark's synthetic network, small: read on the server five gauges at a time, it
+    # gives the numbers of the same table read whole from a CSV file.
+    from recharge_atlas.cli import main
+    from recharge_atlas.sample_layers.generate import make_network
+
+    network = make_network(n_gauges=12, years=4, seed=3)
+    n_gauges, n_days = network.flow.shape
+    ids = list(network.gauges["gauge_id"])
+    table = pd.DataFrame(
+        {
+            "gauge_id": np.repeat(np.asarray(ids, dtype=object), n_days),
+            "date": np.tile(network.dates.strftime("%Y-%m-%d").to_numpy(), n_gauges),
+            "discharge": network.flow.reshape(-1),
+        }
+    )
+    csv = tmp_path / "flow.csv"
+    table.to_csv(csv, index=False)
+    gauges, catchments = tmp_path / "gauges.gpkg", tmp_path / "catchments.gpkg"
+    network.gauges.to_file(gauges, driver="GPKG")
+    network.catchments.to_file(catchments, driver="GPKG")
+    with server.connect() as conn:
+        _load(conn, "network", "flow", table)
+    args = ["run", "--gauges", str(gauges), "--catchments", str(catchments)]
+    assert main([*args, "--discharge", str(csv), "--out", str(tmp_path / "a.gpkg")]) == 0
+    source = server.uri() + "|layername=network.flow"
+    out = tmp_path / "b.gpkg"
+    assert main([*args, "--discharge", source, "--gauges-per-group", "5", "--out", str(out)]) == 0
+    a = read_layer(f"{tmp_path / 'a.gpkg'}|layername=catchments", "catchments")
+    b = read_layer(f"{out}|layername=catchments", "catchments")
+    np.testing.assert_allclose(
+        b["recharge_mm_per_year"].to_numpy(float), a["recharge_mm_per_year"].to_numpy(float),
+        rtol=1e-12, equal_nan=True,
+    )  # fmt: skip
+    assert np.isfinite(a["recharge_mm_per_year"].to_numpy(float)).sum() >= 10
