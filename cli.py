@@ -619,32 +619,21 @@ def _located(exc, sources, settings):
 
 
 def _discharge(files, path, gauge_layer, settings, gauges_per_group):
-    """The discharge table whole, or (large files) an iterator over gauge groups of it."""
+    """The discharge table whole, or (large files, and always from a database, where the
+    server picks each group's rows) an iterator over gauge groups of it."""
     from recharge_atlas.algorithms import database
     from recharge_atlas.algorithms.discharge import gauge_id_text, require_columns
     from recharge_atlas.algorithms.errors import InputError
 
-    if database.is_database(path):  # read on the server, a gauge group at a time
-        require_columns(gauge_layer, [settings.gauge_id_field], "gauges layer")
-        ids = [
-            g
-            for g in dict.fromkeys(gauge_id_text(gauge_layer[settings.gauge_id_field].to_numpy()))
-            if g is not None
-        ]
-        needed = [settings.date_field, settings.value_field, settings.flag_field]
-        return database.discharge_groups(
-            path,
-            settings.discharge_gauge_field,
-            ids,
-            gauges_per_group or files.GAUGES_PER_GROUP,
-            [c for c in needed if c],
-        )
-    file_path = files.split_layer(path)[0]
-    if gauges_per_group is None:
+    if gauges_per_group is not None and gauges_per_group < 0:
+        raise InputError(f"gauges per group was {gauges_per_group}; expected 0 or more")
+    in_database = database.is_database(path)
+    if in_database:
+        gauges_per_group = gauges_per_group or files.GAUGES_PER_GROUP
+    elif gauges_per_group is None:
+        file_path = files.split_layer(path)[0]
         large = file_path.exists() and file_path.stat().st_size > files.STREAM_BYTES
         gauges_per_group = files.GAUGES_PER_GROUP if large else 0
-    if gauges_per_group < 0:
-        raise InputError(f"gauges per group was {gauges_per_group}; expected 0 or more")
     if gauges_per_group == 0:
         return files.read_table(path, "discharge table")
     require_columns(gauge_layer, [settings.gauge_id_field], "gauges layer")
@@ -653,6 +642,11 @@ def _discharge(files, path, gauge_layer, settings, gauges_per_group):
         for g in dict.fromkeys(gauge_id_text(gauge_layer[settings.gauge_id_field].to_numpy()))
         if g is not None
     ]
+    if in_database:  # only the fields the run needs
+        needed = [settings.date_field, settings.value_field, settings.flag_field]
+        return database.discharge_groups(
+            path, settings.discharge_gauge_field, ids, gauges_per_group, [c for c in needed if c]
+        )
     return files.discharge_groups(
         path,
         settings.discharge_gauge_field,
