@@ -575,8 +575,12 @@ def containing(layer, share=0.9):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # a geographic CRS only makes the areas approximate
         area = np.nan_to_num(layer.geometry.area.to_numpy(dtype=float), nan=0.0)
-        tree = layer.sindex
-        left, right = tree.query(layer.geometry, predicate="intersects")
+        # Candidate pairs by bounding box (numpy; works with shapely 1.8 and 2).
+        box = layer.geometry.bounds.to_numpy(dtype=float)
+        with np.errstate(invalid="ignore"):
+            overlap = (box[:, None, 0] <= box[None, :, 2]) & (box[None, :, 0] <= box[:, None, 2])
+            overlap &= (box[:, None, 1] <= box[None, :, 3]) & (box[None, :, 1] <= box[:, None, 3])
+        left, right = np.nonzero(overlap)
         for i, j in zip(left, right):
             if i == j or out[i] or not area[j] < area[i] or area[j] <= 0:
                 continue
@@ -877,9 +881,9 @@ def _visible(layer, pick):
         geom = geoms[i]
         later = [g for g in geoms[i + 1 :] if g is not None and g.intersects(geom)]
         if geom is not None and later:
-            from shapely import union_all
+            from shapely.ops import unary_union
 
-            geom = geom.difference(union_all(later))
+            geom = geom.difference(unary_union(later))
         shown.append(geom)
     if len(shown):
         import geopandas as gpd
@@ -1006,7 +1010,7 @@ def year_maps(
     width = 12.0
     panel_w = width / ncols
     panel_h = panel_w * aspect + 0.3
-    top_in, bottom_in = 0.6, 0.8
+    top_in, bottom_in = 0.6, 1.1
     height = nrows * panel_h + top_in + bottom_in
     figure = Figure(figsize=(width, height))
     figure.subplots_adjust(
