@@ -785,7 +785,7 @@ def recharge_map(
         )
     ax.set_title(title or _default_title(field, units, mode))
     _blank_axes(ax)
-    notes = [_colour_note(field, mode)]
+    notes = [_colour_note(field, mode, "estimate_source" in layer.columns)]
     crs = catchments.crs
     if crs is not None:
         xmin, ymin, xmax, ymax = layer.total_bounds
@@ -822,9 +822,15 @@ def recharge_map(
     return figure
 
 
-def _colour_note(field, mode):
+def _colour_note(field, mode, subbasins=False):
     """The line that says what the colours mean (printed under the map)."""
     label = FIELD_LABELS.get(field, str(field).replace("_", " ")).lower()
+    if subbasins and mode == "plain":
+        return (
+            f"Colours: {label} of each subbasin, that of the area between its gauge downstream "
+            "and the gauges upstream of that\n(the field estimate_source says where a value "
+            "was borrowed from another gauge)."
+        )
     if mode == "intervening":
         return (
             "Colours: recharge of the area between gauges (a basin minus the gauged basins "

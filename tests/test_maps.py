@@ -509,3 +509,10 @@ def test_year_map_hatching_shows_on_dark_and_light_fills(squares):
     for fill in fills:
         assert max(contrast_ratio(fill, h) for h in hatch_colours) >= 3
     assert len(hatch_colours) == 2
+
+
+def test_a_subbasin_map_says_its_colours_are_areas_between_gauges(squares):
+    catchments, _, _ = squares
+    tiles = catchments.iloc[[0, 2]].assign(estimate_source=["gauge A1", "gauge C3"])
+    note = _note(recharge_map(tiles))
+    assert "of each subbasin" in note and "whole basin" not in note
