@@ -911,6 +911,8 @@ def _hatched(ax, layer, hatch, colour):
 
 
 def _default_title(field, units, mode="plain"):
+    if field == "recharge_mm_per_year" and mode == "outline":
+        return f"Mean annual groundwater recharge of whole basins ({units}), complete years"
     if field == "recharge_mm_per_year":
         return f"Mean annual groundwater recharge ({units}), years with a complete record"
     if field == "incremental_recharge_mm_per_year" and mode == "intervening":
