@@ -116,6 +116,78 @@ def class_breaks(values, scheme="quantiles", classes=5):
     return np.concatenate([[v[0]], upper])
 
 
+def round_breaks(breaks, values=None, figures=2):
+    """Class limits rounded to ``figures`` significant figures, more where needed.
+
+    The lowest limit is rounded down and the highest up, so every value stays inside; the
+    limits between classes go to the nearest rounded number. When rounding would merge two
+    limits, change the number of classes, or empty a class that held values, one more
+    significant figure is tried (up to 15, then the limits are returned unrounded).
+
+    Notes
+    -----
+    Two significant figures for legend limits is our own rule, in line with the common
+    practice of showing no more digits than a reader can use on a map (a recharge estimate
+    carries a band of several percent, so a third figure would claim more than it knows).
+
+    Examples
+    --------
+    >>> round_breaks([163.5, 180.2, 196.4, 213.0, 233.4, 260.1]).tolist()
+    [160.0, 180.0, 200.0, 210.0, 230.0, 270.0]
+    """
+    b = np.asarray(breaks, dtype=float)
+    if b.size < 2 or not np.all(np.isfinite(b)) or b[0] == b[-1]:
+        return b.copy()  # one value: shown as it is
+    v = None if values is None else _finite(values)
+    before = None if v is None else np.bincount(class_index(v, b), minlength=b.size - 1)
+    for f in range(int(figures), 16):
+        low = _round_significant(b[0], f, np.floor)
+        high = _round_significant(b[-1], f, np.ceil)
+        inner = [_round_significant(x, f, np.round) for x in b[1:-1]]
+        r = np.array([low, *inner, high])
+        if b[0] == b[1]:
+            r[0] = r[1] = b[0]  # a first class of only the smallest value keeps it exactly
+        steps = np.diff(r[1:]) if b[0] == b[1] else np.diff(r)
+        if np.any(steps <= 0):
+            continue
+        if v is not None:
+            after = np.bincount(class_index(v, r), minlength=r.size - 1)
+            if np.any((after == 0) & (before > 0)):
+                continue
+        return r
+    return b.copy()
+
+
+def _round_significant(x, figures, how):
+    """``x`` rounded (``how``: np.floor, np.ceil or np.round) to ``figures`` significant figures."""
+    if x == 0 or not np.isfinite(x):
+        return float(x)
+    exponent = math.floor(math.log10(abs(x))) - figures + 1
+    step = 10.0**exponent
+    out = float(how(x / step)) * step
+    return round(out, -exponent) if exponent < 0 else float(round(out))
+
+
+def map_classes(values, scheme="quantiles", classes=5):
+    """Class limits as the maps draw them: :func:`class_breaks`, then :func:`round_breaks`.
+
+    Never more classes than distinct values; a quantile class that holds no value (limits
+    interpolated between tied values) is merged into the class above; no class that held a
+    value is left empty by the rounding. The QGIS style should use these limits too, so the map and the layer agree.
+    """
+    breaks = class_breaks(values, scheme, classes)
+    if scheme != "equal_interval" and breaks.size > 2:
+        # Quantiles interpolated between tied values can leave a class with no value: merge it
+        # into the class above (equal intervals keep empty classes by their definition).
+        counts = np.bincount(class_index(_finite(values), breaks), minlength=breaks.size - 1)
+        keep = np.concatenate([[True], counts > 0])
+        keep[-1] = True
+        if breaks[0] == breaks[1]:
+            keep[1] = True
+        breaks = breaks[keep]
+    return round_breaks(breaks, values)
+
+
 def class_index(values, breaks):
     """Class number (0-based) of each value for limits from :func:`class_breaks`.
 
@@ -315,7 +387,235 @@ def _require_field(frame, field, what):
         raise InputError(f"the {what} have no field {field!r}", field=field)
 
 
+# --------------------------------------------------------------------------- scale bar, north arrow
+
+
+def _lonlat_transformers(crs):
+    from pyproj import CRS, Transformer
+
+    crs = CRS.from_user_input(crs)
+    geographic = CRS.from_epsg(4326)
+    to_lonlat = Transformer.from_crs(crs, geographic, always_xy=True)
+    from_lonlat = Transformer.from_crs(geographic, crs, always_xy=True)
+    return crs, to_lonlat, from_lonlat
+
+
+def ground_scale(crs, bounds):
+    """Metres on the ground per map unit along x and along y, at the centre of ``bounds``.
+
+    Measured, not assumed: two points a thousandth of the map's width (height) apart about
+    the centre are taken to longitude/latitude with pyproj and their geodesic distance on
+    the WGS 84 ellipsoid is computed with :class:`pyproj.Geod` (Karney 2013, J. Geodesy 87,
+    43–55). This holds for any CRS: in a geographic CRS a degree of longitude shrinks with
+    the cosine of latitude; in a projected CRS the projection's own scale factor counts.
+
+    Returns
+    -------
+    (float, float)
+        Metres per map unit along x (east–west on the map) and along y.
+    """
+    from pyproj import Geod
+
+    crs, to_lonlat, _ = _lonlat_transformers(crs)
+    xmin, ymin, xmax, ymax = (float(b) for b in bounds)
+    xc, yc = (xmin + xmax) / 2, (ymin + ymax) / 2
+    geod = Geod(ellps="WGS84")
+    out = []
+    for dx, dy in (((xmax - xmin) / 1000 or 1e-6, 0.0), (0.0, (ymax - ymin) / 1000 or 1e-6)):
+        lon, lat = to_lonlat.transform([xc - dx / 2, xc + dx / 2], [yc - dy / 2, yc + dy / 2])
+        metres = geod.inv(lon[0], lat[0], lon[1], lat[1])[2]
+        out.append(metres / (dx + dy))
+    return out[0], out[1]
+
+
+def map_aspect(crs, bounds):
+    """The y/x drawing ratio that shows the centre of the map without stretch.
+
+    1 for a projected CRS (its units are alike on both axes); in a geographic CRS the
+    ratio of the ground length of a degree of latitude to one of longitude at the centre
+    (about 1/cos(latitude)), as measured by :func:`ground_scale`.
+    """
+    from pyproj import CRS
+
+    if not CRS.from_user_input(crs).is_geographic:
+        return 1.0
+    x_metres, y_metres = ground_scale(crs, bounds)
+    return y_metres / x_metres
+
+
+def scale_bar(crs, bounds, fraction=0.25):
+    """A scale bar for a map of ``bounds``: its length in map units and on the ground.
+
+    The ground length is the largest 1, 2 or 5 × 10^n metres (common practice for scale
+    bars) not above ``fraction`` of the map's width, measured at the centre of the map by
+    :func:`ground_scale`. In a geographic CRS the bar is true only near the centre's
+    latitude; the map says so.
+
+    Returns
+    -------
+    (float, float, str)
+        Length in map units, length in metres, and its label (``"20 km"``, ``"500 m"``).
+    """
+    x_metres, _ = ground_scale(crs, bounds)
+    width_m = (float(bounds[2]) - float(bounds[0])) * x_metres
+    if not np.isfinite(width_m) or width_m <= 0:
+        raise ValueError(f"the map has no width to scale (bounds {list(bounds)})")
+    target = width_m * fraction
+    power = 10.0 ** math.floor(math.log10(target))
+    metres = max(m * power for m in (1, 2, 5) if m * power <= target)
+    label = f"{metres / 1000:g} km" if metres >= 1000 else f"{metres:g} m"
+    return metres / x_metres, metres, label
+
+
+def north_angle(crs, bounds):
+    """Direction of true north at the map's centre, in degrees clockwise from the map's up.
+
+    The centre is taken to longitude/latitude and a point 0.01° of latitude north of it is
+    projected back into ``crs`` (pyproj); the angle of the line between them on the drawn map
+    (with the aspect of :func:`map_aspect`) is the direction of the north arrow. In a
+    projected CRS it is minus the meridian convergence there; in a geographic CRS it is 0.
+    """
+    crs, to_lonlat, from_lonlat = _lonlat_transformers(crs)
+    xmin, ymin, xmax, ymax = (float(b) for b in bounds)
+    xc, yc = (xmin + xmax) / 2, (ymin + ymax) / 2
+    lon, lat = to_lonlat.transform(xc, yc)
+    step = 0.01 if lat < 89.98 else -0.01  # at the pole, look from just south of it
+    x2, y2 = from_lonlat.transform(lon, lat + step)
+    dx, dy = (x2 - xc) * np.sign(step), (y2 - yc) * np.sign(step)
+    return math.degrees(math.atan2(dx, dy * map_aspect(crs, bounds)))
+
+
+def _draw_furniture(ax, crs, bounds):
+    """Scale bar (lower left) and north arrow (lower right); a note of what they mean."""
+    from matplotlib import patheffects
+
+    length, _, label = scale_bar(crs, bounds)
+    x0, y0 = bounds[0], bounds[1]
+    width, height = bounds[2] - bounds[0], bounds[3] - bounds[1]
+    bx, by = x0 + 0.03 * width, y0 + 0.04 * height
+    halo = [patheffects.withStroke(linewidth=3, foreground="white")]
+    ax.plot(
+        [bx, bx + length],
+        [by, by],
+        color="black",
+        linewidth=3,
+        solid_capstyle="butt",
+        zorder=7,
+        gid="scale-bar",
+        path_effects=[patheffects.withStroke(linewidth=5, foreground="white")],
+    )
+    for x in (bx, bx + length):
+        ax.plot([x, x], [by, by + 0.015 * height], color="black", linewidth=1, zorder=7)
+    ax.text(
+        bx + length / 2,
+        by + 0.02 * height,
+        label,
+        ha="center",
+        va="bottom",
+        fontsize=8,
+        zorder=7,
+        gid="scale-bar-label",
+        path_effects=halo,
+    )
+    angle = math.radians(north_angle(crs, bounds))
+    size = 28.0  # points
+    tail = (-size * math.sin(angle), -size * math.cos(angle))
+    ax.annotate(
+        "",
+        xy=(0.95, 0.16),
+        xycoords="axes fraction",
+        xytext=tail,
+        textcoords="offset points",
+        arrowprops={"arrowstyle": "-|>", "color": "black", "linewidth": 1.5, "mutation_scale": 14},
+        zorder=7,
+        gid="north-arrow",
+    )
+    ax.annotate(
+        "N",
+        xy=(0.95, 0.16),
+        xycoords="axes fraction",
+        xytext=(6 * math.sin(angle), 6 * math.cos(angle)),
+        textcoords="offset points",
+        ha="center",
+        va="center",
+        fontsize=9,
+        fontweight="bold",
+        zorder=7,
+        path_effects=halo,
+    )
+
+
 # --------------------------------------------------------------------------- maps
+
+
+#: Whole-basin fields and the field holding the same quantity for the area between gauges.
+INTERVENING_FIELDS = {"recharge_mm_per_year": "incremental_recharge_mm_per_year"}
+#: Ways to show basins that contain other basins (see :func:`recharge_map`).
+NESTED_STYLES = ("auto", "intervening", "outline")
+#: Why a basin is grey, as the legend says it, with the hatch that tells them apart.
+NO_ESTIMATE_REASONS = {
+    "no gauge": "",
+    "flagged (see quality)": "xxx",
+    "no estimate": "...",
+}
+
+
+def containing(layer, share=0.9):
+    """Which polygons contain another polygon of ``layer`` (nested basins inside them).
+
+    Polygon *i* contains *j* when *j* is the smaller and at least ``share`` of *j*'s area lies
+    inside *i* (a tolerance for digitised boundaries that do not match exactly).
+
+    Returns
+    -------
+    numpy.ndarray of bool
+    """
+    geoms = layer.geometry.to_numpy()
+    out = np.zeros(len(geoms), dtype=bool)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # a geographic CRS only makes the areas approximate
+        area = np.nan_to_num(layer.geometry.area.to_numpy(dtype=float), nan=0.0)
+        # Candidate pairs by bounding box (numpy; works with shapely 1.8 and 2).
+        box = layer.geometry.bounds.to_numpy(dtype=float)
+        with np.errstate(invalid="ignore"):
+            overlap = (box[:, None, 0] <= box[None, :, 2]) & (box[None, :, 0] <= box[:, None, 2])
+            overlap &= (box[:, None, 1] <= box[None, :, 3]) & (box[None, :, 1] <= box[:, None, 3])
+        left, right = np.nonzero(overlap)
+        for i, j in zip(left, right):
+            if i == j or out[i] or not area[j] < area[i] or area[j] <= 0:
+                continue
+            if geoms[i].intersection(geoms[j]).area >= share * area[j]:
+                out[i] = True
+    return out
+
+
+def no_estimate_reasons(layer, values, gauge_field="gauge_id", quality_field="quality"):
+    """Why each basin without a value has none (keys of :data:`NO_ESTIMATE_REASONS`).
+
+    ``no gauge`` when the basin has no gauge id (or its quality says so), ``flagged (see
+    quality)`` when its quality is not ``ok``, else ``no estimate``; "" where a value exists.
+    """
+    v = _as_float(values)
+    n = len(layer)
+    gauge = (
+        layer[gauge_field].notna().to_numpy() if gauge_field in layer.columns else np.ones(n, bool)
+    )
+    quality = (
+        layer[quality_field].astype(object).where(layer[quality_field].notna(), "").astype(str)
+        if quality_field in layer.columns
+        else pd.Series([""] * n)
+    ).to_numpy()
+    out = []
+    for value, has_gauge, q in zip(v, gauge, quality):
+        if np.isfinite(value):
+            out.append("")
+        elif not has_gauge or q.startswith("no gauge"):
+            out.append("no gauge")
+        elif q and q != "ok":
+            out.append("flagged (see quality)")
+        else:
+            out.append("no estimate")
+    return np.array(out, dtype=object)
 
 
 def recharge_map(
@@ -326,12 +626,14 @@ def recharge_map(
     classes=5,
     title=None,
     units="mm/yr",
+    nested="auto",
 ):
     """A choropleth map of ``field`` over the catchment polygons.
 
-    Larger catchments are drawn first, so nested ones show on top of the basins that contain
-    them. Catchments without an estimate are grey and listed in the legend. Gauges, when
-    given, are red triangles labelled with their ``gauge_id``.
+    Catchments without an estimate are grey, with the reason in the legend and on the map
+    (no gauge, flagged). Gauges, when given, are red triangles labelled with their
+    ``gauge_id``. A scale bar and a north arrow (true north at the centre) are drawn when the
+    layer has a CRS; the map's own text says what the colours mean.
 
     Parameters
     ----------
@@ -343,11 +645,21 @@ def recharge_map(
         Numeric field to map, e.g. ``recharge_mm_per_year`` or
         ``incremental_recharge_mm_per_year``.
     scheme, classes
-        How to draw the class limits (see :func:`class_breaks`).
+        How to draw the class limits (see :func:`map_classes`).
     title : str, optional
         Map title; by default the field's label and units.
     units : str
         Units shown in the legend title and the default title ("" for none).
+    nested : {"auto", "intervening", "outline"}
+        How to show basins that contain other basins (:func:`containing`). Drawn filled, a
+        containing basin's whole-basin value would show only on the part outside the basins
+        inside it, and read as the value of that part. ``intervening``: colour every area by
+        the recharge of the area between gauges (the basin minus the gauged basins inside
+        it; ``recharge_mm_per_year`` is then mapped from
+        ``incremental_recharge_mm_per_year``), and outline the containing basins.
+        ``outline``: keep the whole-basin field, draw containing basins as outlines only and
+        write their value beside their gauge. ``auto`` (default): ``intervening`` where the
+        layer has the field for it, else ``outline``; nothing changes when no basin nests.
 
     Returns
     -------
@@ -358,27 +670,65 @@ def recharge_map(
     >>> figure = recharge_map(result.catchments, gauges, scheme="natural_breaks")  # doctest: +SKIP
     """
     from matplotlib.figure import Figure
+    from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
     _require_field(catchments, field, "catchments")
+    if nested not in NESTED_STYLES:
+        raise InputError(f"nested was {nested!r}; expected one of {list(NESTED_STYLES)}")
     if not len(catchments):
         raise InputError("the catchments layer holds no polygons to map")
-    values = _as_float(catchments[field])
-    breaks = class_breaks(values, scheme, classes)
     order = _plot_order(catchments)
-    colours, palette = _colours(values[order], breaks)
+    layer = catchments.iloc[order]
+    outer = containing(layer)
+    mode = "plain"
+    if outer.any():
+        mode = nested
+        if mode == "auto":
+            between = field in INTERVENING_FIELDS.values()  # already the area between gauges
+            between |= INTERVENING_FIELDS.get(field) in layer.columns
+            mode = "intervening" if between else "outline"
+        if mode == "intervening" and field in INTERVENING_FIELDS:
+            if INTERVENING_FIELDS[field] not in layer.columns:
+                raise InputError(
+                    f"the catchments have no field {INTERVENING_FIELDS[field]!r} to map the "
+                    "areas between gauges; use nested='outline'",
+                    field=INTERVENING_FIELDS[field],
+                )
+            field = INTERVENING_FIELDS[field]
+    values = _as_float(layer[field])
+    filled = ~outer if mode == "outline" else np.ones(len(layer), bool)
+    breaks = map_classes(values[filled], scheme, classes)
+    colours, palette = _colours(values, breaks)
+    reasons = no_estimate_reasons(layer, values)
 
     figure = Figure(figsize=(9, 7))
     ax = figure.add_subplot(1, 1, 1)
-    catchments.iloc[order].plot(ax=ax, color=colours, edgecolor=EDGE_COLOUR, linewidth=0.8)
+    colours = [c if f else "none" for c, f in zip(colours, filled)]
+    layer.plot(ax=ax, color=colours, edgecolor=EDGE_COLOUR, linewidth=0.8)
+    for reason, hatch in NO_ESTIMATE_REASONS.items():
+        pick = (reasons == reason) & filled
+        if hatch and pick.any():
+            _hatched(ax, _visible(layer, pick), hatch, "#707070")
+    if mode != "plain":
+        layer[outer].plot(ax=ax, facecolor="none", edgecolor="black", linewidth=2.2, zorder=3)
     points = _point_layer(gauges, catchments.crs)
+    whole = {}
+    if mode == "outline" and "gauge_id" in layer.columns:
+        digits = _digits(breaks)
+        for gid, value in zip(layer["gauge_id"][outer], values[outer]):
+            if gid is not None and np.isfinite(value):
+                whole[str(gid)] = f"{value:,.{digits}f} {units}".strip()
+    halo = _label_halo()
     if points is not None and len(points):
         points.plot(ax=ax, color=GAUGE_COLOUR, marker="^", markersize=40, zorder=5)
         if "gauge_id" in points.columns:
-            halo = _label_halo()
             for geom, label in zip(points.geometry, points["gauge_id"]):
+                text = str(label)
+                if text in whole:
+                    text += f"\nwhole basin {whole[text]}"
                 ax.annotate(
-                    str(label),
+                    text,
                     (geom.x, geom.y),
                     xytext=(4, 4),
                     textcoords="offset points",
@@ -386,13 +736,42 @@ def recharge_map(
                     zorder=6,
                     path_effects=halo,
                 )
+    if len(layer) <= 40:  # short labels on grey basins; a legend entry says the same
+        for geom, reason in zip(layer.geometry, reasons):
+            if reason and geom is not None and not geom.is_empty:
+                spot = geom.representative_point()
+                ax.text(
+                    spot.x,
+                    spot.y,
+                    reason.split(" (")[0],
+                    ha="center",
+                    va="center",
+                    fontsize=7,
+                    color="#333333",
+                    zorder=6,
+                    path_effects=halo,
+                )
     handles = [
         Patch(facecolor=palette[i], edgecolor=EDGE_COLOUR, label=label)
         for i, label in enumerate(class_labels(breaks) if breaks.size >= 2 else [])
     ]
-    if not np.all(np.isfinite(values)):
+    for reason, hatch in NO_ESTIMATE_REASONS.items():
+        if np.any((reasons == reason) & filled):
+            handles.append(
+                Patch(facecolor=NO_ESTIMATE_COLOUR, edgecolor="#707070", hatch=hatch, label=reason)
+            )
+    if mode != "plain":
         handles.append(
-            Patch(facecolor=NO_ESTIMATE_COLOUR, edgecolor=EDGE_COLOUR, label="no estimate")
+            Patch(
+                facecolor="none",
+                edgecolor="black",
+                linewidth=2.2,
+                label="basin with gauged\nbasins inside it",
+            )
+        )
+    if points is not None and len(points):
+        handles.append(
+            Line2D([], [], color=GAUGE_COLOUR, marker="^", linestyle="none", label="gauge")
         )
     if handles:
         ax.legend(
@@ -404,25 +783,143 @@ def recharge_map(
             title_fontsize=9,
             frameon=False,
         )
-    ax.set_title(title or _default_title(field, units))
+    ax.set_title(title or _default_title(field, units, mode))
     _blank_axes(ax)
-    crs_name = catchments.crs.name if catchments.crs is not None else "unknown CRS"
+    notes = [_colour_note(field, mode, "estimate_source" in layer.columns)]
+    crs = catchments.crs
+    if crs is not None:
+        xmin, ymin, xmax, ymax = layer.total_bounds
+        pad_x, pad_y = 0.03 * (xmax - xmin), 0.03 * (ymax - ymin)
+        bounds = (xmin - pad_x, ymin - 3 * pad_y, xmax + pad_x, ymax + pad_y)
+        ax.set_xlim(bounds[0], bounds[2])
+        ax.set_ylim(bounds[1], bounds[3])
+        try:
+            ax.set_aspect(map_aspect(crs, bounds))
+            _draw_furniture(ax, crs, bounds)
+            if crs.is_geographic:
+                notes.append("Scale bar true at the map's centre latitude.")
+            notes.append("North arrow: true north at the map's centre.")
+        except Exception:  # a CRS pyproj cannot take to longitude/latitude
+            notes.append("No scale bar or north arrow: the CRS cannot be located on Earth.")
+        crs_name = crs.name
+    else:
+        notes.append("No scale bar or north arrow: the layer has no CRS.")
+        crs_name = "unknown CRS"
+    notes.append(
+        f"Recession-curve displacement (Rorabaugh 1964). Classes: {scheme.replace('_', ' ')}, "
+        f"limits rounded to 2 significant figures. CRS: {crs_name}."
+    )
     ax.text(
         0.0,
         -0.02,
-        f"Recession-curve displacement (Rorabaugh 1964). Red triangles: gauges. "
-        f"Classes: {scheme.replace('_', ' ')}. CRS: {crs_name}.",
+        "\n".join(notes),
         transform=ax.transAxes,
         va="top",
         fontsize=7,
-        color="#555555",
+        color="#333333",
+        gid="map-note",
     )
     return figure
 
 
-def _default_title(field, units):
+def _colour_note(field, mode, subbasins=False):
+    """The line that says what the colours mean (printed under the map)."""
+    label = FIELD_LABELS.get(field, str(field).replace("_", " ")).lower()
+    if subbasins and mode == "plain":
+        return (
+            f"Colours: {label} of each subbasin, that of the area between its gauge downstream "
+            "and the gauges upstream of that\n(the field estimate_source says where a value "
+            "was borrowed from another gauge)."
+        )
+    if mode == "intervening":
+        return (
+            "Colours: recharge of the area between gauges (a basin minus the gauged basins "
+            "inside it). Thick outlines: basins that contain other gauged basins;\n"
+            "their whole-basin value is the field recharge_mm_per_year, not shown here."
+        )
+    if mode == "outline":
+        return (
+            f"Colours: {label} of the whole basin upstream of each gauge. Basins that contain "
+            "other gauged basins are drawn as thick outlines only;\ntheir whole-basin value is "
+            "written beside their gauge."
+        )
+    if field in INTERVENING_FIELDS.values():
+        return "Colours: recharge of the area between gauges (a basin minus the gauged basins inside it)."
+    return f"Colours: {label} of the whole basin upstream of each gauge (no basin lies inside another)."
+
+
+HATCH_DARK = "#222222"
+HATCH_LIGHT = "#ffffff"
+
+
+def relative_luminance(colour):
+    """Relative luminance of a colour (W3C WCAG 2.1, definition "relative luminance").
+
+    L = 0.2126 R + 0.7152 G + 0.0722 B, each channel c (0–1) linearised as c/12.92 when
+    c <= 0.04045, else ((c + 0.055)/1.055)^2.4.
+    """
+    from matplotlib.colors import to_rgb
+
+    c = np.asarray(to_rgb(colour), dtype=float)
+    linear = np.where(c <= 0.04045, c / 12.92, ((c + 0.055) / 1.055) ** 2.4)
+    return float(linear @ np.array([0.2126, 0.7152, 0.0722]))
+
+
+def contrast_ratio(first, second):
+    """WCAG 2.1 contrast ratio (L1 + 0.05) / (L2 + 0.05), L1 the lighter: 1 to 21."""
+    a, b = sorted((relative_luminance(first), relative_luminance(second)), reverse=True)
+    return (a + 0.05) / (b + 0.05)
+
+
+def hatch_colour(fill):
+    """Black-ish or white hatching, whichever contrasts more with ``fill`` (WCAG 2.1)."""
+    if contrast_ratio(fill, HATCH_DARK) >= contrast_ratio(fill, HATCH_LIGHT):
+        return HATCH_DARK
+    return HATCH_LIGHT
+
+
+def _visible(layer, pick):
+    """The picked rows of ``layer`` (drawn in its order) minus the polygons drawn after them."""
+    geoms = layer.geometry.to_numpy()
+    out = layer[pick].copy()
+    shown = []
+    for i in np.flatnonzero(pick):
+        geom = geoms[i]
+        later = [g for g in geoms[i + 1 :] if g is not None and g.intersects(geom)]
+        if geom is not None and later:
+            from shapely.ops import unary_union
+
+            geom = geom.difference(unary_union(later))
+        shown.append(geom)
+    if len(shown):
+        import geopandas as gpd
+
+        out = out.set_geometry(gpd.GeoSeries(shown, index=out.index, crs=layer.crs))
+    return out
+
+
+def _hatched(ax, layer, hatch, colour):
+    """Draw ``layer`` hatched in ``colour`` with no fill and no outline (any matplotlib)."""
+    import matplotlib
+
+    with matplotlib.rc_context({"hatch.color": colour}):
+        layer.plot(ax=ax, facecolor="none", edgecolor=colour, hatch=hatch, linewidth=0.0, zorder=2)
+    collection = ax.collections[-1]
+    if hasattr(collection, "set_hatchcolor"):  # matplotlib 3.10 and later
+        collection.set_hatchcolor(colour)
+    return collection
+
+
+def _default_title(field, units, mode="plain"):
+    if field == "recharge_mm_per_year" and mode == "outline":
+        return f"Mean annual groundwater recharge of whole basins ({units}), complete years"
     if field == "recharge_mm_per_year":
         return f"Mean annual groundwater recharge ({units}), years with a complete record"
+    if field == "incremental_recharge_mm_per_year" and mode == "intervening":
+        return (
+            f"Mean annual groundwater recharge between gauges ({units}), "
+            "years with a complete record"
+        )
     label = FIELD_LABELS.get(field, str(field).replace("_", " ").capitalize())
     return f"{label} ({units})" if units else label
 
@@ -504,7 +1001,7 @@ def year_maps(
         raise InputError("the annual table holds no water years to map")
 
     shown = table[table["water_year"].isin(years)]
-    breaks = class_breaks(shown["value"], scheme, classes)
+    breaks = map_classes(shown["value"], scheme, classes)
     order = _plot_order(catchments_layer)
     layer = catchments_layer.iloc[order]
     ids = pd.Series(layer[gauge_field].to_numpy(), dtype=object)
@@ -521,7 +1018,7 @@ def year_maps(
     width = 12.0
     panel_w = width / ncols
     panel_h = panel_w * aspect + 0.3
-    top_in, bottom_in = 0.6, 0.8
+    top_in, bottom_in = 0.6, 1.1
     height = nrows * panel_h + top_in + bottom_in
     figure = Figure(figsize=(width, height))
     figure.subplots_adjust(
@@ -533,6 +1030,12 @@ def year_maps(
         hspace=0.3 / panel_h,
     )
     palette = class_colours(max(breaks.size - 1, 1))
+    no_gauge = layer[gauge_field].isna().to_numpy()
+    outer = containing(layer)
+    try:
+        aspect = map_aspect(layer.crs, layer.total_bounds) if layer.crs is not None else 1.0
+    except Exception:  # a CRS pyproj cannot take to longitude/latitude
+        aspect = 1.0
     any_missing = any_incomplete = False
     for number, year in enumerate(years):
         ax = figure.add_subplot(nrows, ncols, number + 1)
@@ -553,21 +1056,30 @@ def year_maps(
                 for g in ids
             ]
         )
-        any_missing |= bool(np.any(~np.isfinite(values)))
+        missing = ~np.isfinite(values) & ~no_gauge
+        any_missing |= bool(np.any(missing))
         any_incomplete |= bool(np.any(incomplete & np.isfinite(values)))
         colours, _ = _colours(values, breaks)
         layer.plot(ax=ax, color=colours, edgecolor=EDGE_COLOUR, linewidth=0.4)
+        if np.any(missing):
+            _hatched(ax, _visible(layer, missing), "...", "#707070")
+        # Hatching in black on light fills and in white on dark ones, so it shows on every
+        # class (contrast by the WCAG 2.1 relative luminance, see hatch_colour).
+        for colour in (HATCH_DARK, HATCH_LIGHT):
+            pick = incomplete & np.array([hatch_colour(c) == colour for c in colours])
+            if np.any(pick):
+                _hatched(ax, _visible(layer, pick), "////", colour)
         if np.any(incomplete):
-            layer[incomplete].plot(
-                ax=ax, facecolor="none", edgecolor="#555555", hatch="////", linewidth=0.0
-            )
             layer[incomplete].plot(ax=ax, facecolor="none", edgecolor=EDGE_COLOUR, linewidth=0.4)
+        if np.any(outer):
+            layer[outer].plot(ax=ax, facecolor="none", edgecolor="black", linewidth=1.2)
         if points is not None and len(points):
             points.plot(ax=ax, color=GAUGE_COLOUR, marker="^", markersize=8, zorder=5)
         ax.set_title(str(year), fontsize=9, pad=2)
         ax.set_xlim(xmin, xmax)
         ax.set_ylim(ymin, ymax)
         _blank_axes(ax)
+        ax.set_aspect(aspect)
         for spine in ax.spines.values():
             spine.set_edgecolor("#bbbbbb")
 
@@ -575,13 +1087,29 @@ def year_maps(
         Patch(facecolor=palette[i], edgecolor=EDGE_COLOUR, label=label)
         for i, label in enumerate(class_labels(breaks) if breaks.size >= 2 else [])
     ]
+    if np.any(no_gauge):
+        handles.append(Patch(facecolor=NO_ESTIMATE_COLOUR, edgecolor=EDGE_COLOUR, label="no gauge"))
     if any_missing or breaks.size < 2:
         handles.append(
-            Patch(facecolor=NO_ESTIMATE_COLOUR, edgecolor=EDGE_COLOUR, label="no estimate")
+            Patch(
+                facecolor=NO_ESTIMATE_COLOUR,
+                edgecolor="#707070",
+                hatch="...",
+                label="no estimate that year",
+            )
         )
     if any_incomplete:
         handles.append(
             Patch(facecolor="white", edgecolor="#555555", hatch="////", label="incomplete year")
+        )
+    if np.any(outer):
+        handles.append(
+            Patch(
+                facecolor="none",
+                edgecolor="black",
+                linewidth=1.2,
+                label="basin with gauged basins inside it\n(its colour shows only outside them)",
+            )
         )
     if points is not None and len(points):
         handles.append(
@@ -592,7 +1120,7 @@ def year_maps(
         title=legend_title(field, units).replace("\n", " "),
         loc="lower center",
         bbox_to_anchor=(0.5, 0.0),
-        ncol=min(len(handles), 8),
+        ncol=len(handles) if len(handles) <= 7 else math.ceil(len(handles) / 2),
         fontsize=9,
         title_fontsize=10,
         frameon=False,

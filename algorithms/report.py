@@ -760,8 +760,9 @@ def _maps_html(result, gauges, scheme, classes, include_year_maps):
                 recharge_map(catchments, gauges, scheme=scheme, classes=classes),
                 "Map of mean annual recharge by catchment",
                 "Mean annual recharge over every water year with a complete discharge record. "
-                "Nested catchments are drawn on "
-                "top of the basins that contain them; grey: no estimate (see the quality flags).",
+                "Where basins nest, each area is coloured by the recharge of the area between "
+                "gauges (thick outlines: basins that contain other gauged basins); grey: no "
+                "estimate, with the reason (no gauge, flagged: see the quality flags).",
                 width=900,
             )
         )
@@ -772,10 +773,10 @@ def _maps_html(result, gauges, scheme, classes, include_year_maps):
     ):
         out.append(
             _img(
-                recharge_map(catchments, gauges, field=field, scheme=scheme, classes=classes),
-                "Map of mean annual recharge of the areas between gauges",
-                "Recharge of each intervening area: the basin minus the gauged basins directly "
-                "upstream.",
+                recharge_map(catchments, gauges, scheme=scheme, classes=classes, nested="outline"),
+                "Map of mean annual recharge of whole basins",
+                "Recharge of each whole basin upstream of its gauge; basins that contain other "
+                "gauged basins are drawn as outlines only, their value written beside the gauge.",
                 width=900,
             )
         )
