@@ -23,10 +23,10 @@ import numpy as np
 from .maps import (
     EDGE_COLOUR,
     NO_ESTIMATE_COLOUR,
-    class_breaks,
     class_colours,
     class_labels,
     legend_title,
+    map_classes,
 )
 
 #: Field the catchments layer's default style classifies, and its units.
@@ -140,7 +140,7 @@ def recharge_style(layer, field=RECHARGE_FIELD, scheme="quantiles", classes=5):
     finite = values[np.isfinite(values)]
     if not finite.size:
         return None
-    breaks = class_breaks(finite, scheme, classes)
+    breaks = map_classes(finite, scheme, classes)
     units = UNITS if field.endswith("_mm_per_year") else ""
     order = AREA_FIELD if AREA_FIELD in layer.columns else None
     qml = graduated_qml(field, breaks, bool((~np.isfinite(values)).any()), units, order)

@@ -1,6 +1,6 @@
 """Graduated (choropleth) styles for the outputs: recharge, recession index, baseflow index.
 
-The class limits come from the core's :func:`recharge_atlas.algorithms.maps.class_breaks` and
+The class limits come from the core's :func:`recharge_atlas.algorithms.maps.map_classes` and
 the colours from :func:`~recharge_atlas.algorithms.maps.class_colours`, the functions the
 command line's PNG map and the report use, so QGIS draws the same classes in the same colours.
 Features without a value are drawn in the maps' grey, in a last class labelled "no estimate".
@@ -138,7 +138,7 @@ def apply_graduated_style(
 
     Classes of the features that have a value by ``scheme`` (``quantiles``,
     ``equal_interval`` or ``natural_breaks``; fewer classes when there are fewer distinct
-    values), the limits and labels of the core's ``maps.class_breaks`` and ``class_labels``
+    values), the limits and labels of the core's ``maps.map_classes`` and ``class_labels``
     followed by the units (``120 – 180 mm/yr``; ``units`` defaults to
     :data:`FIELD_UNITS`), the core's ``maps.class_colours`` (those of the PNG maps), and
     larger polygons drawn first so nested catchments show on top of the basins that contain
@@ -164,11 +164,11 @@ def apply_graduated_style(
     values, nulls = _read_values(layer, field_name)
     if not values:
         return None
-    from ..algorithms.maps import class_breaks, class_labels
+    from ..algorithms.maps import class_labels, map_classes
 
     units = FIELD_UNITS.get(field_name, "") if units is None else units
     suffix = f" {units}" if units else ""
-    breaks = class_breaks(values, scheme, classes)
+    breaks = map_classes(values, scheme, classes)
     method = _QGIS_METHODS[scheme]()
     method.setLabelFormat(f"%1 – %2{suffix}")
     method.setLabelPrecision(0 if units else 2)

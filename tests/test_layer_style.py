@@ -13,9 +13,9 @@ from shapely.geometry import box
 from recharge_atlas.algorithms.layer_style import graduated_qml, recharge_style
 from recharge_atlas.algorithms.maps import (
     NO_ESTIMATE_COLOUR,
-    class_breaks,
     class_colours,
     class_labels,
+    map_classes,
 )
 
 
@@ -41,7 +41,7 @@ def test_style_holds_the_maps_classes_labels_and_colours():
     assert renderer.get("type") == "graduatedSymbol"
     # A NULL is not drawn by a graduated renderer: the plugin's stand-in number for it.
     assert renderer.get("attr") == 'coalesce("recharge_mm_per_year", -1e+300)'
-    breaks = class_breaks([v for v in values if np.isfinite(v)], "equal_interval", 3)
+    breaks = map_classes([v for v in values if np.isfinite(v)], "equal_interval", 3)
     ranges = renderer.findall("ranges/range")
     assert [(float(r.get("lower")), float(r.get("upper"))) for r in ranges[:-1]] == list(
         zip(breaks[:-1], breaks[1:])

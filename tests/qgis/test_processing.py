@@ -310,23 +310,25 @@ def test_style_is_a_graduated_map_of_recharge(processing_run):
     assert lows == sorted(lows)
     values = [_number(f["recharge_mm_per_year"]) for f in layer.getFeatures()]
     values = [v for v in values if not math.isnan(v)]
-    assert lows[0] == pytest.approx(min(values)), "catchments without an estimate are not class 0"
-    assert ranges[-1].upperValue() == pytest.approx(max(values))
+    # Limits are rounded outwards (maps.map_classes): the first starts at or just below the
+    # smallest value, never at a false 0 made of the catchments without an estimate.
+    assert 0.9 * min(values) <= lows[0] <= min(values), "no estimate is not class 0"
+    assert ranges[-1].upperValue() >= max(values)
     colours = [r.symbol().color().lightness() for r in ranges]
     assert colours[0] > colours[-1], "little recharge light, much recharge dark"
 
 
 @pytest.mark.parametrize("scheme", ["quantiles", "equal_interval", "natural_breaks"])
 def test_style_classes_are_the_cores(processing_run, scheme):
-    """The style's class limits and labels are the core's class_breaks and class_labels, the
+    """The style's class limits and labels are the core's map_classes and class_labels, the
     ones the command line's PNG map draws."""
-    from recharge_atlas.algorithms.maps import class_breaks, class_labels
+    from recharge_atlas.algorithms.maps import class_labels, map_classes
     from recharge_atlas.plugin.styling import apply_recharge_style
 
     layer = _layer(processing_run["path"], "catchments")
     renderer = apply_recharge_style(layer, scheme=scheme)
     values = [_number(f["recharge_mm_per_year"]) for f in layer.getFeatures()]
-    breaks = class_breaks(values, scheme, 5)
+    breaks = map_classes(values, scheme, 5)
     ranges = _value_ranges(renderer)
     assert [r.lowerValue() for r in ranges] == breaks[:-1].tolist()
     assert [r.upperValue() for r in ranges] == breaks[1:].tolist()
@@ -336,7 +338,7 @@ def test_style_classes_are_the_cores(processing_run, scheme):
 def test_style_is_applied_when_the_output_loads(algorithm, qgis_app):
     """The post-processor is attached to OUTPUT when it is to be loaded into a project, with
     the classes asked for (CLASSES, CLASS_COUNT): natural breaks give the core's limits."""
-    from recharge_atlas.algorithms.maps import class_breaks
+    from recharge_atlas.algorithms.maps import map_classes
     from recharge_atlas.plugin.styling import no_estimate_expression
 
     project = QgsProject()
@@ -362,7 +364,7 @@ def test_style_is_applied_when_the_output_loads(algorithm, qgis_app):
     assert isinstance(layer.renderer(), QgsGraduatedSymbolRenderer)
     assert layer.renderer().classAttribute() == no_estimate_expression("recharge_mm_per_year")
     values = [_number(f["recharge_mm_per_year"]) for f in layer.getFeatures()]
-    breaks = class_breaks(values, "natural_breaks", 3)
+    breaks = map_classes(values, "natural_breaks", 3)
     ranges = _value_ranges(layer.renderer())
     assert len(ranges) == 3
     assert [r.upperValue() for r in ranges] == breaks[1:].tolist()

@@ -153,9 +153,9 @@ def test_a_catchment_without_an_estimate_is_drawn_grey_and_labelled(qgis_app, tm
     colours and labels with units."""
     from recharge_atlas.algorithms.maps import (
         NO_ESTIMATE_COLOUR,
-        class_breaks,
         class_colours,
         class_labels,
+        map_classes,
     )
     from recharge_atlas.plugin.styling import NO_ESTIMATE_LABEL, apply_recharge_style
 
@@ -163,7 +163,7 @@ def test_a_catchment_without_an_estimate_is_drawn_grey_and_labelled(qgis_app, tm
     layer = _memory_catchments(values)
     renderer = apply_recharge_style(layer, classes=3, scheme="equal_interval")
     assert renderer is layer.renderer()
-    breaks = class_breaks([v for v in values if v is not None], "equal_interval", 3)
+    breaks = map_classes([v for v in values if v is not None], "equal_interval", 3)
     labels = [f"{t} mm/yr" for t in class_labels(breaks)]
     ranges = renderer.ranges()
     assert [r.label() for r in ranges] == [*labels, NO_ESTIMATE_LABEL]

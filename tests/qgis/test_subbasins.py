@@ -179,7 +179,7 @@ def test_donors_give_ungauged_subbasins_the_nearest_gauged_depth(
 
 
 def test_both_outputs_load_as_choropleths_with_the_classes_asked_for(donor_run):
-    from recharge_atlas.algorithms.maps import class_breaks
+    from recharge_atlas.algorithms.maps import map_classes
     from recharge_atlas.plugin.styling import NO_ESTIMATE_LABEL, no_estimate_expression
 
     context = donor_run["context"]
@@ -201,7 +201,7 @@ def test_both_outputs_load_as_choropleths_with_the_classes_asked_for(donor_run):
         values = [f["recharge_mm_per_year"] for f in layer.getFeatures()]
         nulls = sum(is_null(v) for v in values)
         values = [float(v) for v in values if not is_null(v)]
-        breaks = class_breaks(values, "equal_interval", 5)
+        breaks = map_classes(values, "equal_interval", 5)
         ranges = renderer.ranges()
         if nulls:  # subbasins without an estimate are drawn grey, in a last class
             assert renderer.classAttribute() == no_estimate_expression("recharge_mm_per_year")

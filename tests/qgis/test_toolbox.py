@@ -422,7 +422,7 @@ def _run_loaded(algorithm, parameters, output="OUTPUT"):
 def test_gauge_points_load_as_graduated_maps(qgis_app, one_gauge_discharge):
     """Without areas, event recharge is mapped in m³/yr; with the demo's six records the
     recession index in days, classes and colours from the core."""
-    from recharge_atlas.algorithms.maps import class_breaks, class_colours
+    from recharge_atlas.algorithms.maps import class_colours, map_classes
 
     layer, _context = _run_loaded(
         "recharge_atlas:eventrecharge",
@@ -451,7 +451,7 @@ def test_gauge_points_load_as_graduated_maps(qgis_app, one_gauge_discharge):
     renderer = layer.renderer()
     assert renderer.classAttribute() == _classified("recession_index_days", layer)
     values = [float(f["recession_index_days"]) for f in layer.getFeatures()]
-    breaks = class_breaks(values, "equal_interval", 3)
+    breaks = map_classes(values, "equal_interval", 3)
     ranges = _value_ranges(renderer)
     assert [r.upperValue() for r in ranges] == breaks[1:].tolist()
     assert [r.symbol().color().name() for r in ranges] == class_colours(3)
