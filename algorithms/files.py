@@ -778,7 +778,7 @@ def atomic_path(target):
         except InputError:
             raise
         except Exception as exc:
-            full = disk_full(exc, target)
+            full = disk_full(exc, target, written=[temp])
             if full is None:
                 raise
             raise full from None
@@ -793,24 +793,66 @@ _FULL_WORDS = ("no space left on device", "database or disk is full", "disk full
 _TOO_LARGE_WORDS = ("file too large", "file size limit exceeded")
 
 
-def disk_full(exc, target, doing="writing the output"):
+def disk_full(exc, target, doing="writing the output", written=()):
     """The :class:`InputError` for a full disk (or a file outgrowing the file-size limit)
     while ``doing`` (naming the file ``target``), or None when ``exc`` is something else.
 
     Writers say it in their own ways: an :class:`OSError` with ``ENOSPC`` / ``EDQUOT`` /
-    ``EFBIG``, or a library error (GDAL, SQLite) whose text says so.
+    ``EFBIG``, or a library error whose text says so. GDAL and SQLite often lose the reason
+    ("Failed to commit transaction", "disk I/O error"), so after a writer's error the file
+    system is asked: almost no free space left where the files go (``written``, ``target``),
+    or a file written while the process has a file-size limit (``ulimit -f``).
     """
-    number = getattr(exc, "errno", None)
-    text = str(exc).lower()
-    if number in (errno.ENOSPC, getattr(errno, "EDQUOT", errno.ENOSPC)) or any(
-        word in text for word in _FULL_WORDS
-    ):
-        reason = "no space left on device"
-    elif number == errno.EFBIG or any(word in text for word in _TOO_LARGE_WORDS):
-        reason = "the file grew larger than the system allows (file size limit)"
-    else:
+    reason = _disk_reason(exc, target, written)
+    if reason is None:
         return None
     return InputError(f"{reason} while {doing}", file=None if target is None else str(target))
+
+
+#: Below this many free bytes, a writer's unexplained failure is put down to a full disk.
+NEARLY_FULL_BYTES = 1 << 20
+#: Libraries whose errors may hide a full disk (GDAL's Python bindings and readers).
+_WRITER_MODULES = {"sqlite3", "pyogrio", "fiona", "osgeo"}
+
+
+def _disk_reason(exc, target, written):
+    number = getattr(exc, "errno", None)
+    text = str(exc).lower()
+    full = "no space left on device"
+    too_large = "a file reached the file size limit"
+    if number in (errno.ENOSPC, getattr(errno, "EDQUOT", errno.ENOSPC)):
+        return full
+    if number == errno.EFBIG or any(word in text for word in _TOO_LARGE_WORDS):
+        return too_large
+    if any(word in text for word in _FULL_WORDS):
+        return full
+    module = type(exc).__module__.split(".")[0]
+    if isinstance(exc, OSError) or module not in _WRITER_MODULES:
+        return None
+    paths = [Path(p) for p in written] + ([Path(target)] if target is not None else [])
+    for path in paths:
+        folder = path if path.is_dir() else (path.parent if str(path.parent) else Path("."))
+        try:
+            space = os.statvfs(folder)
+        except (OSError, AttributeError):
+            continue
+        if space.f_bavail * space.f_frsize < NEARLY_FULL_BYTES:
+            return full
+    limit = _file_size_limit()
+    if limit is not None:  # a writer failed under a file-size limit: the likeliest cause
+        return f"a file reached this process's file size limit (ulimit -f: {limit:,} bytes)"
+    return None
+
+
+def _file_size_limit():
+    """The process's file-size limit in bytes (``ulimit -f``), or None when there is none."""
+    try:
+        import resource
+
+        soft, _hard = resource.getrlimit(resource.RLIMIT_FSIZE)
+    except (ImportError, OSError, ValueError, AttributeError):
+        return None
+    return None if soft == resource.RLIM_INFINITY else int(soft)
 
 
 def _not_written(exc, target):
@@ -1159,7 +1201,9 @@ class TableSpill:
             _insert_rows(self.db, name, frame, self.kinds[name])
             self.db.commit()
         except (sqlite3.Error, OSError) as exc:
-            full = disk_full(exc, self.folder, "keeping the result tables on disk")
+            full = disk_full(
+                exc, self.folder, "keeping the result tables on disk", written=[self.path]
+            )
             if full is not None:
                 raise full from None
             raise InputError(
