@@ -240,3 +240,21 @@ def test_an_earlier_geopackage_or_an_empty_file_is_replaced(case, capsys, earlie
     case.run(capsys)
     layer = case.result()
     assert "area_km2" in layer.columns
+
+
+@pytest.mark.parametrize(
+    "words",
+    [
+        "no space left on device while writing the output",
+        "file size limit",
+        "the output file exists and is read-only",
+        "is not a GeoPackage, so it is not replaced",
+        "file name is too long for the file system",
+        "`143`: stopped by SIGTERM",
+        "the next run removes what it left",
+    ],
+)
+def test_readme_says_what_to_do(words):
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    section = readme.split("## When things go wrong", 1)[1].split("\n## ", 1)[0]
+    assert words in section.replace("\n", " ")
