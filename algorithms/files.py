@@ -827,7 +827,8 @@ def _disk_reason(exc, target, written):
     if any(word in text for word in _FULL_WORDS):
         return full
     module = type(exc).__module__.split(".")[0]
-    if isinstance(exc, OSError) or module not in _WRITER_MODULES:
+    from_writer = module in _WRITER_MODULES or text.startswith("gdal error")  # fiona: RuntimeError
+    if isinstance(exc, OSError) or not from_writer:
         return None
     paths = [Path(p) for p in written] + ([Path(target)] if target is not None else [])
     for path in paths:
