@@ -10,6 +10,7 @@ from __future__ import annotations
 import collections
 import datetime as _dt
 import errno
+import functools
 import itertools
 import os
 import re
@@ -596,6 +597,7 @@ _TEMP_FOLDER = re.compile(r"^recharge-atlas-(tables|groups)-~ra-[0-9a-f]{8}-[0-9
 _TEMP_FOLDER_FILE = re.compile(r"^(tables\.sqlite(-journal|-wal|-shm)?|[0-9]+\.csv)$")
 
 
+@functools.lru_cache(maxsize=1)
 def _where():
     """Eight hex digits for this machine, boot and process-id namespace (None where the boot
     cannot be told: then no leftover is ever judged dead)."""

@@ -3,7 +3,7 @@
 Usage::
 
     python benchmarks/kill_run.py [--gauges 300] [--years 30] [--workers 2]
-                                  [--gauges-per-group 100] [--folder DIR]
+                                  [--gauges-per-group 100] [--folder DIR] [--signal KILL|TERM]
 
 It writes a synthetic network (``sample_layers.generate.make_network``, invented gauges) as a
 Parquet discharge table, then runs the command line twice and kills it with SIGKILL, the way
@@ -17,7 +17,8 @@ After each kill it prints the files left (output folder and temporary folder, wi
 how many of the run's worker processes are still alive a few seconds later. Then it runs the
 same command to the end and prints what that run removed, what is left besides the output,
 and whether any process of the killed runs is still alive. Surviving workers are killed at the
-end so the machine is left clean. Prints figures; asserts nothing (``tests/test_stopping.py``
+end so the machine is left clean. ``--signal TERM`` sends SIGTERM instead, to see the run's
+own clean-up. Prints figures; asserts nothing (``tests/test_stopping.py``
 checks the same on a small region).
 
 The runs use their own temporary folder (``TMPDIR`` under the work folder) so that other
@@ -118,8 +119,9 @@ def command(paths, out, workers, per_group):
     ]  # fmt: skip
 
 
-def kill_at(stage, argv, env, outdir, temp):
-    """Start a run, SIGKILL it at ``stage``; returns the ids of the processes it had started."""
+def kill_at(stage, argv, env, outdir, temp, signum=signal.SIGKILL):
+    """Start a run, send it ``signum`` at ``stage``; returns the process and the ids of the
+    processes it had started."""
     process = subprocess.Popen(argv, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
     started = time.monotonic()
     workers = set()
@@ -140,10 +142,10 @@ def kill_at(stage, argv, env, outdir, temp):
             break
         time.sleep(0.05)
     memory = {pid: rss_mb(pid) for pid in workers if alive(pid)}
-    process.send_signal(signal.SIGKILL)
+    process.send_signal(signum)
     process.wait()
     print(
-        f"\nkilled at {stage!r} after {time.monotonic() - started:.1f} s; its workers: "
+        f"\n{signal.Signals(signum).name} at {stage!r} (exit {process.returncode}) after {time.monotonic() - started:.1f} s; its workers: "
         + (", ".join(f"{pid} ({mb:.0f} MB)" for pid, mb in memory.items()) or "none running")
     )
     return process, workers
@@ -162,6 +164,12 @@ def main(argv=None):
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--gauges-per-group", type=int, default=100)
     parser.add_argument("--folder", help="work folder (default: a new temporary one, removed)")
+    parser.add_argument(
+        "--signal",
+        default="KILL",
+        choices=["KILL", "TERM"],
+        help="how the runs are stopped (default KILL; TERM shows the run's own clean-up)",
+    )
     args = parser.parse_args(argv)
     if not sys.platform.startswith("linux"):
         print("reads the process table in /proc: Linux only")
@@ -187,11 +195,12 @@ def run(folder, args):
     argv = command(paths, outdir / "recharge.gpkg", args.workers, args.gauges_per_group)
     every = set()
     for stage in ("compute", "write"):
-        process, workers = kill_at(stage, argv, env, outdir, temp)
+        signum = getattr(signal, f"SIG{args.signal}")
+        process, workers = kill_at(stage, argv, env, outdir, temp, signum)
         every.update(workers)
         alive_after = survivors(workers)
         print(
-            f"workers alive 5 s after the kill: {len(alive_after)} of {len(workers)}"
+            f"workers alive 5 s after the signal: {len(alive_after)} of {len(workers)}"
             + (
                 f" ({', '.join(f'{p}: {rss_mb(p):.0f} MB' for p in alive_after)})"
                 if alive_after
