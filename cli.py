@@ -3,7 +3,8 @@
 A thin shell over :func:`recharge_atlas.algorithms.pipeline.run_atlas`, the same pipeline the
 QGIS plugin uses. Exit codes: 0 on success (even when some gauges are flagged), 2 on bad input
 or usage, with a short message on stderr and no traceback; 1 on an internal error, with a
-one-line message (``--debug`` prints the full trace); 130 when interrupted. Whatever the exit
+one-line message (``--debug`` prints the full trace); 130 when interrupted, 143 when stopped
+by SIGTERM (129 by SIGHUP), cleaned up the same way. Whatever the exit
 code, either every output is written completely or none is touched.
 """
 
@@ -484,6 +485,7 @@ def run_files(
             )
     for target, kind in outputs:  # a bad output path fails now, not after the work
         files.check_output(target, kind)
+    _remove_leftovers(files, [target for target, _ in outputs], reporter)
     from recharge_atlas.algorithms.maps import class_breaks
 
     class_breaks([1.0, 2.0], scheme, classes)  # a bad scheme or class count fails before the run
@@ -576,6 +578,18 @@ def run_files(
         if spill is not None:
             spill.close()
     return result
+
+
+def _remove_leftovers(files, targets, reporter):
+    """Remove what runs killed outright (SIGKILL, out of memory) left beside these outputs and
+    in the temporary folder: only files provably made by a process of ours that is gone."""
+    folders = [Path(t).parent if str(Path(t).parent) else Path(".") for t in targets]
+    count, size = files.remove_dead_leftovers(folders)
+    if count and reporter is not None:
+        reporter.info(
+            f"removed {count} temporary file{'s' if count != 1 else ''} "
+            f"({size / 1e6:,.1f} MB) left by an earlier run that was killed"
+        )
 
 
 def _require_fields(gauge_layer, basin_layer, what, settings, sources, subbasins):
@@ -694,8 +708,7 @@ def _demo(args, parser=None):
     from recharge_atlas.sample_layers import generate
 
     folder = Path(generate.HERE)
-    out_dir = Path(args.out)
-    out_dir.mkdir(parents=True, exist_ok=True)
+    out_dir = _demo_folder(Path(args.out))
     gpkg = out_dir / "recharge.gpkg"
     png = out_dir / "recharge_map.png"
     years_png = out_dir / "recharge_by_year.png"
@@ -735,6 +748,68 @@ def _demo(args, parser=None):
     return result
 
 
+def _demo_folder(out_dir):
+    """The demo's output folder, made when missing; a clear error when it cannot be."""
+    from recharge_atlas.algorithms.errors import InputError
+
+    if out_dir.exists() and not out_dir.is_dir():
+        raise InputError("the demo output path is a file, not a folder", file=str(out_dir))
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(
+            f"the demo output folder could not be made: {exc.strerror or exc}", file=str(out_dir)
+        ) from None
+    return out_dir
+
+
+class Stopped(KeyboardInterrupt):
+    """The process was asked to stop by a signal (SIGTERM, SIGHUP): it unwinds exactly as
+    Ctrl-C does, so every temporary file and worker is cleaned up on the way out."""
+
+    def __init__(self, signum):
+        super().__init__(signum)
+        self.signum = signum
+
+
+#: Signals that stop a run like Ctrl-C (the default action would end the process on the
+#: spot and leave its temporary files behind).
+STOP_SIGNALS = ("SIGTERM", "SIGHUP")
+
+
+class _StopOnSignals:
+    """While active, SIGTERM and SIGHUP raise :class:`Stopped` in the main thread (once: a
+    second signal during the clean-up is ignored, so the clean-up completes)."""
+
+    def __init__(self):
+        self.previous = {}
+        self.raised = False
+
+    def _handler(self, signum, frame):
+        if self.raised:
+            return
+        self.raised = True
+        raise Stopped(signum)
+
+    def __enter__(self):
+        import signal
+        import threading
+
+        if threading.current_thread() is threading.main_thread():
+            for name in STOP_SIGNALS:
+                number = getattr(signal, name, None)
+                if number is not None:
+                    self.previous[number] = signal.signal(number, self._handler)
+        return self
+
+    def __exit__(self, *exc):
+        import signal
+
+        for number, handler in self.previous.items():
+            signal.signal(number, handler)
+        return False
+
+
 def main(argv=None):
     """Entry point of the ``recharge-atlas`` command; returns the exit code."""
     parser = _parser()
@@ -743,7 +818,7 @@ def main(argv=None):
     from recharge_atlas.algorithms.errors import InputError, describe
 
     try:
-        with warnings.catch_warnings():
+        with warnings.catch_warnings(), _StopOnSignals():
             if not debug:  # library warnings are noise to users; our cautions are printed
                 warnings.simplefilter("ignore")
             return _command(args, parser)
@@ -752,6 +827,12 @@ def main(argv=None):
         if debug:
             _print_trace()
         return EXIT_BAD_INPUT
+    except Stopped as exc:
+        import signal
+
+        name = signal.Signals(exc.signum).name
+        print(f"recharge-atlas: stopped ({name}); no output written", file=sys.stderr)
+        return 128 + int(exc.signum)
     except KeyboardInterrupt:
         print("recharge-atlas: interrupted; no output written", file=sys.stderr)
         return 130

@@ -66,7 +66,11 @@ def forks():
 
 
 def process_pool(workers):
-    """A pool of ``workers`` processes (forked on Linux; spawned elsewhere, with a real Python)."""
+    """A pool of ``workers`` processes (forked on Linux; spawned elsewhere, with a real Python).
+
+    Each worker dies with the process that started it (:func:`_worker_start`): a parent
+    killed outright leaves no worker behind.
+    """
     import multiprocessing
     from concurrent.futures import ProcessPoolExecutor
 
@@ -75,7 +79,78 @@ def process_pool(workers):
     else:
         context = multiprocessing.get_context("spawn")
         context.set_executable(_python_executable())
-    return ProcessPoolExecutor(max_workers=int(workers), mp_context=context)
+    return ProcessPoolExecutor(
+        max_workers=int(workers),
+        mp_context=context,
+        initializer=_worker_start,
+        initargs=(os.getpid(),),
+    )
+
+
+#: Seconds between a worker's looks at whether its parent is still there (the fallback).
+PARENT_CHECK_SECONDS = 1.0
+#: prctl option that sends a signal to a process when its parent ends (linux/prctl.h).
+_PR_SET_PDEATHSIG = 1
+
+
+def _worker_start(parent_pid):
+    """Run first in every worker: die with the parent, and leave stopping to the parent.
+
+    * Linux: the kernel sends SIGKILL when the parent ends (``prctl(PR_SET_PDEATHSIG)``,
+      through ctypes from the C library already loaded).
+    * Everywhere: a daemon thread looks every :data:`PARENT_CHECK_SECONDS` whether the parent
+      is still there (on POSIX a worker whose parent ended is handed to another process, so
+      its parent id changes; on Windows it waits on the parent's handle), and ends the worker.
+    * SIGINT (Ctrl-C reaches the whole process group) and SIGTERM are the parent's to handle:
+      it stops its workers itself, and a forked worker must not inherit the parent's handler
+      that turns SIGTERM into an exception.
+    """
+    import signal
+    import threading
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    if hasattr(signal, "SIGTERM"):
+        signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    if sys.platform.startswith("linux"):
+        try:
+            import ctypes
+
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(_PR_SET_PDEATHSIG, int(signal.SIGKILL), 0, 0, 0)
+        except (OSError, AttributeError):
+            pass  # the watcher below still ends the worker
+    if os.name == "posix" and os.getppid() != parent_pid:
+        os._exit(1)  # the parent ended before the kernel was told
+    watcher = threading.Thread(
+        target=_watch_parent, args=(parent_pid,), name="parent-watcher", daemon=True
+    )
+    watcher.start()
+
+
+def _watch_parent(parent_pid):
+    """End this worker as soon as its parent is gone (the portable fallback)."""
+    import time
+
+    if os.name != "posix":
+        import multiprocessing
+
+        parent = multiprocessing.parent_process()
+        if parent is None:
+            return
+        parent.join()  # returns when the parent's handle is signalled: it ended
+        os._exit(1)
+    while os.getppid() == parent_pid:
+        time.sleep(PARENT_CHECK_SECONDS)
+    os._exit(1)
+
+
+def _stop_workers(pool):
+    """End a pool's workers now (the run stopped: their groups are no longer wanted)."""
+    for process in list((getattr(pool, "_processes", None) or {}).values()):
+        try:
+            process.terminate()
+        except Exception:
+            pass
 
 
 def dask_client(address):
@@ -155,6 +230,9 @@ def map_groups(
             yield future.result()
             if on_done:
                 on_done(i)
+    except BaseException:  # stopped (Ctrl-C, SIGTERM, cancel) or failed: no waiting for groups
+        _stop_workers(pool)
+        raise
     finally:
         pool.shutdown(wait=True, cancel_futures=True)
         _SHARED = None
