@@ -1231,6 +1231,16 @@ def record_notes(record: GaugeRecord) -> list:
             f"{counted(unreadable, 'row')} with a date that could not be read left out"
             + (f" (e.g. {quoted(example)})" if example else "")
         )
+    for key, words in (
+        ("stray_dates", "dated more than a century from the rest of the record"),
+        ("future_dates", "dated in the future"),
+    ):
+        if counts.get(key):
+            examples = counts.get(key.replace("dates", "date_examples")) or []
+            more = " …" if counts[key] > len(examples) else ""
+            notes.append(
+                f"{counted(counts[key], 'row')} {words} ({', '.join(examples)}{more}): a typo?"
+            )
     for value, count in counts.get("missing_value_codes", []):
         if count >= 2:
             notes.append(f"{value:g} used as a missing-value code on {count:,} rows (left out)")
@@ -1638,8 +1648,15 @@ def _compute_in_groups(
     results: dict[str, GaugeResult] = {}
     failed = 0
     tally = _Tally()
+    grouped = not isinstance(discharge, pd.DataFrame)
     for chunk in chunks:
-        records = _records(chunk, settings)
+        try:
+            records = _records(chunk, settings)
+        except InputError as exc:
+            if grouped and exc.row is not None:  # a row of the group, not of the file
+                exc.row = None
+                exc.args = (str(exc),)
+            raise
         tally.add(len(chunk), records, wanted)
         del chunk  # the records hold the group's flows now; its table is not needed
         here = [gid for gid in gauge_ids if gid in records and gid not in results]

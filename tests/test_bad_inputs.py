@@ -779,3 +779,43 @@ def test_parquet_in_gauge_groups_no_match(case, capsys):
     frame.to_parquet(table)
     case.run(capsys, "--gauges-per-group", "2", discharge=table)
     case.error("no gauge id of the discharge table matches the gauges layer", "'Q-AB1'")
+
+
+# --------------------------------------------------------------------------- issue 14 (inputs)
+
+
+@pytest.mark.parametrize("date", ["1430-03-15", "15 Mar 1430", "2300-01-01 06:00", "14300315"])
+def test_a_date_outside_the_years_a_record_holds_is_refused_with_its_row(case, capsys, date):
+    """Before, 1430-03-15 wrapped around by about 584 years and landed inside the record as a
+    flood (exit 0, quality ok): pandas 1.5 holds dates in nanoseconds only."""
+    frame = case.discharge()
+    row = _rows(frame)[100]
+    frame.loc[row, ["date", "discharge"]] = [date, "800"]
+    case.write_discharge(frame)
+    case.run(capsys)
+    case.error(f"the date '{date}' lies outside the years 1678 to 2261", f"row {row + 1}",
+               f"gauge {SPOILT}", "discharge.csv")  # fmt: skip
+
+
+def test_a_date_out_of_range_in_gauge_groups_names_no_row_of_a_group(case, capsys):
+    frame = case.discharge()
+    frame.loc[_rows(frame, "CD2")[5], "date"] = "1430-03-15"
+    case.write_discharge(frame)
+    case.run(capsys, "--gauges-per-group", "1")
+    text = case.error("the date '1430-03-15' lies outside", "gauge CD2")
+    assert "row" not in text.split("lies outside")[1].split("(file")[1], text
+
+
+def test_dates_far_from_the_rest_or_in_the_future_are_named_in_a_caution(case, capsys):
+    frame = case.discharge()
+    rows = _rows(frame)
+    frame.loc[rows[[3, 4]], "date"] = ["1780-06-01", "2190-01-02"]
+    case.write_discharge(frame)
+    case.run(capsys)
+    layer = case.result()
+    quality = layer.loc[SPOILT, "quality"]
+    assert (
+        "2 rows dated more than a century from the rest of the record (1780-06-01, "
+        "2190-01-02): a typo?" in quality
+    ), quality
+    assert "1 row dated in the future (2190-01-02)" in quality, quality
