@@ -445,6 +445,7 @@ def tidy_discharge(
     flag_field: str | None = None,
     flag_values=None,
     min_day_coverage: float = MIN_DAY_COVERAGE,
+    left_out: dict | None = None,
 ) -> dict[str, GaugeRecord]:
     """Split a long discharge table into one daily series per gauge, in m³/s.
 
@@ -464,6 +465,9 @@ def tidy_discharge(
     min_day_coverage : float
         For sub-daily records, the share of a day's expected values needed for a daily mean
         (e.g. 0.75: at least 72 of 96 quarter-hour values); other days become missing.
+    left_out : dict, optional
+        Receives the rows that belong to no gauge: ``rows_without_id`` (an empty or blank
+        gauge id; such rows are left out) and ``row_without_id`` (the first, counted from 1).
 
     Returns
     -------
@@ -550,6 +554,10 @@ def tidy_discharge(
     # Rows with a gauge id, and of them those with a date. When every row qualifies (the usual
     # table) they are taken as slices: views, no copies of millions of values.
     named = id_codes >= 0
+    if left_out is not None and not named.all():
+        unnamed = np.flatnonzero(~named)
+        left_out["rows_without_id"] = left_out.get("rows_without_id", 0) + int(unnamed.size)
+        left_out.setdefault("row_without_id", int(unnamed[0]) + 1)
     positions = _rows_where(named)
     gauge_of_row, names = id_codes[positions], id_names
     n_gauges = len(names)

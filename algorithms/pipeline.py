@@ -17,7 +17,14 @@ import pandas as pd
 from . import annual as annual_mod
 from .baseflow import BFIMAX_TYPICAL, METHODS, baseflow_index, separate_baseflow
 from .basins import LINK_TOLERANCE_M, geodesic_area_km2, link_by_id, link_spatially, repair_polygons
-from .discharge import MIN_DAY_COVERAGE, GaugeRecord, gauge_id_text, require_columns, tidy_discharge
+from .discharge import (
+    MIN_DAY_COVERAGE,
+    GaugeRecord,
+    gauge_id_codes,
+    gauge_id_text,
+    require_columns,
+    tidy_discharge,
+)
 from .displacement import (
     EVENT_COLUMNS,
     CleanDays,
@@ -1333,19 +1340,36 @@ def _reported_area_notes(gauges, settings, areas_by_gauge):
     return notes
 
 
-def _gauge_ids(gauges, settings):
+def _gauge_ids(gauges, settings, reporter=None):
+    """The gauges layer's ids, in order. A repeated id is an error (its flows could go to the
+    wrong catchment); features without an id are left out and counted in a caution."""
     require_columns(gauges, [settings.gauge_id_field], "gauges layer")
-    ids = [
-        g
-        for g in dict.fromkeys(gauge_id_text(gauges[settings.gauge_id_field].to_numpy()))
-        if g is not None
-    ]
+    codes, ids = gauge_id_codes(gauges[settings.gauge_id_field])
+    blank = np.flatnonzero(codes < 0)
+    if blank.size and ids and reporter is not None:
+        reporter.warning(
+            f"gauges layer: {counted(blank.size, 'feature')} without a gauge id in field "
+            f"{quoted(settings.gauge_id_field)} left out ({'row' if blank.size == 1 else 'rows'} "
+            f"{', '.join(map(str, blank[:5] + 1))}{' …' if blank.size > 5 else ''})"
+        )
+    named = codes[codes >= 0]
+    repeated = np.flatnonzero(np.bincount(named, minlength=len(ids)) > 1) if named.size else []
+    if len(repeated):
+        rows = np.flatnonzero(codes == repeated[0]) + 1
+        raise InputError(
+            f"the gauges layer has gauge id {quoted(ids[repeated[0]])} on "
+            f"{counted(len(rows), 'feature')} (rows {', '.join(map(str, rows[:5]))}"
+            f"{' …' if len(rows) > 5 else ''}): each gauge needs an id of its own, or its flows "
+            "could go to the wrong catchment"
+            + (f" ({counted(len(repeated), 'id')} repeated)" if len(repeated) > 1 else ""),
+            field=settings.gauge_id_field,
+        )
     if not ids:
         raise InputError("the gauges layer holds no gauge ids", field=settings.gauge_id_field)
     return ids
 
 
-def _records(discharge, settings):
+def _records(discharge, settings, left_out=None):
     return tidy_discharge(
         discharge,
         gauge_field=settings.discharge_gauge_field,
@@ -1355,6 +1379,7 @@ def _records(discharge, settings):
         flag_field=settings.flag_field,
         flag_values=settings.flag_values,
         min_day_coverage=settings.min_day_coverage,
+        left_out=left_out,
     )
 
 
@@ -1649,9 +1674,10 @@ def _compute_in_groups(
     failed = 0
     tally = _Tally()
     grouped = not isinstance(discharge, pd.DataFrame)
+    tally.grouped = grouped
     for chunk in chunks:
         try:
-            records = _records(chunk, settings)
+            records = _records(chunk, settings, tally.left_out)
         except InputError as exc:
             if grouped and exc.row is not None:  # a row of the group, not of the file
                 exc.row = None
@@ -1735,6 +1761,8 @@ class _Tally:
         self.unmatched = []
         self.matched = 0
         self.order = None
+        self.left_out = {}
+        self.grouped = False
 
     def add(self, rows, records, wanted):
         self.rows += int(rows)
@@ -1749,6 +1777,12 @@ class _Tally:
 
     def report(self, reporter):
         parts = [f"{self.totals[name]:,} {text}" for name, text in self.COUNTS if self.totals[name]]
+        if self.left_out.get("rows_without_id"):
+            reporter.warning(
+                f"discharge table: {counted(self.left_out['rows_without_id'], 'row')} without "
+                "a gauge id left out"
+                + ("" if self.grouped else f" (the first: row {self.left_out['row_without_id']})")
+            )
         if self.order:
             parts.append(f"dates with the year last read {self.order}")
         if parts:
@@ -1896,7 +1930,7 @@ def run_atlas(
     """
     settings = (settings or Settings()).resolved()
     reporter = reporter or Reporter()
-    gauge_ids = _gauge_ids(gauges, settings)
+    gauge_ids = _gauge_ids(gauges, settings, reporter)
     given_k = _given_recession_index(gauges, settings)
     basins = _link_basins(gauges, gauge_ids, catchments, settings, reporter)
     links, nesting = basins.links, basins.nesting
@@ -1992,7 +2026,7 @@ def run_gauges(
     """
     settings = (settings or Settings()).resolved()
     reporter = reporter or Reporter()
-    gauge_ids = _gauge_ids(gauges, settings)
+    gauge_ids = _gauge_ids(gauges, settings, reporter)
     given_k = _given_recession_index(gauges, settings)
     area_of = {}
     if area_field:
@@ -2044,7 +2078,7 @@ def check_links(
     """
     settings = (settings or Settings()).resolved()
     reporter = reporter or Reporter()
-    gauge_ids = _gauge_ids(gauges, settings)
+    gauge_ids = _gauge_ids(gauges, settings, reporter)
     basins = _link_basins(gauges, gauge_ids, catchments, settings, reporter, report_progress=True)
     area_of = basins.area_of()
     placeholders = {gid: GaugeResult(gid, area) for gid, area in area_of.items()}

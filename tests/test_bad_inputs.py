@@ -819,3 +819,33 @@ def test_dates_far_from_the_rest_or_in_the_future_are_named_in_a_caution(case, c
         "2190-01-02): a typo?" in quality
     ), quality
     assert "1 row dated in the future (2190-01-02)" in quality, quality
+
+
+def test_one_gauge_id_at_two_points_is_an_error_naming_it(case, capsys):
+    """Before, one of the two was linked silently and its flows went to the other's catchment."""
+    layer = case.layer("gauges")
+    layer.loc[layer["gauge_id"] == "CD2", "gauge_id"] = SPOILT
+    case.write_layer("gauges", layer)
+    case.run(capsys)
+    case.error("the gauges layer has gauge id 'AB1' on 2 features (rows 1, 2)",
+               "each gauge needs an id of its own", "field 'gauge_id'", "gauges.gpkg")  # fmt: skip
+
+
+def test_features_and_rows_without_a_gauge_id_are_counted(case, capsys):
+    layer = case.layer("gauges")
+    layer = pd.concat([layer, layer.iloc[[0]].assign(gauge_id=None)], ignore_index=True)
+    case.write_layer("gauges", layer)
+    frame = case.discharge()
+    first = _rows(frame, "CD2")[0]
+    frame.loc[_rows(frame, "CD2")[[0, 1, 2]], "gauge_id"] = ["", " ", None]
+    case.write_discharge(frame)
+    case.run(capsys)
+    case.result()
+    assert (
+        "caution: gauges layer: 1 feature without a gauge id in field 'gauge_id' left out "
+        "(row 4)" in case.stderr
+    ), case.stderr
+    assert (
+        f"caution: discharge table: 3 rows without a gauge id left out (the first: row "
+        f"{first + 1})" in case.stderr
+    ), case.stderr
