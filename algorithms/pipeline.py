@@ -201,16 +201,20 @@ class Settings:
             raise InputError(
                 f"water year start was {self.water_year_start!r}; expected a month number 1 to 12"
             )
-        for name in ("recession_index_days", "runoff_end_lag_days"):
-            value = getattr(self, name)
-            if value is not None and not _positive(value):
-                raise InputError(
-                    f"{name.replace('_', ' ')} was {value!r}; expected a positive number of days"
-                )
-        min_days = _whole_number(self.min_segment_days)
-        if min_days is None or min_days < 2:
+        if self.recession_index_days is not None:
+            check_recession_index(self.recession_index_days)
+        lag = self.runoff_end_lag_days
+        if lag is not None and not (_positive(lag) and float(lag) <= MAX_RUNOFF_END_LAG_DAYS):
             raise InputError(
-                f"minimum segment length was {self.min_segment_days!r}; expected a whole number of days, 2 or more"
+                f"runoff end lag was {lag!r}; expected a number of days above 0 and at most "
+                f"{MAX_RUNOFF_END_LAG_DAYS:g} (runoff that lasts longer leaves no recession)"
+            )
+        min_days = _whole_number(self.min_segment_days)
+        if min_days is None or not 2 <= min_days <= MAX_SEGMENT_DAYS:
+            raise InputError(
+                f"minimum segment length was {self.min_segment_days!r}; expected a whole "
+                f"number of days from 2 to {MAX_SEGMENT_DAYS} (a fit needs two days; no "
+                "recession lasts a year without a rise)"
             )
         if self.baseflow_method not in METHODS:
             raise InputError(
@@ -288,6 +292,35 @@ class Settings:
         ):
             return "id"
         return "spatial"
+
+
+#: The recession indexes (days per log cycle) a run accepts when given: a tenfold fall within
+#: a day cannot be seen in daily means (and Tc = 0.2144 K would fall inside the peak's day), and
+#: one slower than ten years cannot be seen in any record (our own bounds; measured indexes of
+#: perennial streams lie well inside, commonly tens to a few hundred days).
+RECESSION_INDEX_RANGE = (1.0, 3650.0)
+#: The longest runoff-end lag (days) and shortest-segment setting a run accepts (our own bounds).
+MAX_RUNOFF_END_LAG_DAYS = 365.0
+MAX_SEGMENT_DAYS = 365
+
+
+def check_recession_index(value, **where) -> float:
+    """``value`` as a float when it is a recession index a run accepts
+    (:data:`RECESSION_INDEX_RANGE`); else :class:`InputError` saying the range and why,
+    located by ``where`` (``field=``, ``gauge=``)."""
+    low, high = RECESSION_INDEX_RANGE
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        number = math.nan
+    if not low <= number <= high:
+        shown = f"{number:g}" if math.isfinite(number) else quoted(value)
+        raise InputError(
+            f"recession index {shown} is outside {low:g} to {high:,.0f} days per log cycle: "
+            "a faster fall cannot be seen in daily means, a slower one in any record",
+            **where,
+        )
+    return number
 
 
 def _whole_number(value):
@@ -1298,13 +1331,7 @@ def _given_recession_index(gauges, settings):
     for gid, value in zip(ids, values):
         if gid is None or not np.isfinite(value):
             continue
-        if value <= 0:
-            raise InputError(
-                f"recession index {value!r} is not a positive number of days",
-                field=settings.recession_index_field,
-                gauge=gid,
-            )
-        given[gid] = float(value)
+        given[gid] = check_recession_index(value, field=settings.recession_index_field, gauge=gid)
     return given
 
 

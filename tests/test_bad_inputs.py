@@ -849,3 +849,27 @@ def test_features_and_rows_without_a_gauge_id_are_counted(case, capsys):
         f"caution: discharge table: 3 rows without a gauge id left out (the first: row "
         f"{first + 1})" in case.stderr
     ), case.stderr
+
+
+@pytest.mark.parametrize(
+    ("option", "value", "words"),
+    [
+        ("--recession-index", "0.001", "recession index 0.001 is outside 1 to 3,650 days per log cycle"),
+        ("--recession-index", "1e9", "recession index 1e+09 is outside 1 to 3,650 days"),
+        ("--recession-index", "nan", "recession index 'nan' is outside"),
+        ("--runoff-end-lag", "1000", "runoff end lag was 1000.0; expected a number of days above 0"),
+        ("--min-segment-days", "400", "expected a whole number of days from 2 to 365"),
+    ],
+)  # fmt: skip
+def test_numeric_settings_out_of_range_are_refused(case, capsys, option, value, words):
+    """Before, --recession-index 0.001 gave exit 0 with every gauge an internal error."""
+    case.run(capsys, option, value)
+    case.error(words)
+
+
+def test_a_recession_index_field_value_out_of_range_names_the_gauge(case, capsys):
+    layer = case.layer("gauges")
+    layer["k_days"] = [40.0, 0.001, None]
+    case.write_layer("gauges", layer)
+    case.run(capsys, "--recession-index-field", "k_days")
+    case.error("recession index 0.001 is outside 1 to 3,650 days", "field 'k_days'", "gauge CD2")
