@@ -542,7 +542,7 @@ def _located(exc, sources, settings):
     for what, path in sources.items():
         if exc.message.startswith((f"the {what} ", f"no gauge id of the {what} ")):
             return exc.located(file=str(path))
-    about_discharge = ("no value of the", "the date", "no gauge has a usable")
+    about_discharge = ("no value of the", "the date", "the discharge field", "no gauge has a usable")
     if exc.message.startswith(about_discharge):
         return exc.located(file=str(sources["discharge table"]))
     return exc

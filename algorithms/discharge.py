@@ -543,6 +543,7 @@ def tidy_discharge(
     non_numeric = np.isnan(numeric) & ~was_missing
     if len(table) and not (has_stamp & ~np.isnan(numeric)).any() and non_numeric.any():
         raise InputError(_no_numbers_message(raw, non_numeric), field=value_field)
+    _refuse_decimal_commas(raw, non_numeric, int(np.count_nonzero(~was_missing)), value_field)
     code = np.isin(numeric, MISSING_VALUE_CODES)
     values = to_cubic_metres_per_second(numeric, units)
     with np.errstate(invalid="ignore"):
@@ -737,10 +738,36 @@ def _no_dates_message(column, dates):
     )
 
 
+#: Values written with a decimal comma (``1,5``): when they are this share of the values given
+#: or more, the table is refused rather than read with them left out (our own rule: one stray
+#: value is counted like any text, a table written so is a fault of the whole table).
+DECIMAL_COMMA_SHARE = 0.01
+_DECIMAL_COMMA = r"\s*[-+]?\d+,\d+\s*"
+
+
+def _refuse_decimal_commas(column, non_numeric, given, field):
+    """:class:`InputError` when many values are numbers with a decimal comma. A table saved
+    with ``;`` between fields and decimal commas has whole numbers read and the rest left
+    out: every gauge would lose most of its days without a clear word."""
+    rows = np.flatnonzero(non_numeric)
+    if not rows.size or rows.size < DECIMAL_COMMA_SHARE * max(given, 1):
+        return
+    texts = pd.Series(column.to_numpy()[rows], dtype=object).astype(str)
+    comma = texts.str.fullmatch(_DECIMAL_COMMA).to_numpy(dtype=bool)
+    if np.count_nonzero(comma) >= DECIMAL_COMMA_SHARE * max(given, 1):
+        first = int(np.argmax(comma))
+        raise InputError(
+            f"the discharge field has {counted(int(comma.sum()), 'value')} with a decimal "
+            f"comma (row {rows[first] + 1}: {quoted(texts.iloc[first])}); decimal commas are "
+            "not read: write 1.5, not 1,5",
+            field=field,
+        )
+
+
 def _no_numbers_message(column, non_numeric):
     row, value = _first_filled(column, non_numeric)
     text = f"no value of the discharge field is a number (row {row}: {quoted(value)})"
-    if re.fullmatch(r"\s*[-+]?\d+,\d+\s*", str(value)):
+    if re.fullmatch(_DECIMAL_COMMA, str(value)):
         text += "; decimal commas are not read: write 1.5, not 1,5"
     return text
 

@@ -873,3 +873,23 @@ def test_a_recession_index_field_value_out_of_range_names_the_gauge(case, capsys
     case.write_layer("gauges", layer)
     case.run(capsys, "--recession-index-field", "k_days")
     case.error("recession index 0.001 is outside 1 to 3,650 days", "field 'k_days'", "gauge CD2")
+
+
+@pytest.mark.parametrize("extra", [[], ["--gauges-per-group", "1"]])
+def test_semicolons_and_decimal_commas_with_some_whole_numbers_are_an_error(case, capsys, extra):
+    """Before, the whole numbers were read and the rest left out: exit 0, every gauge empty."""
+    frame = case.discharge()
+    values = frame["discharge"].astype(float).round(1)
+    frame["discharge"] = values.map(lambda v: f"{v:g}".replace(".", ","))
+    frame.to_csv(case.paths["discharge"], sep=";", index=False)
+    case.run(capsys, *extra)
+    case.error("with a decimal comma (row 1: '1,9')", "decimal commas are not read",
+               "field 'discharge'", "discharge.csv")  # fmt: skip
+
+
+def test_one_stray_decimal_comma_is_counted_not_refused(case, capsys):
+    frame = case.discharge()
+    frame.loc[_rows(frame)[50], "discharge"] = "1,5"
+    case.write_discharge(frame)
+    case.run(capsys)
+    assert case.code == 0, case.stderr
