@@ -120,13 +120,21 @@ def gauge_id_codes(values):
     return remap[np.asarray(raw_codes)], list(names)  # int32: half the memory of int64
 
 
+#: Key of ``DataFrame.attrs`` where the file reader says why a layer has no attribute fields
+#: (a shapefile without its .dbf), for the messages about a missing field.
+NO_FIELDS_REASON = "recharge_atlas_no_fields_reason"
+
+
 def require_columns(table: pd.DataFrame, columns, what: str, file=None):
     """Raise a short :class:`InputError` naming the missing columns and the ones found."""
     missing = [c for c in columns if c not in table.columns]
     if missing:
         names = ", ".join(quoted(c) for c in missing)
+        why = getattr(table, "attrs", {}).get(NO_FIELDS_REASON)
         raise InputError(
-            f"the {what} has no field {names}; fields found: {listed(table.columns)}", file=file
+            f"the {what} has no field {names}; "
+            + (why if why else f"fields found: {listed(table.columns)}"),
+            file=file,
         )
 
 

@@ -88,7 +88,22 @@ def read_layer(path, what="layer"):
         frame = gpd.read_file(file_path, layer=layer) if layer else gpd.read_file(file_path)
     except Exception as exc:  # the readers raise many types; the user needs one sentence
         raise _layer_error(exc, file_path, layer, what) from None
+    if file_path.suffix.lower() == ".shp" and not _beside(file_path, ".dbf"):
+        from .discharge import NO_FIELDS_REASON
+
+        frame.attrs[NO_FIELDS_REASON] = (
+            f"its attribute file {file_path.stem}.dbf is missing beside the .shp"
+        )
     return frame
+
+
+def _beside(file_path, suffix):
+    """Whether a file of the same name with ``suffix`` (any letter case) lies beside it."""
+    wanted = (file_path.stem + suffix).lower()
+    try:
+        return any(p.name.lower() == wanted for p in file_path.parent.iterdir())
+    except OSError:
+        return True
 
 
 def _layer_error(exc, file_path, layer, what):

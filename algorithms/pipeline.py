@@ -19,6 +19,7 @@ from .baseflow import BFIMAX_TYPICAL, METHODS, baseflow_index, separate_baseflow
 from .basins import LINK_TOLERANCE_M, geodesic_area_km2, link_by_id, link_spatially, repair_polygons
 from .discharge import (
     MIN_DAY_COVERAGE,
+    NO_FIELDS_REASON,
     GaugeRecord,
     gauge_id_codes,
     gauge_id_text,
@@ -32,7 +33,7 @@ from .displacement import (
     event_columns,
     event_columns_at,
 )
-from .errors import InputError, counted, describe, quoted
+from .errors import InputError, counted, describe, listed, quoted
 from .nesting import OVERLAP_TOLERANCE, find_nesting, incremental_recharge
 from .recession import (
     MASTER_RECESSION_COLUMNS,
@@ -1437,6 +1438,16 @@ def _link_basins(
     method = settings.link_method(list(catchments.columns))
     if method == "id":
         require_columns(catchments, [settings.catchment_gauge_field], "catchments layer")
+    elif settings.link == "auto":  # chosen because the id field is absent: say so
+        found = [c for c in catchments.columns if c != catchments.geometry.name]
+        why = getattr(catchments, "attrs", {}).get(NO_FIELDS_REASON)
+        reporter.warning(
+            f"the catchments layer has no field {quoted(settings.catchment_gauge_field)}"
+            + (f" ({why})" if why else f" (fields found: {listed(found)})")
+            + ": gauges are linked to catchments by location instead (a gauge at a "
+            "catchment's outlet); name the id field with --catchment-gauge-field / "
+            "CATCHMENT_GAUGE_FIELD, or choose --link spatial / LINK"
+        )
     if not len(catchments):
         raise InputError("the catchments layer has no features")
     geometry, repairs = repair_polygons(catchments.geometry)
@@ -1487,6 +1498,13 @@ def _link_basins(
     return _Basins(
         geometry, repairs, areas, links, find_nesting(basins, settings.overlap_tolerance)
     )
+
+
+def _linked_how(method, settings):
+    """How gauges were linked to catchments, in words for the run's summary."""
+    if method == "id":
+        return f"by the id field {quoted(settings.catchment_gauge_field)}"
+    return "by location (each gauge at its catchment's outlet), not by an id field"
 
 
 def _kind_of(geometry):
@@ -2012,7 +2030,7 @@ def run_atlas(
     )
     reporter.info(
         f"{_summary_text(summary)}; "
-        f"{len(links.catchment_of)} linked to catchments ({links.method}); "
+        f"{len(links.catchment_of)} linked to catchments {_linked_how(links.method, settings)}; "
         f"{len(links.without_gauge)} catchments without a gauge"
     )
     if summary["plausibility"]:

@@ -893,3 +893,41 @@ def test_one_stray_decimal_comma_is_counted_not_refused(case, capsys):
     case.write_discharge(frame)
     case.run(capsys)
     assert case.code == 0, case.stderr
+
+
+def _as_shapefile(case, name, keep_dbf=True):
+    path = case.inputs / f"{name}.shp"
+    case.layer(name).to_file(path)
+    if not keep_dbf:
+        (case.inputs / f"{name}.dbf").unlink()
+    return path
+
+
+def test_a_missing_dbf_beside_the_catchments_is_said_and_spatial_linking_named(case, capsys):
+    """Before, linking switched to spatial silently (the summary said only '(spatial)')."""
+    shp = _as_shapefile(case, "catchments", keep_dbf=False)
+    case.run(capsys, catchments=shp)
+    case.unchanged(case.result(), [SPOILT, *OTHERS])
+    assert (
+        "caution: the catchments layer has no field 'gauge_id' (its attribute file "
+        "catchments.dbf is missing beside the .shp): gauges are linked to catchments by "
+        "location instead" in case.stderr
+    ), case.stderr
+    assert "--catchment-gauge-field" in case.stderr
+    assert (
+        "3 linked to catchments by location (each gauge at its catchment's outlet), not "
+        "by an id field" in case.stderr
+    ), case.stderr
+
+
+def test_a_missing_dbf_beside_the_gauges_is_named_in_the_error(case, capsys):
+    shp = _as_shapefile(case, "gauges", keep_dbf=False)
+    case.run(capsys, gauges=shp)
+    case.error("the gauges layer has no field 'gauge_id'; its attribute file gauges.dbf is "
+               "missing beside the .shp", "gauges.shp")  # fmt: skip
+
+
+def test_linking_by_id_is_named_in_the_summary(case, capsys):
+    case.run(capsys)
+    case.result()
+    assert "3 linked to catchments by the id field 'gauge_id'" in case.stderr, case.stderr
