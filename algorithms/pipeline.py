@@ -19,6 +19,7 @@ from .baseflow import BFIMAX_TYPICAL, METHODS, baseflow_index, separate_baseflow
 from .basins import LINK_TOLERANCE_M, geodesic_area_km2, link_by_id, link_spatially, repair_polygons
 from .discharge import (
     MIN_DAY_COVERAGE,
+    MISSING_MARKERS,
     NO_FIELDS_REASON,
     GaugeRecord,
     gauge_id_codes,
@@ -1323,17 +1324,35 @@ def _given_recession_index(gauges, settings):
     """K per gauge from the gauges layer's field, when the settings name one."""
     if not settings.recession_index_field:
         return {}
-    require_columns(gauges, [settings.recession_index_field], "gauges layer")
     ids = gauge_id_text(gauges[settings.gauge_id_field].to_numpy())
-    values = pd.to_numeric(
-        pd.Series(gauges[settings.recession_index_field].to_numpy(), dtype=object), errors="coerce"
-    ).to_numpy(float)
+    values = _number_field(gauges, settings.recession_index_field, ids, "a recession index in days")
     given = {}
     for gid, value in zip(ids, values):
         if gid is None or not np.isfinite(value):
             continue
         given[gid] = check_recession_index(value, field=settings.recession_index_field, gauge=gid)
     return given
+
+
+def _number_field(gauges, field, ids, expected):
+    """A numeric field of the gauges layer as floats (NaN where empty). A value that is not
+    a number is an error naming the gauge: a text field given by mistake would otherwise be
+    ignored without a word."""
+    require_columns(gauges, [field], "gauges layer")
+    column = pd.Series(gauges[field].to_numpy(), dtype=object)
+    values = pd.to_numeric(column, errors="coerce").to_numpy(float)
+    text = column.astype(str).str.strip()
+    empty = column.isna().to_numpy() | text.str.lower().isin(MISSING_MARKERS).to_numpy()
+    wrong = np.flatnonzero(np.isnan(values) & ~empty)
+    if wrong.size:
+        first = int(wrong[0])
+        raise InputError(
+            f"the gauges layer's field holds {quoted(column.iloc[first])}, not a number "
+            f"({counted(wrong.size, 'feature')} so); expected {expected}, or an empty value",
+            field=field,
+            gauge=ids[first],
+        )
+    return values
 
 
 def _gauge_points(gauges, what="gauges"):
@@ -1350,11 +1369,8 @@ def _reported_area_notes(gauges, settings, areas_by_gauge):
     """Quality notes for gauges whose reported area differs from the computed one."""
     if not settings.reported_area_field:
         return {}
-    require_columns(gauges, [settings.reported_area_field], "gauges layer")
     ids = gauge_id_text(gauges[settings.gauge_id_field].to_numpy())
-    reported = pd.to_numeric(
-        pd.Series(gauges[settings.reported_area_field].to_numpy(), dtype=object), errors="coerce"
-    ).to_numpy(float)
+    reported = _number_field(gauges, settings.reported_area_field, ids, "an area in km²")
     notes = {}
     for gid, value in zip(ids, reported):
         area = areas_by_gauge.get(gid, np.nan)

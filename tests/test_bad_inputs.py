@@ -931,3 +931,19 @@ def test_linking_by_id_is_named_in_the_summary(case, capsys):
     case.run(capsys)
     case.result()
     assert "3 linked to catchments by the id field 'gauge_id'" in case.stderr, case.stderr
+
+
+@pytest.mark.parametrize("option", ["--recession-index-field", "--reported-area-field"])
+def test_a_text_field_given_for_numbers_is_an_error(case, capsys, option):
+    """Before, a text field given here was ignored without a word (exit 0)."""
+    case.run(capsys, option, "name")
+    case.error("the gauges layer's field holds 'Wendle Beck at Oxmoor', not a number "
+               "(3 features so)", "field 'name'", "gauge AB1", "gauges.gpkg")  # fmt: skip
+
+
+def test_empty_values_in_a_recession_index_field_mean_estimate(case, capsys):
+    layer = case.layer("gauges")
+    layer["k_days"] = ["", None, " "]
+    case.write_layer("gauges", layer)
+    case.run(capsys, "--recession-index-field", "k_days")
+    case.unchanged(case.result(), [SPOILT, *OTHERS])
