@@ -8,6 +8,7 @@ gauge is :func:`gauge_hydrology`.
 
 from __future__ import annotations
 
+import itertools
 import math
 from dataclasses import dataclass, field, replace
 
@@ -1694,7 +1695,7 @@ def compute_gauges(
             done += 1
         reporter.progress(done, total, gauge_ids[done] if done < total else None)
     unknown = sorted(set(records) - set(gauge_ids))
-    if unknown:
+    if unknown and any(gid in records for gid in gauge_ids):  # else the run stops: one error
         shown = ", ".join(unknown[:5]) + (" …" if len(unknown) > 5 else "")
         reporter.warning(f"{len(unknown)} gauge ids in the discharge table match no gauge: {shown}")
     return results, failed
@@ -1778,7 +1779,8 @@ def _compute_in_groups(
         results.update(rest)
     if not tally.rows:
         raise InputError("the discharge table has no rows")
-    tally.report(reporter)
+    if tally.matched or not tally.unmatched:  # else the run stops with one error
+        tally.report(reporter)
     return {gid: results[gid] for gid in gauge_ids}, failed, tally
 
 
@@ -1879,6 +1881,7 @@ def _summary(results, failed, tally=None):
                 "with_record": tally.matched,
                 "unmatched": len(tally.unmatched),
                 "unmatched_ids": tally.unmatched[:5],
+                "unmatched_all": tally.unmatched[:10_000],
             }
         )
     return summary
@@ -1917,27 +1920,67 @@ def require_records(result: AtlasResult) -> None:
     almost always a wrong field, or a gauge id written differently in the two files (``0123``
     and ``123``).
     """
-    summary = result.summary
-    settings = result.settings
+    problem = _records_problem(result.summary, result.gauges, result.settings)
+    if problem is not None:
+        raise problem
+
+
+def _records_problem(summary, gauges, settings):
+    """The :class:`InputError` :func:`require_records` raises for a run, or None. The runs
+    check it before their per-gauge cautions: when the run is going to stop, the error is
+    said alone, not after a caution for every gauge."""
     if summary.get("with_record") and not summary.get("computed") and not summary.get("failed"):
-        raise InputError(
+        return InputError(
             "no gauge has a usable discharge value: the field is empty (or holds only missing "
             "values) in every row",
             field=settings.value_field if settings is not None else None,
         )
     if summary.get("with_record", 1) or not summary.get("gauges"):
-        return
+        return None
     if summary.get("unmatched"):
         theirs = _some(summary["unmatched_ids"], summary["unmatched"])
-        ours = _some(list(result.gauges), len(result.gauges))
+        ours = _some(list(gauges), len(gauges))
         message = (
             f"no gauge id of the discharge table matches the gauges layer: "
             f"the table has {theirs}, the layer {ours}"
-        )
+        ) + _id_hint(summary.get("unmatched_all", summary["unmatched_ids"]), list(gauges))
     else:
         message = "the discharge table holds no row with a gauge id and a readable date"
     field = settings.discharge_gauge_field if settings is not None else None
-    raise InputError(message, field=field)
+    return InputError(message, field=field)
+
+
+#: Ways two spellings of one gauge id commonly differ, and how to make them alike.
+_ID_DIFFERENCES = (
+    ("leading zeros", lambda text: text.lstrip("0") or "0"),
+    ("letter case", str.casefold),
+    ("spaces", lambda text: "".join(text.split())),
+)
+
+
+def _id_hint(theirs, ours) -> str:
+    """``'; they match when leading zeros are ignored (...)'`` when ignoring one or more of
+    :data:`_ID_DIFFERENCES` makes some ids of the two sides meet; empty otherwise."""
+    ours = [str(g) for g in ours]
+    theirs = [str(g) for g in theirs]
+    for size in (1, 2, 3):
+        for chosen in itertools.combinations(_ID_DIFFERENCES, size):
+
+            def alike(text, chosen=chosen):
+                for _, change in chosen:
+                    text = change(text)
+                return text
+
+            if {alike(g) for g in ours} & {alike(g) for g in theirs}:
+                words = " and ".join(name for name, _ in chosen)
+                advice = (
+                    "; ids read as numbers lose their leading zeros: keep the column as text"
+                    if chosen[0][0] == "leading zeros"
+                    else ""
+                )
+                verb = "is" if words == "letter case" else "are"
+                return f"; some match when {words} {verb} ignored{advice}"
+    return ""
 
 
 def _summary_text(summary):
@@ -2030,10 +2073,6 @@ def run_atlas(
         on=["gauge_id", "water_year"],
         how="left",
     )
-    for gid, result in results.items():
-        if result.quality:
-            reporter.warning(f"gauge {gid}: {result.quality_text}")
-
     out = _catchment_layer(catchments, basins, results, settings, incremental)
     summary = _summary(results, failed, tally)
     summary.update(
@@ -2044,11 +2083,16 @@ def run_atlas(
             "linked": len(links.catchment_of),
         }
     )
-    reporter.info(
-        f"{_summary_text(summary)}; "
-        f"{len(links.catchment_of)} linked to catchments {_linked_how(links.method, settings)}; "
-        f"{len(links.without_gauge)} catchments without a gauge"
-    )
+    if _records_problem(summary, results, settings) is None:  # else one error says it all
+        for gid, result in results.items():
+            if result.quality:
+                reporter.warning(f"gauge {gid}: {result.quality_text}")
+        reporter.info(
+            f"{_summary_text(summary)}; "
+            f"{len(links.catchment_of)} linked to catchments "
+            f"{_linked_how(links.method, settings)}; "
+            f"{len(links.without_gauge)} catchments without a gauge"
+        )
     if summary["plausibility"]:
         reporter.warning(summary["plausibility"])
     names = catchments["name"].tolist() if "name" in catchments.columns else None
@@ -2102,11 +2146,12 @@ def run_gauges(
     results, failed, tally = _compute_in_groups(
         discharge, gauge_ids, area_of, settings, reporter, given_k, None, keep_series, table_sink
     )
-    for gid, result in results.items():
-        if result.quality:
-            reporter.warning(f"gauge {gid}: {result.quality_text}")
     summary = _summary(results, failed, tally)
-    reporter.info(_summary_text(summary))
+    if _records_problem(summary, results, settings) is None:  # else one error says it all
+        for gid, result in results.items():
+            if result.quality:
+                reporter.warning(f"gauge {gid}: {result.quality_text}")
+        reporter.info(_summary_text(summary))
     if summary["plausibility"]:
         reporter.warning(summary["plausibility"])
     return AtlasResult(

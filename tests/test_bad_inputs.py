@@ -947,3 +947,27 @@ def test_empty_values_in_a_recession_index_field_mean_estimate(case, capsys):
     case.write_layer("gauges", layer)
     case.run(capsys, "--recession-index-field", "k_days")
     case.unchanged(case.result(), [SPOILT, *OTHERS])
+
+
+@pytest.mark.parametrize(
+    ("change", "hint"),
+    [
+        (lambda ids: "00" + ids, "some match when leading zeros are ignored; ids read as numbers "
+                                 "lose their leading zeros: keep the column as text"),
+        (lambda ids: ids.str.lower(), "some match when letter case is ignored"),
+        (lambda ids: ids.str[:2] + " " + ids.str[2:], "some match when spaces are ignored"),
+        (lambda ids: "X" + ids, None),
+    ],
+)  # fmt: skip
+def test_no_id_matching_is_one_error_alone_with_a_hint(case, capsys, change, hint):
+    """Before, the error came after a caution for every gauge (thousands for a network)."""
+    frame = case.discharge()
+    frame["gauge_id"] = change(frame["gauge_id"])
+    case.write_discharge(frame)
+    case.run(capsys)
+    text = case.error("no gauge id of the discharge table matches the gauges layer")
+    assert case.stderr.strip() == text, case.stderr
+    if hint:
+        assert hint in text, text
+    else:
+        assert "some match" not in text, text
