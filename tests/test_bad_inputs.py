@@ -971,3 +971,65 @@ def test_no_id_matching_is_one_error_alone_with_a_hint(case, capsys, change, hin
         assert hint in text, text
     else:
         assert "some match" not in text, text
+
+
+@pytest.mark.parametrize("encoding", ["utf-16", "utf-16-le"])
+def test_utf16_text_is_read(case, capsys, encoding):
+    """Before, UTF-16 text (as Windows tools write it) was called binary data."""
+    case.discharge().to_csv(case.paths["discharge"], index=False, encoding=encoding)
+    case.run(capsys)
+    case.unchanged(case.result(), [SPOILT, *OTHERS])
+
+
+def test_parquet_without_an_engine_says_which_package_to_install(case, capsys, monkeypatch):
+    def no_engine(*args, **kwargs):  # what pandas raises when neither engine is installed
+        raise ImportError("Unable to find a usable engine; tried using: 'pyarrow', 'fastparquet'.")
+
+    table = case.inputs / "discharge.parquet"
+    table.write_bytes(b"PAR1" + b"\0" * 16 + b"PAR1")
+    monkeypatch.setattr(files.pd, "read_parquet", no_engine)
+    case.run(capsys, discharge=table)
+    case.error("reading Parquet needs the Python package pyarrow: install it (pip install "
+               "pyarrow", "discharge.parquet")  # fmt: skip
+
+
+def _lines(case):
+    return case.paths["discharge"].read_text().splitlines()
+
+
+@pytest.mark.parametrize(
+    ("spoil", "words"),
+    [
+        (lambda t: t[:5] + [t[5] + ",7,8"] + t[6:],
+         "the discharge table file has 5 fields on line 6 where its header has 3: a value "
+         "with the separator in it needs quotes"),
+        (lambda t: ["# made by the river office", "# units m3/s"] + t,
+         "the discharge table file has 3 fields on line 3 where its first line has 1: are "
+         "there lines (a title, comments) before the header? remove them"),
+        (lambda t: t[:5] + [t[5].replace(",", ',"', 1)] + t[6:],
+         "the discharge table file has a quote on line 6 that is never closed"),
+    ],
+)  # fmt: skip
+def test_text_faults_are_said_in_our_words_with_the_line(case, capsys, spoil, words):
+    """Before, the CSV reader's own words ('Error tokenizing data. C error: ...')."""
+    case.paths["discharge"].write_text("\n".join(spoil(_lines(case))) + "\n")
+    case.run(capsys)
+    text = case.error(words, "discharge.csv")
+    assert "C error" not in text and "tokenizing" not in text
+
+
+def test_a_truncated_shapefile_is_said_to_look_damaged(case, capsys):
+    """Before, reported as 'empty geometry' catchments."""
+    shp = _as_shapefile(case, "catchments")
+    data = shp.read_bytes()
+    shp.write_bytes(data[: len(data) // 2])
+    case.run(capsys, catchments=shp)
+    case.error("the catchments file looks damaged", "cut short", "catchments.shp")
+
+
+def test_a_pipe_as_input_is_refused_not_waited_on(case, capsys, tmp_path):
+    """Before, the run hung reading the pipe."""
+    pipe = tmp_path / "discharge.csv"
+    os.mkfifo(pipe)
+    case.run(capsys, discharge=pipe)
+    case.error("the discharge table path is not a regular file (a pipe, socket or device)")
