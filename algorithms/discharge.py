@@ -131,11 +131,13 @@ def require_columns(table: pd.DataFrame, columns, what: str, file=None):
     if missing:
         names = ", ".join(quoted(c) for c in missing)
         why = getattr(table, "attrs", {}).get(NO_FIELDS_REASON)
-        raise InputError(
+        error = InputError(
             f"the {what} has no field {names}; "
             + (why if why else f"fields found: {listed(table.columns)}"),
             file=file,
         )
+        error.missing_field = (what, missing[0])  # the shells name the option that gave it
+        raise error
 
 
 # --------------------------------------------------------------------------- dates

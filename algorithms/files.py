@@ -366,11 +366,9 @@ def _parquet_groups(file_path, gauge_field, batches, what):
         raise InputError(
             f"the {what} file could not be read: {_first_line(exc)}", file=str(file_path)
         ) from None
-    if gauge_field not in schema.names:
-        raise InputError(
-            f"the {what} has no field {quoted(gauge_field)}; fields found: {listed(schema.names)}",
-            file=str(file_path),
-        )
+    from .discharge import require_columns
+
+    require_columns(pd.DataFrame(columns=schema.names), [gauge_field], what, file=str(file_path))
     kind = schema.field(gauge_field).type
     found = False
     for batch in batches:
@@ -484,7 +482,7 @@ def _is_number(text):
 
 
 def _text_groups(file_path, gauge_field, batches, what, date_field=None):
-    from .discharge import gauge_id_text
+    from .discharge import gauge_id_text, require_columns
 
     group_of = {gid: i for i, batch in enumerate(batches) for gid in batch}
     encoding = _text_encoding(file_path, what)
@@ -503,12 +501,7 @@ def _text_groups(file_path, gauge_field, batches, what, date_field=None):
         )
         try:
             for chunk in reader:
-                if gauge_field not in chunk.columns:
-                    raise InputError(
-                        f"the {what} has no field {quoted(gauge_field)}; "
-                        f"fields found: {listed(chunk.columns)}",
-                        file=str(file_path),
-                    )
+                require_columns(chunk, [gauge_field], what, file=str(file_path))
                 groups = np.array(
                     [group_of.get(g, -1) for g in gauge_id_text(chunk[gauge_field].to_numpy())]
                 )

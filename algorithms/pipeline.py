@@ -326,6 +326,27 @@ def check_recession_index(value, **where) -> float:
     return number
 
 
+#: The settings that name a field, by the layer or table that must hold it.
+FIELD_SETTINGS = {
+    "gauges layer": ("gauge_id_field", "recession_index_field", "reported_area_field"),
+    "discharge table": ("discharge_gauge_field", "date_field", "value_field", "flag_field"),
+    "catchments layer": ("catchment_gauge_field",),
+    "subbasins layer": ("subbasin_id_field", "downstream_field"),
+}
+
+
+def field_setting(missing_field, settings) -> str | None:
+    """The :class:`Settings` attribute that named a field missing from a layer
+    (``InputError.missing_field``: what, field), or None when none did."""
+    if not missing_field or settings is None:
+        return None
+    what, name = missing_field
+    for attribute in FIELD_SETTINGS.get(what, ()):
+        if getattr(settings, attribute, None) == name:
+            return attribute
+    return None
+
+
 def _whole_number(value):
     try:
         number = float(value)

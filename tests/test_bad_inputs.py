@@ -206,7 +206,7 @@ def test_latin1_text_is_read(case, capsys):
 )  # fmt: skip
 def test_missing_field_lists_the_fields_found(case, capsys, option, words):
     case.run(capsys, option, "flow")
-    case.error(*words)
+    case.error(*words, f"; name the right field with {option} (file")  # issue 14, item 14
 
 
 # --------------------------------------------------------------------------- dates
@@ -1033,3 +1033,18 @@ def test_a_pipe_as_input_is_refused_not_waited_on(case, capsys, tmp_path):
     os.mkfifo(pipe)
     case.run(capsys, discharge=pipe)
     case.error("the discharge table path is not a regular file (a pipe, socket or device)")
+
+
+@pytest.mark.parametrize(
+    ("extra", "option"),
+    [
+        (["--discharge-gauge-field", "station"], "--discharge-gauge-field"),
+        (["--flag-field", "station"], "--flag-field"),
+        (["--reported-area-field", "station"], "--reported-area-field"),
+        (["--value-field", "station", "--gauges-per-group", "1"], "--value-field"),
+        (["--discharge-gauge-field", "station", "--gauges-per-group", "1"], "--discharge-gauge-field"),
+    ],
+)  # fmt: skip
+def test_a_missing_field_names_the_option_that_named_it(case, capsys, extra, option):
+    case.run(capsys, *extra)
+    case.error("has no field 'station'", f"; name the right field with {option} (file")
