@@ -620,13 +620,23 @@ def _require_discharge_fields(table, settings, path):
 
 def _located(exc, sources, settings):
     """``exc`` with the file it is about, when the core named the layer or the field but could
-    not know the file (it works on tables)."""
+    not know the file (it works on tables); for a missing field, with the option naming it."""
+    from recharge_atlas.algorithms.pipeline import field_setting
+
+    attribute = field_setting(exc.missing_field, settings)
+    if attribute is not None and "; name the right field with --" not in exc.message:
+        exc.extended(f"; name the right field with --{attribute.replace('_', '-')}")
     if exc.file is not None:
         return exc
     for what, path in sources.items():
         if exc.message.startswith((f"the {what} ", f"no gauge id of the {what} ")):
             return exc.located(file=str(path))
-    about_discharge = ("no value of the", "the date field", "the dates ", "no gauge has a usable")
+    about_discharge = (
+        "no value of the",
+        "the date",
+        "the discharge field",
+        "no gauge has a usable",
+    )
     if exc.message.startswith(about_discharge):
         return exc.located(file=str(sources["discharge table"]))
     return exc

@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from .errors import InputError, listed, quoted
+from .errors import InputError, counted, listed, quoted
 from .units import canonical_units, to_cubic_metres_per_second
 
 #: Default share of a day's expected sub-daily values needed for a daily mean (our own rule).
@@ -120,14 +120,24 @@ def gauge_id_codes(values):
     return remap[np.asarray(raw_codes)], list(names)  # int32: half the memory of int64
 
 
+#: Key of ``DataFrame.attrs`` where the file reader says why a layer has no attribute fields
+#: (a shapefile without its .dbf), for the messages about a missing field.
+NO_FIELDS_REASON = "recharge_atlas_no_fields_reason"
+
+
 def require_columns(table: pd.DataFrame, columns, what: str, file=None):
     """Raise a short :class:`InputError` naming the missing columns and the ones found."""
     missing = [c for c in columns if c not in table.columns]
     if missing:
         names = ", ".join(quoted(c) for c in missing)
-        raise InputError(
-            f"the {what} has no field {names}; fields found: {listed(table.columns)}", file=file
+        why = getattr(table, "attrs", {}).get(NO_FIELDS_REASON)
+        error = InputError(
+            f"the {what} has no field {names}; "
+            + (why if why else f"fields found: {listed(table.columns)}"),
+            file=file,
         )
+        error.missing_field = (what, missing[0])  # the shells name the option that gave it
+        raise error
 
 
 # --------------------------------------------------------------------------- dates
@@ -144,6 +154,23 @@ _COMPACT = r"^(?P<y>\d{4})(?P<m>\d{2})(?P<d>\d{2})" + _TIME + _ZONE + r"$"
 _YEAR_LAST = (
     r"^(?P<a>\d{1,2})(?P<sep>[-/.])(?P<b>\d{1,2})(?P=sep)(?P<y>\d{4})" + _TIME + _ZONE + r"$"
 )
+#: The years a date may fall in. Daily records are held at nanosecond resolution (the only
+#: one pandas 1.5, QGIS's, has), which spans 1677-09-21 to 2262-04-11: a date outside it
+#: would wrap around by about 584 years and land inside the record, so it is refused instead.
+FIRST_YEAR, LAST_YEAR = 1678, 2261
+_FIRST_DAY = np.datetime64(f"{FIRST_YEAR}-01-01", "s")
+_END_DAY = np.datetime64(f"{LAST_YEAR + 1}-01-01", "s")
+
+
+def _outside(seconds) -> np.ndarray:
+    """Which of these datetime64 values (any unit, NaT counted as inside) fall outside the
+    years :data:`FIRST_YEAR` to :data:`LAST_YEAR`."""
+    values = np.asarray(seconds)
+    with np.errstate(invalid="ignore"):
+        out = (values < _FIRST_DAY.astype(values.dtype)) | (values >= _END_DAY.astype(values.dtype))
+    return out & ~np.isnat(values)
+
+
 _MONTH_NAME = re.compile(
     r"\b(jan|feb|mar|apr|may|jun|jul|aug|sep|oct|nov|dec)[a-z]*\b", re.IGNORECASE
 )
@@ -170,6 +197,9 @@ class DateReading:
     ambiguous : str or None
         A value like ``01/02/2020`` that could not be read because nothing in the table says
         whether the day or the month comes first.
+    out_of_range : numpy.ndarray of bool or None
+        Rows holding a real date outside the years :data:`FIRST_YEAR` to :data:`LAST_YEAR`
+        (NaT in ``stamps``): :func:`tidy_discharge` refuses them with the row named.
     """
 
     stamps: np.ndarray
@@ -178,6 +208,7 @@ class DateReading:
     with_offset: int = 0
     order: str | None = None
     ambiguous: str | None = None
+    out_of_range: np.ndarray | None = None
 
 
 def read_dates(values) -> DateReading:
@@ -212,11 +243,15 @@ def read_dates(values) -> DateReading:
         native = stamps.to_numpy()
         if native.dtype.kind != "M" or np.datetime_data(native.dtype)[0] not in _TICK_UNITS:
             native = stamps.to_numpy(dtype="datetime64[ns]")
-        return DateReading(native, none, none)
+        far = _outside(native)
+        if far.any():
+            native = native.copy()
+            native[far] = np.datetime64("NaT")
+        return DateReading(native, none, none, out_of_range=far)
     with warnings.catch_warnings():  # pandas 1.5 warns of a change to come for mixed objects
         warnings.simplefilter("ignore", FutureWarning)
         codes, uniques = pd.factorize(column, use_na_sentinel=True)
-    parsed, bad, offset, order, ambiguous = _read_distinct(list(uniques))
+    parsed, bad, offset, order, ambiguous, far = _read_distinct(list(uniques))
     codes = np.asarray(codes)
     has = codes >= 0
     stamps = np.full(codes.size, np.datetime64("NaT"), dtype="datetime64[ns]")
@@ -226,13 +261,24 @@ def read_dates(values) -> DateReading:
     with_offset = np.zeros(codes.size, dtype=bool)
     if offset.any():
         with_offset[has] = offset[codes[has]]
+    out_of_range = np.zeros(codes.size, dtype=bool)
+    if far.any():
+        out_of_range[has] = far[codes[has]]
     return DateReading(
-        stamps, unreadable, with_offset, int(np.count_nonzero(with_offset)), order, ambiguous
+        stamps,
+        unreadable,
+        with_offset,
+        int(np.count_nonzero(with_offset)),
+        order,
+        ambiguous,
+        out_of_range,
     )
 
 
 #: A distinct date value that cannot be a date whatever its form (a boolean, a fraction).
 _NOT_A_DATE = object()
+#: A distinct value typed as a date, outside the years :data:`FIRST_YEAR` to :data:`LAST_YEAR`.
+_OUT_OF_RANGE = object()
 
 
 def _text_of(value):
@@ -241,6 +287,11 @@ def _text_of(value):
     if value is None or value is pd.NaT:
         return None
     if isinstance(value, (pd.Timestamp, _dt.datetime, _dt.date, np.datetime64)):
+        year = getattr(value, "year", None)
+        if isinstance(value, np.datetime64) and not np.isnat(value):
+            year = int(value.astype("datetime64[Y]").astype(np.int64)) + 1970
+        if year is not None and not FIRST_YEAR <= year <= LAST_YEAR:
+            return _OUT_OF_RANGE
         try:
             stamp = pd.Timestamp(value)
         except (ValueError, OverflowError):
@@ -265,13 +316,15 @@ def _read_distinct(uniques):
     parsed = np.full(n, np.datetime64("NaT"), dtype="datetime64[ns]")
     bad = np.zeros(n, dtype=bool)
     offset = np.zeros(n, dtype=bool)
+    far = np.zeros(n, dtype=bool)
     texts = [_text_of(v) for v in uniques]
+    far[[i for i, t in enumerate(texts) if t is _OUT_OF_RANGE]] = True
     typed = [i for i, t in enumerate(texts) if isinstance(t, pd.Timestamp)]
     if typed:
         parsed[typed] = np.array([texts[i].asm8 for i in typed], dtype="datetime64[ns]")
     rows = [i for i, t in enumerate(texts) if isinstance(t, str)]
     order = ambiguous = None
-    if rows and _plain_iso(texts, rows, parsed):
+    if rows and _plain_iso(texts, rows, parsed, far):
         rows = []  # all read (the common case, kept fast)
     if rows:
         text = pd.Series([texts[i] for i in rows], index=rows, dtype=object)
@@ -280,7 +333,7 @@ def _read_distinct(uniques):
             parts = text[~found].str.extract(pattern)
             hit = parts["y"].notna()
             if hit.any():
-                _assemble(parts[hit], parts[hit]["m"], parts[hit]["d"], parsed, offset)
+                _assemble(parts[hit], parts[hit]["m"], parts[hit]["d"], parsed, offset, far)
                 found[hit[hit].index] = True
         parts = text[~found].str.extract(_YEAR_LAST)
         hit = parts["y"].notna()
@@ -298,13 +351,17 @@ def _read_distinct(uniques):
             if day_first or month_first:
                 order = "day first" if day_first else "month first"
                 day, month = (parts["a"], parts["b"]) if day_first else (parts["b"], parts["a"])
-                _assemble(parts, month, day, parsed, offset)
+                _assemble(parts, month, day, parsed, offset, far)
                 found[parts.index] = True
             else:
                 ambiguous = texts[parts.index[0]]
         rest = [i for i in text.index[~found.to_numpy()] if _MONTH_NAME.search(texts[i])]
         for i in rest:
-            if not re.search(r"\b\d{4}\b", texts[i]):
+            year = re.search(r"\b\d{4}\b", texts[i])
+            if not year:
+                continue
+            if not FIRST_YEAR <= int(year.group()) <= LAST_YEAR:
+                far[i] = True
                 continue
             try:
                 stamp = pd.Timestamp(texts[i])
@@ -313,14 +370,14 @@ def _read_distinct(uniques):
             if stamp is pd.NaT:
                 continue
             parsed[i] = (stamp.tz_localize(None) if stamp.tzinfo is not None else stamp).asm8
-        bad[rows] = np.isnat(parsed[rows])
+        bad[rows] = np.isnat(parsed[rows]) & ~far[rows]
     for i, t in enumerate(texts):
         if t is _NOT_A_DATE:
             bad[i] = True
-    return parsed, bad, offset, order, ambiguous
+    return parsed, bad, offset, order, ambiguous, far
 
 
-def _plain_iso(texts, rows, parsed) -> bool:
+def _plain_iso(texts, rows, parsed, far) -> bool:
     """Read the values at ``rows`` at once when every one is a plain ISO 8601 date or date and
     time (``2020-01-31``, ``2020-01-31 06:15``, ``2020-01-31T06:15:00``); False (nothing
     read) when one is anything else, for the general reader to take."""
@@ -338,14 +395,21 @@ def _plain_iso(texts, rows, parsed) -> bool:
         values = np.array([texts[i] for i in rows], dtype="datetime64[s]")
     except ValueError:
         return False
+    outside = _outside(values)
+    if outside.any():
+        far[np.asarray(rows)[outside]] = True
+        values[outside] = np.datetime64("NaT")
     parsed[rows] = values.astype("datetime64[ns]")
     return True
 
 
-def _assemble(parts, month, day, parsed, offset):
-    """Fill ``parsed`` (at the index of ``parts``) from the captured pieces of a pattern."""
+def _assemble(parts, month, day, parsed, offset, far):
+    """Fill ``parsed`` (at the index of ``parts``) from the captured pieces of a pattern;
+    mark in ``far`` the dates whose year lies outside :data:`FIRST_YEAR`–:data:`LAST_YEAR`."""
+    years = parts["y"].astype(int).to_numpy()
+    outside = (years < FIRST_YEAR) | (years > LAST_YEAR)
     numbers = {
-        "year": parts["y"].astype(int).to_numpy(),
+        "year": np.where(outside, 2000, years),
         "month": month.astype(int).to_numpy(),
         "day": day.astype(int).to_numpy(),
     }
@@ -359,8 +423,9 @@ def _assemble(parts, month, day, parsed, offset):
     valid = ((hour < 24) | end_of_day) & (minute < 60) & (second < 61)
     seconds = np.where(end_of_day, 86_400.0 - 1e-3, hour * 3600.0 + minute * 60.0 + second)
     stamps = dates + (seconds * 1e9).astype(np.int64).astype("timedelta64[ns]")
-    stamps[~valid] = np.datetime64("NaT")
+    stamps[~valid | outside] = np.datetime64("NaT")
     index = parts.index.to_numpy()
+    far[index[outside & ~np.isnat(dates)]] = True
     parsed[index] = stamps
     offset[index] = parts["Z"].notna().to_numpy()
 
@@ -390,6 +455,7 @@ def tidy_discharge(
     flag_field: str | None = None,
     flag_values=None,
     min_day_coverage: float = MIN_DAY_COVERAGE,
+    left_out: dict | None = None,
 ) -> dict[str, GaugeRecord]:
     """Split a long discharge table into one daily series per gauge, in m³/s.
 
@@ -409,6 +475,9 @@ def tidy_discharge(
     min_day_coverage : float
         For sub-daily records, the share of a day's expected values needed for a daily mean
         (e.g. 0.75: at least 72 of 96 quarter-hour values); other days become missing.
+    left_out : dict, optional
+        Receives the rows that belong to no gauge: ``rows_without_id`` (an empty or blank
+        gauge id; such rows are left out) and ``row_without_id`` (the first, counted from 1).
 
     Returns
     -------
@@ -452,6 +521,21 @@ def tidy_discharge(
         dates = read_dates(table[date_field])
     except InputError as exc:
         raise exc.located(field=date_field) from None
+    if dates.out_of_range is not None and dates.out_of_range.any():
+        row = int(np.flatnonzero(dates.out_of_range)[0])
+        gauge = id_names[id_codes[row]] if id_codes[row] >= 0 else None
+        raise InputError(
+            f"the date {quoted(_cell_text(table[date_field].iloc[row]))} lies outside the years "
+            f"{FIRST_YEAR} to {LAST_YEAR} that a record can hold (a typo?): correct or remove it"
+            + (
+                f" ({counted(far, 'such row')})"
+                if (far := int(dates.out_of_range.sum())) > 1
+                else ""
+            ),
+            field=date_field,
+            gauge=gauge,
+            row=row + 1,
+        )
     stamp = dates.stamps
     has_stamp = ~np.isnat(stamp)
     if len(table) and not has_stamp.any():
@@ -469,6 +553,7 @@ def tidy_discharge(
     non_numeric = np.isnan(numeric) & ~was_missing
     if len(table) and not (has_stamp & ~np.isnan(numeric)).any() and non_numeric.any():
         raise InputError(_no_numbers_message(raw, non_numeric), field=value_field)
+    _refuse_decimal_commas(raw, non_numeric, int(np.count_nonzero(~was_missing)), value_field)
     code = np.isin(numeric, MISSING_VALUE_CODES)
     values = to_cubic_metres_per_second(numeric, units)
     with np.errstate(invalid="ignore"):
@@ -480,6 +565,10 @@ def tidy_discharge(
     # Rows with a gauge id, and of them those with a date. When every row qualifies (the usual
     # table) they are taken as slices: views, no copies of millions of values.
     named = id_codes >= 0
+    if left_out is not None and not named.all():
+        unnamed = np.flatnonzero(~named)
+        left_out["rows_without_id"] = left_out.get("rows_without_id", 0) + int(unnamed.size)
+        left_out.setdefault("row_without_id", int(unnamed[0]) + 1)
     positions = _rows_where(named)
     gauge_of_row, names = id_codes[positions], id_names
     n_gauges = len(names)
@@ -577,6 +666,13 @@ def _ticks(stamps):
     return stamps.view(np.int64), int(np.timedelta64(1, "D") // np.timedelta64(1, unit))
 
 
+def _cell_text(value):
+    """A cell of the date column as the user wrote it (typed dates as their ISO text)."""
+    if isinstance(value, (_dt.date, pd.Timestamp)):
+        return value.isoformat()
+    return str(value).strip()
+
+
 def _first_of_each(groups, positions, column):
     """The value of ``column`` at the first position of each group: {group: text}."""
     if not groups.size:
@@ -652,10 +748,36 @@ def _no_dates_message(column, dates):
     )
 
 
+#: Values written with a decimal comma (``1,5``): when they are this share of the values given
+#: or more, the table is refused rather than read with them left out (our own rule: one stray
+#: value is counted like any text, a table written so is a fault of the whole table).
+DECIMAL_COMMA_SHARE = 0.01
+_DECIMAL_COMMA = r"\s*[-+]?\d+,\d+\s*"
+
+
+def _refuse_decimal_commas(column, non_numeric, given, field):
+    """:class:`InputError` when many values are numbers with a decimal comma. A table saved
+    with ``;`` between fields and decimal commas has whole numbers read and the rest left
+    out: every gauge would lose most of its days without a clear word."""
+    rows = np.flatnonzero(non_numeric)
+    if not rows.size or rows.size < DECIMAL_COMMA_SHARE * max(given, 1):
+        return
+    texts = pd.Series(column.to_numpy()[rows], dtype=object).astype(str)
+    comma = texts.str.fullmatch(_DECIMAL_COMMA).to_numpy(dtype=bool)
+    if np.count_nonzero(comma) >= DECIMAL_COMMA_SHARE * max(given, 1):
+        first = int(np.argmax(comma))
+        raise InputError(
+            f"the discharge field has {counted(int(comma.sum()), 'value')} with a decimal "
+            f"comma (row {rows[first] + 1}: {quoted(texts.iloc[first])}); decimal commas are "
+            "not read: write 1.5, not 1,5",
+            field=field,
+        )
+
+
 def _no_numbers_message(column, non_numeric):
     row, value = _first_filled(column, non_numeric)
     text = f"no value of the discharge field is a number (row {row}: {quoted(value)})"
-    if re.fullmatch(r"\s*[-+]?\d+,\d+\s*", str(value)):
+    if re.fullmatch(_DECIMAL_COMMA, str(value)):
         text += "; decimal commas are not read: write 1.5, not 1,5"
     return text
 
@@ -796,6 +918,8 @@ def _split_gauges(names, codes, ticks, per_day, values, problems, flagged, min_d
             flow = pd.Series(daily, index=index, name="discharge_m3s")
             flags = pd.Series(marks, index=index, name="flagged")
         counts_g = {k: int(v[g]) for k, v in problem_counts.items()}
+        if a < b:
+            counts_g.update(_stray_days(day_number[a:b]))
         counts_g.update(
             {
                 "repeated_rows": int(repeated[g]),
@@ -808,6 +932,40 @@ def _split_gauges(names, codes, ticks, per_day, values, problems, flagged, min_d
         )
         records[name] = GaugeRecord(name, flow, counts_g, flags)
     return records
+
+
+#: A day more than this many days from every day of the rest of a gauge's record is taken for
+#: a typo and named in a caution (a century: our own rule).
+STRAY_GAP_DAYS = 36_525
+
+
+def _stray_days(days) -> dict:
+    """Days of one gauge (sorted day numbers since 1970) that stand apart: more than
+    :data:`STRAY_GAP_DAYS` from the main part of the record (the largest run of days with no
+    such gap), or after today. Returns counts and a few of the dates for the gauge's caution
+    (nothing when there are none)."""
+    first, last = int(days[0]), int(days[-1])
+    today = int(np.datetime64("today", "D").astype(np.int64))
+    out = {}
+    if last - first > STRAY_GAP_DAYS:
+        cuts = np.flatnonzero(np.diff(days) > STRAY_GAP_DAYS) + 1
+        if cuts.size:
+            bounds = np.concatenate(([0], cuts, [days.size]))
+            main = int(np.argmax(np.diff(bounds)))
+            apart = np.ones(days.size, bool)
+            apart[bounds[main] : bounds[main + 1]] = False
+            out["stray_dates"] = int(apart.sum())
+            out["stray_date_examples"] = _day_texts(days[apart])
+    if last > today:
+        future = days > today
+        out["future_dates"] = int(future.sum())
+        out["future_date_examples"] = _day_texts(days[future])
+    return out
+
+
+def _day_texts(days, shown=3):
+    """The first few of these day numbers as ISO dates."""
+    return [str(np.datetime64(int(d), "D")) for d in days[:shown]]
 
 
 def _flagged(codes, flag_values):

@@ -80,6 +80,10 @@ class InputError(ValueError):
     "the discharge table has no field 'flow' (file q.csv)"
     """
 
+    #: ``(what, field)`` when the error is a field missing from a layer or table (set by
+    #: ``discharge.require_columns``): the shells add the option or parameter that names it.
+    missing_field = None
+
     def __init__(self, message, *, file=None, field=None, gauge=None, row=None):
         self.message = one_line(message)
         self.file = file
@@ -99,6 +103,12 @@ class InputError(ValueError):
         if self.row is not None:
             where.append(f"row {self.row}")
         return f"{self.message} ({', '.join(where)})" if where else self.message
+
+    def extended(self, text) -> InputError:
+        """This error with ``text`` added to its message (returns itself)."""
+        self.message = one_line(self.message + text)
+        self.args = (self.__str__(),)
+        return self
 
     def located(self, *, file=None, field=None, gauge=None, row=None) -> InputError:
         """This error with the places it does not name yet filled in (returns itself).

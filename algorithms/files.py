@@ -55,6 +55,12 @@ def _existing(path, what):
         raise InputError(f"the {what} file does not exist", file=str(file_path))
     if file_path.is_dir() and file_path.suffix.lower() not in {".gdb"}:
         raise InputError(f"the {what} path is a folder, not a file", file=str(file_path))
+    if not file_path.is_dir() and not file_path.is_file():  # reading a pipe could wait forever
+        raise InputError(
+            f"the {what} path is not a regular file (a pipe, socket or device): save the data "
+            "to a file and give that",
+            file=str(file_path),
+        )
     if file_path.is_file():
         if not os.access(file_path, os.R_OK):
             raise InputError(f"the {what} file cannot be read (no permission)", file=str(file_path))
@@ -86,6 +92,26 @@ def _check_signature(file_path, what):
             f"the {what} file is not a {kind}, though its name ends in {file_path.suffix}",
             file=str(file_path),
         )
+    if file_path.suffix.lower() == ".shp":
+        _check_shapefile_length(file_path, what)
+
+
+def _check_shapefile_length(file_path, what):
+    """A clear error when a .shp file is shorter than its header says (a copy cut short):
+    GDAL would read the missing shapes as empty geometries without a word."""
+    with open(file_path, "rb") as handle:
+        header = handle.read(28)
+    if len(header) < 28:
+        stated = 100
+    else:
+        stated = 2 * int.from_bytes(header[24:28], "big")  # file length in 16-bit words
+    size = file_path.stat().st_size
+    if size < stated:
+        raise InputError(
+            f"the {what} file looks damaged: it holds {size:,} bytes where its header says "
+            f"{stated:,} (cut short while copying?)",
+            file=str(file_path),
+        )
 
 
 def read_layer(path, what="layer"):
@@ -102,7 +128,22 @@ def read_layer(path, what="layer"):
         frame = gpd.read_file(file_path, layer=layer) if layer else gpd.read_file(file_path)
     except Exception as exc:  # the readers raise many types; the user needs one sentence
         raise _layer_error(exc, file_path, layer, what) from None
+    if file_path.suffix.lower() == ".shp" and not _beside(file_path, ".dbf"):
+        from .discharge import NO_FIELDS_REASON
+
+        frame.attrs[NO_FIELDS_REASON] = (
+            f"its attribute file {file_path.stem}.dbf is missing beside the .shp"
+        )
     return frame
+
+
+def _beside(file_path, suffix):
+    """Whether a file of the same name with ``suffix`` (any letter case) lies beside it."""
+    wanted = (file_path.stem + suffix).lower()
+    try:
+        return any(p.name.lower() == wanted for p in file_path.parent.iterdir())
+    except OSError:
+        return True
 
 
 def _layer_error(exc, file_path, layer, what):
@@ -173,13 +214,48 @@ def read_table(path, what="discharge table"):
         frame = read_layer(path, what)
     except InputError:
         raise
+    except ImportError:  # pandas found no Parquet engine
+        raise InputError(_NO_PARQUET, file=str(file_path)) from None
     except Exception as exc:
-        raise InputError(
-            f"the {what} file could not be read: {_reason(exc, file_path)}", file=str(file_path)
-        ) from None
+        raise _text_error(exc, file_path, what) from None
     if "geometry" in frame.columns:
         frame = pd.DataFrame(frame.drop(columns="geometry"))
     return frame
+
+
+#: What to do when Parquet cannot be read: pyarrow is the one engine we use.
+_NO_PARQUET = (
+    "reading Parquet needs the Python package pyarrow: install it (pip install pyarrow; "
+    "on Debian and in QGIS's Python: apt install python3-pyarrow) or save the table as CSV"
+)
+
+
+def _text_error(exc, file_path, what):
+    """The InputError for a table the reader could not parse, in our words where we know the
+    fault (a row with more fields than the header, a quote never closed), with its line."""
+    text = _reason(exc, file_path)
+    more = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", text)
+    if more:
+        header, line, seen = (int(g) for g in more.groups())
+        if header == 1:
+            message = (
+                f"the {what} file has {seen} fields on line {line} where its first line has 1: "
+                "are there lines (a title, comments) before the header? remove them"
+            )
+        else:
+            message = (
+                f"the {what} file has {seen} fields on line {line} where its header has "
+                f"{header}: a value with the separator in it needs quotes"
+            )
+        return InputError(message, file=str(file_path))
+    quote = re.search(r"EOF inside string starting (?:at|on) (?:row|line) (\d+)", text)
+    if quote or "EOF inside string" in text or "unexpected end of data" in text:
+        where = f" on line {int(quote.group(1)) + 1}" if quote else ""
+        return InputError(
+            f'the {what} file has a quote{where} that is never closed (a stray " in a value?)',
+            file=str(file_path),
+        )
+    return InputError(f"the {what} file could not be read: {text}", file=str(file_path))
 
 
 #: Bytes looked at to tell a text table from a binary file and to find its encoding.
@@ -191,6 +267,9 @@ def _text_encoding(file_path, what):
     (Windows exports). A file holding NUL bytes is not text: a clear error says so."""
     with open(file_path, "rb") as handle:
         head = handle.read(_SNIFF_BYTES)
+    utf16 = _utf16(head)
+    if utf16:
+        return utf16
     if b"\x00" in head:
         raise InputError(
             f"the {what} file is not a text table (it holds binary data; is it another format "
@@ -203,6 +282,23 @@ def _text_encoding(file_path, what):
         if exc.start < len(head) - 4:  # not just a character cut at the end of the sample
             return "latin-1"
     return "utf-8-sig"
+
+
+def _utf16(head):
+    """``'utf-16'`` (with a byte-order mark), ``'utf-16-le'`` or ``'utf-16-be'`` when these
+    first bytes are UTF-16 text (Windows tools write it), else None."""
+    if head[:2] in (b"\xff\xfe", b"\xfe\xff"):
+        return "utf-16"
+    sample = head[: 1 << 12]
+    sample = sample[: len(sample) // 2 * 2]
+    if len(sample) < 4:
+        return None
+    even, odd = sample[0::2], sample[1::2]
+    if odd.count(0) == len(odd) and even.count(0) == 0:
+        return "utf-16-le"
+    if even.count(0) == len(even) and odd.count(0) == 0:
+        return "utf-16-be"
+    return None
 
 
 def _separator(file_path, encoding="utf-8-sig"):
@@ -280,20 +376,16 @@ def _parquet_groups(file_path, gauge_field, batches, what):
         import pyarrow as pa
         import pyarrow.parquet as pq
     except ImportError:
-        raise InputError(
-            "reading Parquet needs the Python package pyarrow", file=str(file_path)
-        ) from None
+        raise InputError(_NO_PARQUET, file=str(file_path)) from None
     try:
         schema = pq.ParquetFile(file_path).schema_arrow
     except Exception as exc:
         raise InputError(
             f"the {what} file could not be read: {_first_line(exc)}", file=str(file_path)
         ) from None
-    if gauge_field not in schema.names:
-        raise InputError(
-            f"the {what} has no field {quoted(gauge_field)}; fields found: {listed(schema.names)}",
-            file=str(file_path),
-        )
+    from .discharge import require_columns
+
+    require_columns(pd.DataFrame(columns=schema.names), [gauge_field], what, file=str(file_path))
     kind = schema.field(gauge_field).type
     found = False
     for batch in batches:
@@ -407,7 +499,7 @@ def _is_number(text):
 
 
 def _text_groups(file_path, gauge_field, batches, what, date_field=None):
-    from .discharge import gauge_id_text
+    from .discharge import gauge_id_text, require_columns
 
     group_of = {gid: i for i, batch in enumerate(batches) for gid in batch}
     encoding = _text_encoding(file_path, what)
@@ -426,12 +518,7 @@ def _text_groups(file_path, gauge_field, batches, what, date_field=None):
         )
         try:
             for chunk in reader:
-                if gauge_field not in chunk.columns:
-                    raise InputError(
-                        f"the {what} has no field {quoted(gauge_field)}; "
-                        f"fields found: {listed(chunk.columns)}",
-                        file=str(file_path),
-                    )
+                require_columns(chunk, [gauge_field], what, file=str(file_path))
                 groups = np.array(
                     [group_of.get(g, -1) for g in gauge_id_text(chunk[gauge_field].to_numpy())]
                 )
@@ -450,10 +537,7 @@ def _text_groups(file_path, gauge_field, batches, what, date_field=None):
             full = disk_full(exc, folder, f"splitting the {what} into gauge groups")
             if full is not None:
                 raise full from None
-            raise InputError(
-                f"the {what} file could not be read: {_reason(exc, file_path)}",
-                file=str(file_path),
-            ) from None
+            raise _text_error(exc, file_path, what) from None
         for group in range(len(batches)):
             if group in written:
                 _hand_back_memory()  # the previous group is let go by now

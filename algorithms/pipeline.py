@@ -8,6 +8,7 @@ gauge is :func:`gauge_hydrology`.
 
 from __future__ import annotations
 
+import itertools
 import math
 from dataclasses import dataclass, field, replace
 
@@ -17,7 +18,16 @@ import pandas as pd
 from . import annual as annual_mod
 from .baseflow import BFIMAX_TYPICAL, METHODS, baseflow_index, separate_baseflow
 from .basins import LINK_TOLERANCE_M, geodesic_area_km2, link_by_id, link_spatially, repair_polygons
-from .discharge import MIN_DAY_COVERAGE, GaugeRecord, gauge_id_text, require_columns, tidy_discharge
+from .discharge import (
+    MIN_DAY_COVERAGE,
+    MISSING_MARKERS,
+    NO_FIELDS_REASON,
+    GaugeRecord,
+    gauge_id_codes,
+    gauge_id_text,
+    require_columns,
+    tidy_discharge,
+)
 from .displacement import (
     EVENT_COLUMNS,
     CleanDays,
@@ -26,7 +36,7 @@ from .displacement import (
     event_columns,
     event_columns_at,
 )
-from .errors import InputError, counted, describe, quoted
+from .errors import InputError, counted, describe, listed, quoted
 from .nesting import OVERLAP_TOLERANCE, find_nesting, incremental_recharge
 from .recession import (
     MASTER_RECESSION_COLUMNS,
@@ -197,16 +207,20 @@ class Settings:
             raise InputError(
                 f"water year start was {self.water_year_start!r}; expected a month number 1 to 12"
             )
-        for name in ("recession_index_days", "runoff_end_lag_days"):
-            value = getattr(self, name)
-            if value is not None and not _positive(value):
-                raise InputError(
-                    f"{name.replace('_', ' ')} was {value!r}; expected a positive number of days"
-                )
-        min_days = _whole_number(self.min_segment_days)
-        if min_days is None or min_days < 2:
+        if self.recession_index_days is not None:
+            check_recession_index(self.recession_index_days)
+        lag = self.runoff_end_lag_days
+        if lag is not None and not (_positive(lag) and float(lag) <= MAX_RUNOFF_END_LAG_DAYS):
             raise InputError(
-                f"minimum segment length was {self.min_segment_days!r}; expected a whole number of days, 2 or more"
+                f"runoff end lag was {lag!r}; expected a number of days above 0 and at most "
+                f"{MAX_RUNOFF_END_LAG_DAYS:g} (runoff that lasts longer leaves no recession)"
+            )
+        min_days = _whole_number(self.min_segment_days)
+        if min_days is None or not 2 <= min_days <= MAX_SEGMENT_DAYS:
+            raise InputError(
+                f"minimum segment length was {self.min_segment_days!r}; expected a whole "
+                f"number of days from 2 to {MAX_SEGMENT_DAYS} (a fit needs two days; no "
+                "recession lasts a year without a rise)"
             )
         if self.baseflow_method not in METHODS:
             raise InputError(
@@ -284,6 +298,56 @@ class Settings:
         ):
             return "id"
         return "spatial"
+
+
+#: The recession indexes (days per log cycle) a run accepts when given: a tenfold fall within
+#: a day cannot be seen in daily means (and Tc = 0.2144 K would fall inside the peak's day), and
+#: one slower than ten years cannot be seen in any record (our own bounds; measured indexes of
+#: perennial streams lie well inside, commonly tens to a few hundred days).
+RECESSION_INDEX_RANGE = (1.0, 3650.0)
+#: The longest runoff-end lag (days) and shortest-segment setting a run accepts (our own bounds).
+MAX_RUNOFF_END_LAG_DAYS = 365.0
+MAX_SEGMENT_DAYS = 365
+
+
+def check_recession_index(value, **where) -> float:
+    """``value`` as a float when it is a recession index a run accepts
+    (:data:`RECESSION_INDEX_RANGE`); else :class:`InputError` saying the range and why,
+    located by ``where`` (``field=``, ``gauge=``)."""
+    low, high = RECESSION_INDEX_RANGE
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        number = math.nan
+    if not low <= number <= high:
+        shown = f"{number:g}" if math.isfinite(number) else quoted(value)
+        raise InputError(
+            f"recession index {shown} is outside {low:g} to {high:,.0f} days per log cycle: "
+            "a faster fall cannot be seen in daily means, a slower one in any record",
+            **where,
+        )
+    return number
+
+
+#: The settings that name a field, by the layer or table that must hold it.
+FIELD_SETTINGS = {
+    "gauges layer": ("gauge_id_field", "recession_index_field", "reported_area_field"),
+    "discharge table": ("discharge_gauge_field", "date_field", "value_field", "flag_field"),
+    "catchments layer": ("catchment_gauge_field",),
+    "subbasins layer": ("subbasin_id_field", "downstream_field"),
+}
+
+
+def field_setting(missing_field, settings) -> str | None:
+    """The :class:`Settings` attribute that named a field missing from a layer
+    (``InputError.missing_field``: what, field), or None when none did."""
+    if not missing_field or settings is None:
+        return None
+    what, name = missing_field
+    for attribute in FIELD_SETTINGS.get(what, ()):
+        if getattr(settings, attribute, None) == name:
+            return attribute
+    return None
 
 
 def _whole_number(value):
@@ -1251,6 +1315,16 @@ def record_notes(record: GaugeRecord) -> list:
             f"{counted(unreadable, 'row')} with a date that could not be read left out"
             + (f" (e.g. {quoted(example)})" if example else "")
         )
+    for key, words in (
+        ("stray_dates", "dated more than a century from the rest of the record"),
+        ("future_dates", "dated in the future"),
+    ):
+        if counts.get(key):
+            examples = counts.get(key.replace("dates", "date_examples")) or []
+            more = " …" if counts[key] > len(examples) else ""
+            notes.append(
+                f"{counted(counts[key], 'row')} {words} ({', '.join(examples)}{more}): a typo?"
+            )
     for value, count in counts.get("missing_value_codes", []):
         if count >= 2:
             notes.append(f"{value:g} used as a missing-value code on {count:,} rows (left out)")
@@ -1292,23 +1366,35 @@ def _given_recession_index(gauges, settings):
     """K per gauge from the gauges layer's field, when the settings name one."""
     if not settings.recession_index_field:
         return {}
-    require_columns(gauges, [settings.recession_index_field], "gauges layer")
     ids = gauge_id_text(gauges[settings.gauge_id_field].to_numpy())
-    values = pd.to_numeric(
-        pd.Series(gauges[settings.recession_index_field].to_numpy(), dtype=object), errors="coerce"
-    ).to_numpy(float)
+    values = _number_field(gauges, settings.recession_index_field, ids, "a recession index in days")
     given = {}
     for gid, value in zip(ids, values):
         if gid is None or not np.isfinite(value):
             continue
-        if value <= 0:
-            raise InputError(
-                f"recession index {value!r} is not a positive number of days",
-                field=settings.recession_index_field,
-                gauge=gid,
-            )
-        given[gid] = float(value)
+        given[gid] = check_recession_index(value, field=settings.recession_index_field, gauge=gid)
     return given
+
+
+def _number_field(gauges, field, ids, expected):
+    """A numeric field of the gauges layer as floats (NaN where empty). A value that is not
+    a number is an error naming the gauge: a text field given by mistake would otherwise be
+    ignored without a word."""
+    require_columns(gauges, [field], "gauges layer")
+    column = pd.Series(gauges[field].to_numpy(), dtype=object)
+    values = pd.to_numeric(column, errors="coerce").to_numpy(float)
+    text = column.astype(str).str.strip()
+    empty = column.isna().to_numpy() | text.str.lower().isin(MISSING_MARKERS).to_numpy()
+    wrong = np.flatnonzero(np.isnan(values) & ~empty)
+    if wrong.size:
+        first = int(wrong[0])
+        raise InputError(
+            f"the gauges layer's field holds {quoted(column.iloc[first])}, not a number "
+            f"({counted(wrong.size, 'feature')} so); expected {expected}, or an empty value",
+            field=field,
+            gauge=ids[first],
+        )
+    return values
 
 
 def _gauge_points(gauges, what="gauges"):
@@ -1325,11 +1411,8 @@ def _reported_area_notes(gauges, settings, areas_by_gauge):
     """Quality notes for gauges whose reported area differs from the computed one."""
     if not settings.reported_area_field:
         return {}
-    require_columns(gauges, [settings.reported_area_field], "gauges layer")
     ids = gauge_id_text(gauges[settings.gauge_id_field].to_numpy())
-    reported = pd.to_numeric(
-        pd.Series(gauges[settings.reported_area_field].to_numpy(), dtype=object), errors="coerce"
-    ).to_numpy(float)
+    reported = _number_field(gauges, settings.reported_area_field, ids, "an area in km²")
     notes = {}
     for gid, value in zip(ids, reported):
         area = areas_by_gauge.get(gid, np.nan)
@@ -1343,19 +1426,36 @@ def _reported_area_notes(gauges, settings, areas_by_gauge):
     return notes
 
 
-def _gauge_ids(gauges, settings):
+def _gauge_ids(gauges, settings, reporter=None):
+    """The gauges layer's ids, in order. A repeated id is an error (its flows could go to the
+    wrong catchment); features without an id are left out and counted in a caution."""
     require_columns(gauges, [settings.gauge_id_field], "gauges layer")
-    ids = [
-        g
-        for g in dict.fromkeys(gauge_id_text(gauges[settings.gauge_id_field].to_numpy()))
-        if g is not None
-    ]
+    codes, ids = gauge_id_codes(gauges[settings.gauge_id_field])
+    blank = np.flatnonzero(codes < 0)
+    if blank.size and ids and reporter is not None:
+        reporter.warning(
+            f"gauges layer: {counted(blank.size, 'feature')} without a gauge id in field "
+            f"{quoted(settings.gauge_id_field)} left out ({'row' if blank.size == 1 else 'rows'} "
+            f"{', '.join(map(str, blank[:5] + 1))}{' …' if blank.size > 5 else ''})"
+        )
+    named = codes[codes >= 0]
+    repeated = np.flatnonzero(np.bincount(named, minlength=len(ids)) > 1) if named.size else []
+    if len(repeated):
+        rows = np.flatnonzero(codes == repeated[0]) + 1
+        raise InputError(
+            f"the gauges layer has gauge id {quoted(ids[repeated[0]])} on "
+            f"{counted(len(rows), 'feature')} (rows {', '.join(map(str, rows[:5]))}"
+            f"{' …' if len(rows) > 5 else ''}): each gauge needs an id of its own, or its flows "
+            "could go to the wrong catchment"
+            + (f" ({counted(len(repeated), 'id')} repeated)" if len(repeated) > 1 else ""),
+            field=settings.gauge_id_field,
+        )
     if not ids:
         raise InputError("the gauges layer holds no gauge ids", field=settings.gauge_id_field)
     return ids
 
 
-def _records(discharge, settings):
+def _records(discharge, settings, left_out=None):
     return tidy_discharge(
         discharge,
         gauge_field=settings.discharge_gauge_field,
@@ -1365,6 +1465,7 @@ def _records(discharge, settings):
         flag_field=settings.flag_field,
         flag_values=settings.flag_values,
         min_day_coverage=settings.min_day_coverage,
+        left_out=left_out,
     )
 
 
@@ -1395,6 +1496,16 @@ def _link_basins(
     method = settings.link_method(list(catchments.columns))
     if method == "id":
         require_columns(catchments, [settings.catchment_gauge_field], "catchments layer")
+    elif settings.link == "auto":  # chosen because the id field is absent: say so
+        found = [c for c in catchments.columns if c != catchments.geometry.name]
+        why = getattr(catchments, "attrs", {}).get(NO_FIELDS_REASON)
+        reporter.warning(
+            f"the catchments layer has no field {quoted(settings.catchment_gauge_field)}"
+            + (f" ({why})" if why else f" (fields found: {listed(found)})")
+            + ": gauges are linked to catchments by location instead (a gauge at a "
+            "catchment's outlet); name the id field with --catchment-gauge-field / "
+            "CATCHMENT_GAUGE_FIELD, or choose --link spatial / LINK"
+        )
     if not len(catchments):
         raise InputError("the catchments layer has no features")
     geometry, repairs = repair_polygons(catchments.geometry)
@@ -1445,6 +1556,13 @@ def _link_basins(
     return _Basins(
         geometry, repairs, areas, links, find_nesting(basins, settings.overlap_tolerance)
     )
+
+
+def _linked_how(method, settings):
+    """How gauges were linked to catchments, in words for the run's summary."""
+    if method == "id":
+        return f"by the id field {quoted(settings.catchment_gauge_field)}"
+    return "by location (each gauge at its catchment's outlet), not by an id field"
 
 
 def _kind_of(geometry):
@@ -1618,7 +1736,7 @@ def compute_gauges(
             done += 1
         reporter.progress(done, total, gauge_ids[done] if done < total else None)
     unknown = sorted(set(records) - set(gauge_ids))
-    if unknown:
+    if unknown and any(gid in records for gid in gauge_ids):  # else the run stops: one error
         shown = ", ".join(unknown[:5]) + (" …" if len(unknown) > 5 else "")
         reporter.warning(f"{len(unknown)} gauge ids in the discharge table match no gauge: {shown}")
     return results, failed
@@ -1658,8 +1776,16 @@ def _compute_in_groups(
     results: dict[str, GaugeResult] = {}
     failed = 0
     tally = _Tally()
+    grouped = not isinstance(discharge, pd.DataFrame)
+    tally.grouped = grouped
     for chunk in chunks:
-        records = _records(chunk, settings)
+        try:
+            records = _records(chunk, settings, tally.left_out)
+        except InputError as exc:
+            if grouped and exc.row is not None:  # a row of the group, not of the file
+                exc.row = None
+                exc.args = (str(exc),)
+            raise
         tally.add(len(chunk), records, wanted)
         del chunk  # the records hold the group's flows now; its table is not needed
         here = [gid for gid in gauge_ids if gid in records and gid not in results]
@@ -1694,7 +1820,8 @@ def _compute_in_groups(
         results.update(rest)
     if not tally.rows:
         raise InputError("the discharge table has no rows")
-    tally.report(reporter)
+    if tally.matched or not tally.unmatched:  # else the run stops with one error
+        tally.report(reporter)
     return {gid: results[gid] for gid in gauge_ids}, failed, tally
 
 
@@ -1738,6 +1865,8 @@ class _Tally:
         self.unmatched = []
         self.matched = 0
         self.order = None
+        self.left_out = {}
+        self.grouped = False
 
     def add(self, rows, records, wanted):
         self.rows += int(rows)
@@ -1752,6 +1881,12 @@ class _Tally:
 
     def report(self, reporter):
         parts = [f"{self.totals[name]:,} {text}" for name, text in self.COUNTS if self.totals[name]]
+        if self.left_out.get("rows_without_id"):
+            reporter.warning(
+                f"discharge table: {counted(self.left_out['rows_without_id'], 'row')} without "
+                "a gauge id left out"
+                + ("" if self.grouped else f" (the first: row {self.left_out['row_without_id']})")
+            )
         if self.order:
             parts.append(f"dates with the year last read {self.order}")
         if parts:
@@ -1787,6 +1922,7 @@ def _summary(results, failed, tally=None):
                 "with_record": tally.matched,
                 "unmatched": len(tally.unmatched),
                 "unmatched_ids": tally.unmatched[:5],
+                "unmatched_all": tally.unmatched[:10_000],
             }
         )
     return summary
@@ -1825,27 +1961,67 @@ def require_records(result: AtlasResult) -> None:
     almost always a wrong field, or a gauge id written differently in the two files (``0123``
     and ``123``).
     """
-    summary = result.summary
-    settings = result.settings
+    problem = _records_problem(result.summary, result.gauges, result.settings)
+    if problem is not None:
+        raise problem
+
+
+def _records_problem(summary, gauges, settings):
+    """The :class:`InputError` :func:`require_records` raises for a run, or None. The runs
+    check it before their per-gauge cautions: when the run is going to stop, the error is
+    said alone, not after a caution for every gauge."""
     if summary.get("with_record") and not summary.get("computed") and not summary.get("failed"):
-        raise InputError(
+        return InputError(
             "no gauge has a usable discharge value: the field is empty (or holds only missing "
             "values) in every row",
             field=settings.value_field if settings is not None else None,
         )
     if summary.get("with_record", 1) or not summary.get("gauges"):
-        return
+        return None
     if summary.get("unmatched"):
         theirs = _some(summary["unmatched_ids"], summary["unmatched"])
-        ours = _some(list(result.gauges), len(result.gauges))
+        ours = _some(list(gauges), len(gauges))
         message = (
             f"no gauge id of the discharge table matches the gauges layer: "
             f"the table has {theirs}, the layer {ours}"
-        )
+        ) + _id_hint(summary.get("unmatched_all", summary["unmatched_ids"]), list(gauges))
     else:
         message = "the discharge table holds no row with a gauge id and a readable date"
     field = settings.discharge_gauge_field if settings is not None else None
-    raise InputError(message, field=field)
+    return InputError(message, field=field)
+
+
+#: Ways two spellings of one gauge id commonly differ, and how to make them alike.
+_ID_DIFFERENCES = (
+    ("leading zeros", lambda text: text.lstrip("0") or "0"),
+    ("letter case", str.casefold),
+    ("spaces", lambda text: "".join(text.split())),
+)
+
+
+def _id_hint(theirs, ours) -> str:
+    """``'; they match when leading zeros are ignored (...)'`` when ignoring one or more of
+    :data:`_ID_DIFFERENCES` makes some ids of the two sides meet; empty otherwise."""
+    ours = [str(g) for g in ours]
+    theirs = [str(g) for g in theirs]
+    for size in (1, 2, 3):
+        for chosen in itertools.combinations(_ID_DIFFERENCES, size):
+
+            def alike(text, chosen=chosen):
+                for _, change in chosen:
+                    text = change(text)
+                return text
+
+            if {alike(g) for g in ours} & {alike(g) for g in theirs}:
+                words = " and ".join(name for name, _ in chosen)
+                advice = (
+                    "; ids read as numbers lose their leading zeros: keep the column as text"
+                    if chosen[0][0] == "leading zeros"
+                    else ""
+                )
+                verb = "is" if words == "letter case" else "are"
+                return f"; some match when {words} {verb} ignored{advice}"
+    return ""
 
 
 def _summary_text(summary):
@@ -1899,7 +2075,7 @@ def run_atlas(
     """
     settings = (settings or Settings()).resolved()
     reporter = reporter or Reporter()
-    gauge_ids = _gauge_ids(gauges, settings)
+    gauge_ids = _gauge_ids(gauges, settings, reporter)
     given_k = _given_recession_index(gauges, settings)
     basins = _link_basins(gauges, gauge_ids, catchments, settings, reporter)
     links, nesting = basins.links, basins.nesting
@@ -1938,10 +2114,6 @@ def run_atlas(
         on=["gauge_id", "water_year"],
         how="left",
     )
-    for gid, result in results.items():
-        if result.quality:
-            reporter.warning(f"gauge {gid}: {result.quality_text}")
-
     out = _catchment_layer(catchments, basins, results, settings, incremental)
     summary = _summary(results, failed, tally)
     summary.update(
@@ -1952,11 +2124,16 @@ def run_atlas(
             "linked": len(links.catchment_of),
         }
     )
-    reporter.info(
-        f"{_summary_text(summary)}; "
-        f"{len(links.catchment_of)} linked to catchments ({links.method}); "
-        f"{len(links.without_gauge)} catchments without a gauge"
-    )
+    if _records_problem(summary, results, settings) is None:  # else one error says it all
+        for gid, result in results.items():
+            if result.quality:
+                reporter.warning(f"gauge {gid}: {result.quality_text}")
+        reporter.info(
+            f"{_summary_text(summary)}; "
+            f"{len(links.catchment_of)} linked to catchments "
+            f"{_linked_how(links.method, settings)}; "
+            f"{len(links.without_gauge)} catchments without a gauge"
+        )
     if summary["plausibility"]:
         reporter.warning(summary["plausibility"])
     names = catchments["name"].tolist() if "name" in catchments.columns else None
@@ -1995,7 +2172,7 @@ def run_gauges(
     """
     settings = (settings or Settings()).resolved()
     reporter = reporter or Reporter()
-    gauge_ids = _gauge_ids(gauges, settings)
+    gauge_ids = _gauge_ids(gauges, settings, reporter)
     given_k = _given_recession_index(gauges, settings)
     area_of = {}
     if area_field:
@@ -2010,11 +2187,12 @@ def run_gauges(
     results, failed, tally = _compute_in_groups(
         discharge, gauge_ids, area_of, settings, reporter, given_k, None, keep_series, table_sink
     )
-    for gid, result in results.items():
-        if result.quality:
-            reporter.warning(f"gauge {gid}: {result.quality_text}")
     summary = _summary(results, failed, tally)
-    reporter.info(_summary_text(summary))
+    if _records_problem(summary, results, settings) is None:  # else one error says it all
+        for gid, result in results.items():
+            if result.quality:
+                reporter.warning(f"gauge {gid}: {result.quality_text}")
+        reporter.info(_summary_text(summary))
     if summary["plausibility"]:
         reporter.warning(summary["plausibility"])
     return AtlasResult(
@@ -2047,7 +2225,7 @@ def check_links(
     """
     settings = (settings or Settings()).resolved()
     reporter = reporter or Reporter()
-    gauge_ids = _gauge_ids(gauges, settings)
+    gauge_ids = _gauge_ids(gauges, settings, reporter)
     basins = _link_basins(gauges, gauge_ids, catchments, settings, reporter, report_progress=True)
     area_of = basins.area_of()
     placeholders = {gid: GaugeResult(gid, area) for gid, area in area_of.items()}

@@ -220,7 +220,7 @@ def test_method_options_reach_the_outputs(tmp_path, sample_paths):
     [
         ("--bfi-max", "1.5", "BFImax was 1.5"),
         ("--min-segment-days", "1", "minimum segment length"),
-        ("--recession-index", "-3", "recession index days was -3.0"),
+        ("--recession-index", "-3", "recession index -3 is outside 1 to 3,650 days"),
         ("--min-day-coverage", "2", "minimum day coverage was 2.0"),
         ("--flag-field", "quality_code", "no field 'quality_code'"),
     ],

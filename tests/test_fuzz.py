@@ -15,6 +15,7 @@ computation (flagged for users, but worth a minimal example).
 
 from __future__ import annotations
 
+import datetime as dt
 import os
 
 import geopandas as gpd
@@ -32,9 +33,16 @@ from shapely.geometry import (
     box,
 )
 
-from recharge_atlas.algorithms.discharge import read_dates, tidy_discharge
+from recharge_atlas.algorithms.discharge import FIRST_YEAR, LAST_YEAR, read_dates, tidy_discharge
 from recharge_atlas.algorithms.errors import InputError
-from recharge_atlas.algorithms.pipeline import Settings, run_atlas, run_gauges
+from recharge_atlas.algorithms.pipeline import (
+    MAX_RUNOFF_END_LAG_DAYS,
+    MAX_SEGMENT_DAYS,
+    RECESSION_INDEX_RANGE,
+    Settings,
+    run_atlas,
+    run_gauges,
+)
 
 #: Multiplies every example count; above 1 the examples are drawn afresh on each run.
 SCALE = float(os.environ.get("RECHARGE_ATLAS_FUZZ", "1"))
@@ -326,6 +334,60 @@ def test_date_reader_reads_every_written_form(day, form):
     text = pd.Timestamp(day).strftime(form)
     reading = read_dates(pd.Series([text, "2020-01-31"], dtype=object))
     assert reading.stamps[0] == np.datetime64(pd.Timestamp(day).date(), "ns"), text
+
+
+_MONTHS = "Jan Feb Mar Apr May Jun Jul Aug Sep Oct Nov Dec".split()
+_FORMS = {
+    "iso": lambda d: f"{d.year:04d}-{d.month:02d}-{d.day:02d}",
+    "slashes": lambda d: f"{d.year:04d}/{d.month:02d}/{d.day:02d}",
+    "compact": lambda d: f"{d.year:04d}{d.month:02d}{d.day:02d}",
+    "time": lambda d: f"{d.year:04d}-{d.month:02d}-{d.day:02d} 06:15",
+    "day first": lambda d: f"{d.day:02d}/{d.month:02d}/{d.year:04d}",
+    "month name": lambda d: f"{d.day} {_MONTHS[d.month - 1]} {d.year:04d}",
+    "typed": lambda d: d,
+}
+
+
+@fuzz(300)
+@given(
+    st.dates(min_value=dt.date(1000, 1, 1), max_value=dt.date(9999, 12, 31)),
+    st.sampled_from(sorted(_FORMS)),
+)
+def test_no_date_is_ever_read_as_another(day, form):
+    """Issue 14: a date outside the years a record holds (1678-2261) wrapped around by about
+    584 years. Any real date is now either read as itself or marked out of range."""
+    value = _FORMS[form](day)
+    reading = read_dates(pd.Series([value, "31/01/2020" if form == "day first" else "2020-01-31"],
+                                   dtype=object))  # fmt: skip
+    if FIRST_YEAR <= day.year <= LAST_YEAR:
+        assert reading.stamps[0].astype("datetime64[D]") == np.datetime64(day, "D"), value
+        assert not reading.out_of_range[0]
+    else:
+        assert reading.out_of_range[0], value
+        assert np.isnat(reading.stamps[0]), value
+    assert reading.stamps[1] == np.datetime64("2020-01-31", "ns")
+
+
+@fuzz(200)
+@given(
+    st.sampled_from(["recession_index_days", "runoff_end_lag_days", "min_segment_days"]),
+    st.one_of(st.floats(allow_nan=True, allow_infinity=True), st.integers(-10, 10**6)),
+)
+def test_numeric_settings_are_checked_or_taken(name, value):
+    """Issue 14: --recession-index 0.001 was taken, and every gauge failed inside. A value is
+    refused (InputError) or it lies in the range the settings state."""
+    try:
+        resolved = Settings(**{name: value}).resolved()
+    except InputError as exc:
+        assert "expected" in str(exc) or "outside" in str(exc), str(exc)
+        return
+    taken = float(getattr(resolved, name))
+    low, high = {
+        "recession_index_days": RECESSION_INDEX_RANGE,
+        "runoff_end_lag_days": (0.0, MAX_RUNOFF_END_LAG_DAYS),
+        "min_segment_days": (2, MAX_SEGMENT_DAYS),
+    }[name]
+    assert low <= taken <= high, (name, value)
 
 
 @fuzz(300)

@@ -227,7 +227,7 @@ CHECKS = [
     ("BFImax text", {"BFI_MAX": "high"}, False, ["'high'", "(BFI_MAX)"]),
     ("segments of 1 day", {"MIN_SEGMENT_DAYS": 1}, False, ["was 1", "(MIN_SEGMENT_DAYS)"]),
     ("segments of 7.5 days", {"MIN_SEGMENT_DAYS": 7.5}, False, ["(MIN_SEGMENT_DAYS)"]),
-    ("negative K", {"RECESSION_INDEX": -3}, False, ["was -3", "(RECESSION_INDEX)"]),
+    ("negative K", {"RECESSION_INDEX": -3}, False, ["-3 is outside", "(RECESSION_INDEX)"]),
     ("zero K", {"RECESSION_INDEX": 0}, False, ["(RECESSION_INDEX)"]),
     ("negative lag", {"RUNOFF_END_LAG": -1}, False, ["(RUNOFF_END_LAG)"]),
     (
@@ -277,7 +277,7 @@ def test_negative_recession_index_in_the_field_is_named(qgis_app, tmp_path_facto
     with pytest.raises(QgsProcessingException) as caught:
         processing.run(ALGORITHM, parameters, feedback=QgsProcessingFeedback())
     message = str(caught.value)
-    for words in ("recession index -5", "not a positive number", "'k_days'", "gauge QM02"):
+    for words in ("recession index -5", "is outside 1 to 3,650 days", "'k_days'", "gauge QM02"):
         assert words in message
     assert "Traceback" not in message
     assert list(out.iterdir()) == []

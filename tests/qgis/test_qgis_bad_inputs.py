@@ -30,6 +30,8 @@ from recharge_atlas.cli import main  # noqa: E402
 
 ALGORITHM = "recharge_atlas:catchmentrecharge"
 _WHERE = re.compile(r" \((?:(?:file|field|gauge) [^()]*|row \d+|[A-Z_]+)\)$")
+#: The command line names the option that gave a missing field; QGIS names the parameter.
+_OPTION = re.compile(r"; name the right field with --[a-z-]+")
 
 
 def _core(text: str) -> str:
@@ -37,7 +39,7 @@ def _core(text: str) -> str:
     text = text.strip().removeprefix("recharge-atlas: error: ")
     while _WHERE.search(text):
         text = _WHERE.sub("", text)
-    return text
+    return _OPTION.sub("", text)
 
 
 @pytest.fixture(scope="module")
@@ -116,6 +118,7 @@ def test_missing_field_same_words(copy, tmp_path, capsys):
     message = _core(_cli_error(err))
     assert message.startswith("the discharge table has no field 'flow'; fields found:")
     assert message in qgis and "VALUE_FIELD" in qgis
+    assert "; name the right field with --value-field" in _cli_error(err)
     assert list((tmp_path / "out").iterdir()) == []
 
 

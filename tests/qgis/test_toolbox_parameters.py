@@ -243,7 +243,7 @@ CHECKS = [
     ("baseflowseparation", "zero K", {"RECESSION_INDEX": 0}, False, ["(RECESSION_INDEX)"]),
     ("eventrecharge", "the defaults", {}, True, []),
     ("eventrecharge", "month 13", {"WATER_YEAR_START": 13}, False, ["(WATER_YEAR_START)"]),
-    ("eventrecharge", "negative K", {"RECESSION_INDEX": -3}, False, ["was -3"]),
+    ("eventrecharge", "negative K", {"RECESSION_INDEX": -3}, False, ["-3 is outside"]),
     ("eventrecharge", "no event table", {"EVENTS": None}, False, []),
     ("linkcheck", "the defaults", {}, True, []),
     ("linkcheck", "by location", {"LINK": "spatial"}, True, []),
