@@ -748,7 +748,7 @@ def _demo(args, parser=None):
         provenance=provenance,
     )
     print(
-        f"Results: {gpkg} (layers catchments, incremental_areas; tables annual, events, periods, segments, master_recession, links)"
+        f"Results: {gpkg} (layers catchments, incremental_areas; tables annual, events, periods, segments, master_recession, links, run; opens styled in QGIS)"
     )
     print(f"Map:     {png} (and one map per water year: {years_png})")
     print(f"Report:  {html}")
