@@ -63,6 +63,7 @@ ANNUAL_COLUMNS = [
     "events",
     "events_skipped",
     "all_events_measured",
+    "recharge_between_events_mm",
 ]
 
 #: Columns of the table of months or seasons.
@@ -409,6 +410,7 @@ def annual_columns(
     events_high=None,
     flagged=None,
     reading_error=None,
+    between_events=None,
 ) -> ColumnTable:
     """:func:`annual_recharge` as columns, for flows ``q`` on the days ``days`` (datetime64[D]).
 
@@ -418,6 +420,9 @@ def annual_columns(
     ``used``, ``systematic_m3``, ``spread_m3`` per event, from
     :func:`recession.reading_error`) joins the reading error of each year's events to the
     band ``recharge_low_mm``–``recharge_high_mm`` (see :func:`recharge_band`).
+    ``between_events`` (``date`` and ``recharge_m3``, from
+    :func:`displacement.recession_rises`) gives ``recharge_between_events_mm``, summed in the
+    water year of each date (0 in a year without a pair, NaN when it is not given).
     """
     start_month = _check_month(start_month)
     if len(days) == 0:
@@ -481,6 +486,14 @@ def annual_columns(
         if k is not None and baseflow is not None
         else nan
     )
+    between = nan
+    if between_events is not None:
+        dates = np.asarray(between_events["date"]).astype("datetime64[D]")
+        where = (_water_year_of_days(dates, start_month) - first_year).astype(np.intp)
+        inside = (where >= 0) & (where < n)
+        between = np.bincount(
+            where[inside], weights=np.asarray(between_events["recharge_m3"])[inside], minlength=n
+        )
     recharge_mm = _mm(recharge, area_km2)
     baseflow_mm = _mm(base_m3, area_km2)
     storage_mm = _mm(storage, area_km2)
@@ -506,6 +519,7 @@ def annual_columns(
             "events": n_events.astype(np.int64),
             "events_skipped": skipped.astype(np.int64),
             "all_events_measured": complete & (skipped == 0),
+            "recharge_between_events_mm": _mm(between, area_km2),
         },
         ANNUAL_COLUMNS,
     )

@@ -35,6 +35,7 @@ from .displacement import (
     compose_events,
     event_columns,
     event_columns_at,
+    recession_rises,
 )
 from .errors import InputError, counted, describe, listed, quoted
 from .nesting import OVERLAP_TOLERANCE, find_nesting, incremental_recharge
@@ -86,6 +87,7 @@ CATCHMENT_FIELDS = [
     "quality",
     "recharge_mm_per_year_fully_measured",
     "fully_measured_years",
+    "recharge_between_events_mm_per_year",
 ]
 
 #: Fields the gauge table has besides the catchment ones.
@@ -427,6 +429,9 @@ class GaugeResult:
         Mean over the complete years whose events were all measured (``fully_measured_years``
         of them).
     fully_measured_years : int
+    recharge_between_events_mm_per_year : float
+        Mean over the complete years of the rises of the recession between measured events
+        (:func:`displacement.recession_rises`): a lower-bound term beside the recharge.
     quality : list of str
         Problems in words; empty when all is well.
     implausible : list of str
@@ -453,6 +458,7 @@ class GaugeResult:
     quality: list = field(default_factory=list)
     recharge_mm_per_year_fully_measured: float = np.nan
     fully_measured_years: int = 0
+    recharge_between_events_mm_per_year: float = np.nan
     #: :meth:`event_figures`, kept when the events table itself went to a table sink.
     kept_event_figures: dict | None = field(default=None, repr=False)
     implausible: list = field(default_factory=list)
@@ -821,6 +827,8 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
         events_high=events_high,
         flagged=flagged if flagged.any() else None,
         reading_error=reading,
+        # Small rises the events did not measure: a term beside the recharge, not in it.
+        between_events=recession_rises(event_table, x, day0, k) if np.isfinite(k) else None,
     )
     periods = annual_mod.period_columns(
         days,
@@ -859,6 +867,7 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
         )
     )
     result.baseflow_mm_per_year = mean(annual, "baseflow_mm")
+    result.recharge_between_events_mm_per_year = mean(annual, "recharge_between_events_mm")
     result.seasonal_recharge_mm_per_year = mean(annual, "seasonal_recharge_mm")
     quality.extend(_record_quality(record, result, settings))
     return result
@@ -945,6 +954,7 @@ def _record_quality(record: GaugeRecord, result: GaugeResult, settings: Settings
             f"only {result.complete_years} complete water years (fewer than {settings.min_complete_years})"
         )
     notes.extend(_fair_sample_notes(record, result))
+    notes.extend(between_events_notes(result))
     events = result.table("events")
     used = int(np.sum(events["used"])) if len(events) else 0
     if len(events):
@@ -966,6 +976,33 @@ def _record_quality(record: GaugeRecord, result: GaugeResult, settings: Settings
             "the method suits baseflow-dominated streams"
         )
     return notes
+
+
+#: The rises of the recession between measured events, as a share of the recharge, beyond
+#: which a gauge is flagged (our own rule: on invented records where the method's assumptions
+#: hold they stay within ±2 %; a term this size puts the recharge off by more than its band).
+BETWEEN_EVENTS_SHARE = 0.10
+
+
+def between_events_notes(result: GaugeResult):
+    """A caution when the recession rises (or falls) between measured events by more than
+    :data:`BETWEEN_EVENTS_SHARE` of the recharge."""
+    term, recharge = result.recharge_between_events_mm_per_year, result.recharge_mm_per_year
+    if not (np.isfinite(term) and np.isfinite(recharge) and recharge > 0):
+        return []
+    share = term / recharge
+    if share > BETWEEN_EVENTS_SHARE:
+        return [
+            f"the recession rises between events by about {term:.0f} mm/yr ({100 * share:.0f}% "
+            "of the recharge) that no event measured: storms too small to count as events; "
+            "the recharge is likely low by at least that much"
+        ]
+    if share < -BETWEEN_EVENTS_SHARE:
+        return [
+            f"the recession falls faster than K between events (about {-term:.0f} mm/yr, "
+            f"{-100 * share:.0f}% of the recharge): flow lost from the stream, or K too long"
+        ]
+    return []
 
 
 #: A river's mean annual flow depth (mean flow volume over the drainage area) lies in this
@@ -2372,6 +2409,9 @@ def _catchment_values(result: GaugeResult | None, area):
         if result
         else np.nan,
         "fully_measured_years": result.fully_measured_years if result else 0,
+        "recharge_between_events_mm_per_year": result.recharge_between_events_mm_per_year
+        if result
+        else np.nan,
     }
 
 

@@ -1022,6 +1022,9 @@ def _facts_html(g):
                 f"({g.fully_measured_years} years)",
             )
         )
+    between = getattr(g, "recharge_between_events_mm_per_year", np.nan)
+    if np.isfinite(between):
+        facts.append(("Rise between events, not in the recharge", f"{_fmt(between, 1)} mm/yr"))
     facts.append(("Baseflow index", _fmt(g.baseflow_index, 2)))
     facts.append(("Complete water years", str(g.complete_years)))
     if len(g.events):

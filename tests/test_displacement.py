@@ -198,3 +198,72 @@ def test_averaged_anchor_equals_the_day_on_an_exact_recession():
     # The old background and the first pulse's late recession are both on K by day 299.
     expected = flow.iloc[start] * 10 ** (-(tc_day - start) / k)
     assert row["q_before_m3s"] == pytest.approx(expected, rel=2e-3)
+
+
+# ---------------------------------------------------------------- rises between measured events
+
+
+def _between(flow, k, threshold):
+    from recharge_atlas.algorithms.displacement import recession_rises
+
+    events = _events(flow, k, threshold)
+    x = log_flow(flow)
+    found = recession_rises(events, x, np.datetime64(flow.index[0].date()), k)
+    return events, found
+
+
+def test_rise_between_events_follows_rorabaugh_formula():
+    """R = 2 ΔQ K / ln 10 (Rorabaugh 1964), ΔQ the gain over the recession carried along K,
+    valued at Tc after the day the gain was half made."""
+    from recharge_atlas.algorithms.displacement import recession_rises
+
+    k, q0 = 40.0, 5.0
+    days = np.arange(200)
+    q = q0 * 10.0 ** (-days / k)
+    q[100:] *= 1.1  # a pure late-time displacement of 10 % on day 100
+    events = {
+        "used": np.array([True, True]),
+        "post_anchor_date": np.array(["2001-01-11", "2001-07-01"], "datetime64[D]"),
+        "post_anchor_m3s": np.array([q[10], np.nan]),
+        "pre_anchor_date": np.array(["2000-12-01", "2001-06-10"], "datetime64[D]"),
+        "pre_anchor_m3s": np.array([np.nan, q[160]]),
+    }
+    found = recession_rises(events, np.log10(q), np.datetime64("2001-01-01"), k)
+    gain_at_b = q[160] - q[10] * 10 ** (-150 / k)
+    assert gain_at_b == pytest.approx(0.1 * q0 * 10 ** (-160 / k) / 1.1 * 1.1, rel=1e-9)
+    valued = gain_at_b * 10 ** ((160 - 100 - 0.2144 * k) / k)
+    expected = 2 * valued * 86400 * k / np.log(10)
+    assert found["date"].tolist() == [np.datetime64("2001-06-10")]
+    assert found["recharge_m3"][0] == pytest.approx(expected, rel=1e-3)
+
+
+@pytest.mark.parametrize("k", [20.0, 45.0, 90.0])
+def test_small_pulse_between_events_is_recovered_and_not_high(k):
+    # Analytic strip aquifer (Rorabaugh 1960; Glover 1964): two events the run measures and a
+    # pulse between them below the rise threshold. The term finds most of it and not more.
+    day = 20 + int(2.5 * k)
+    before = _hydrograph(k, {20: 60.0}, days=900)
+    mm_per_day = before.iloc[day] * 86400 / (AREA_KM2 * 1e3)
+    small = 0.15 * mm_per_day * k / (0.81 * np.log(10))  # lifts the late recession by ~15 %
+    flow = _hydrograph(k, {20: 60.0, day: small, 20 + 5 * int(k): 50.0}, days=900)
+    events, found = _between(flow, k, threshold=0.2)
+    assert len(events) == 2 and events["used"].all()
+    true_m3 = small * AREA_KM2 * 1e3
+    assert found["recharge_m3"].size == 1
+    assert 0.85 * true_m3 <= found["recharge_m3"][0] <= 1.03 * true_m3
+
+
+def test_pure_recession_between_events_gains_nothing():
+    k = 45.0
+    flow = _hydrograph(k, {20: 60.0, 300: 50.0})
+    events, found = _between(flow, k, threshold=0.01)
+    assert found["recharge_m3"].size == 1
+    assert abs(found["recharge_m3"][0]) < 0.01 * 50.0 * AREA_KM2 * 1e3
+
+
+def test_rise_between_events_across_a_gap_is_left_to_the_events():
+    k = 45.0
+    flow = _hydrograph(k, {20: 60.0, 150: 5.0, 300: 50.0})
+    flow.iloc[140:160] = np.nan
+    _, found = _between(flow, k, threshold=0.2)
+    assert found["recharge_m3"].size == 0
