@@ -719,38 +719,8 @@ def recharge_map(
         for gid, value in zip(layer["gauge_id"][outer], values[outer]):
             if gid is not None and np.isfinite(value):
                 whole[str(gid)] = f"{value:,.{digits}f} {units}".strip()
-    halo = _label_halo()
-    if points is not None and len(points):
-        points.plot(ax=ax, color=GAUGE_COLOUR, marker="^", markersize=40, zorder=5)
-        if "gauge_id" in points.columns:
-            for geom, label in zip(points.geometry, points["gauge_id"]):
-                text = str(label)
-                if text in whole:
-                    text += f"\nwhole basin {whole[text]}"
-                ax.annotate(
-                    text,
-                    (geom.x, geom.y),
-                    xytext=(4, 4),
-                    textcoords="offset points",
-                    fontsize=8,
-                    zorder=6,
-                    path_effects=halo,
-                )
-    if len(layer) <= 40:  # short labels on grey basins; a legend entry says the same
-        for geom, reason in zip(layer.geometry, reasons):
-            if reason and geom is not None and not geom.is_empty:
-                spot = geom.representative_point()
-                ax.text(
-                    spot.x,
-                    spot.y,
-                    reason.split(" (")[0],
-                    ha="center",
-                    va="center",
-                    fontsize=7,
-                    color="#333333",
-                    zorder=6,
-                    path_effects=halo,
-                )
+    _draw_gauges(ax, points, {gid: f"whole basin {text}" for gid, text in whole.items()})
+    _reason_labels(ax, layer, reasons)
     handles = [
         Patch(facecolor=palette[i], edgecolor=EDGE_COLOUR, label=label)
         for i, label in enumerate(class_labels(breaks) if breaks.size >= 2 else [])
@@ -784,9 +754,65 @@ def recharge_map(
             frameon=False,
         )
     ax.set_title(title or _default_title(field, units, mode))
+    _finish_map(
+        ax,
+        layer,
+        catchments.crs,
+        [_colour_note(field, mode, "estimate_source" in layer.columns)],
+        f"Classes: {scheme.replace('_', ' ')}, limits rounded to 2 significant figures.",
+    )
+    return figure
+
+
+def _draw_gauges(ax, points, extra=None):
+    """Gauges as red triangles labelled with their id (and ``extra[id]`` on a second line)."""
+    if points is None or not len(points):
+        return
+    points.plot(ax=ax, color=GAUGE_COLOUR, marker="^", markersize=40, zorder=5)
+    if "gauge_id" not in points.columns:
+        return
+    halo = _label_halo()
+    for geom, label in zip(points.geometry, points["gauge_id"]):
+        text = str(label)
+        if extra and text in extra:
+            text += f"\n{extra[text]}"
+        ax.annotate(
+            text,
+            (geom.x, geom.y),
+            xytext=(4, 4),
+            textcoords="offset points",
+            fontsize=8,
+            zorder=6,
+            path_effects=halo,
+        )
+
+
+def _reason_labels(ax, layer, reasons, most=40):
+    """Short labels on grey basins saying why (up to ``most`` basins; the legend says it too)."""
+    if len(layer) > most:
+        return
+    halo = _label_halo()
+    for geom, reason in zip(layer.geometry, reasons):
+        if reason and geom is not None and not geom.is_empty:
+            spot = geom.representative_point()
+            ax.text(
+                spot.x,
+                spot.y,
+                reason.split(" (")[0],
+                ha="center",
+                va="center",
+                fontsize=7,
+                color="#333333",
+                zorder=6,
+                path_effects=halo,
+            )
+
+
+def _finish_map(ax, layer, crs, notes, classes_note):
+    """Blank axes, the extent, scale bar and north arrow, and the notes under the map: what
+    the colours mean (``notes``), the furniture, the method, ``classes_note`` and the CRS."""
     _blank_axes(ax)
-    notes = [_colour_note(field, mode, "estimate_source" in layer.columns)]
-    crs = catchments.crs
+    notes = list(notes)
     if crs is not None:
         xmin, ymin, xmax, ymax = layer.total_bounds
         pad_x, pad_y = 0.03 * (xmax - xmin), 0.03 * (ymax - ymin)
@@ -806,8 +832,7 @@ def recharge_map(
         notes.append("No scale bar or north arrow: the layer has no CRS.")
         crs_name = "unknown CRS"
     notes.append(
-        f"Recession-curve displacement (Rorabaugh 1964). Classes: {scheme.replace('_', ' ')}, "
-        f"limits rounded to 2 significant figures. CRS: {crs_name}."
+        f"Recession-curve displacement (Rorabaugh 1964). {classes_note} CRS: {crs_name}."
     )
     ax.text(
         0.0,
@@ -819,7 +844,6 @@ def recharge_map(
         color="#333333",
         gid="map-note",
     )
-    return figure
 
 
 def _colour_note(field, mode, subbasins=False):

@@ -57,6 +57,7 @@ from .recession import (
 from .rises import find_rises, log_flow, noise_level, rise_threshold
 from .subbasins import UNGAUGED_CHOICES
 from .tables import ColumnTable, empty_table, pack_tables, stack, unpack_tables
+from .trends import recharge_trend
 from .units import DISCHARGE_UNITS, canonical_units
 
 #: Fields added to the catchments layer, in order. Later versions add; they never rename.
@@ -88,6 +89,9 @@ CATCHMENT_FIELDS = [
     "recharge_mm_per_year_fully_measured",
     "fully_measured_years",
     "recharge_between_events_mm_per_year",
+    "recharge_trend_mm_per_decade",
+    "recharge_trend_p_value",
+    "recharge_trend",
 ]
 
 #: Fields the gauge table has besides the catchment ones.
@@ -432,6 +436,11 @@ class GaugeResult:
     recharge_between_events_mm_per_year : float
         Mean over the complete years of the rises of the recession between measured events
         (:func:`displacement.recession_rises`): a lower-bound term beside the recharge.
+    recharge_trend_mm_per_decade, recharge_trend_p_value : float
+    recharge_trend : str
+        The trend of annual recharge over the complete water years (:func:`trends.recharge_trend`:
+        Sen's slope, the Mann–Kendall p-value, rising / falling / no clear trend); NaN and ""
+        with fewer than :data:`trends.MIN_YEARS` complete years.
     quality : list of str
         Problems in words; empty when all is well.
     implausible : list of str
@@ -459,6 +468,9 @@ class GaugeResult:
     recharge_mm_per_year_fully_measured: float = np.nan
     fully_measured_years: int = 0
     recharge_between_events_mm_per_year: float = np.nan
+    recharge_trend_mm_per_decade: float = np.nan
+    recharge_trend_p_value: float = np.nan
+    recharge_trend: str = ""
     #: :meth:`event_figures`, kept when the events table itself went to a table sink.
     kept_event_figures: dict | None = field(default=None, repr=False)
     implausible: list = field(default_factory=list)
@@ -868,6 +880,13 @@ def _gauge_hydrology(record, area_km2, settings, recession_index_days=None, seri
     )
     result.baseflow_mm_per_year = mean(annual, "baseflow_mm")
     result.recharge_between_events_mm_per_year = mean(annual, "recharge_between_events_mm")
+    complete = np.asarray(annual["complete"], dtype=bool)
+    trend = recharge_trend(
+        np.asarray(annual["water_year"])[complete], np.asarray(annual["recharge_mm"])[complete]
+    )
+    result.recharge_trend_mm_per_decade = trend["recharge_trend_mm_per_decade"]
+    result.recharge_trend_p_value = trend["recharge_trend_p_value"]
+    result.recharge_trend = trend["recharge_trend"]
     result.seasonal_recharge_mm_per_year = mean(annual, "seasonal_recharge_mm")
     quality.extend(_record_quality(record, result, settings))
     return result
@@ -2412,6 +2431,9 @@ def _catchment_values(result: GaugeResult | None, area):
         "recharge_between_events_mm_per_year": result.recharge_between_events_mm_per_year
         if result
         else np.nan,
+        "recharge_trend_mm_per_decade": result.recharge_trend_mm_per_decade if result else np.nan,
+        "recharge_trend_p_value": result.recharge_trend_p_value if result else np.nan,
+        "recharge_trend": result.recharge_trend if result else "",
     }
 
 

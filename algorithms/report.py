@@ -31,6 +31,8 @@ from . import files
 from .annual import water_year_bounds
 from .errors import Cancelled, InputError
 from .maps import SCHEMES, recharge_map, year_maps
+from .trend_map import trend_map
+from .trends import MIN_YEARS
 from .recession import CRITICAL_TIME_FACTOR
 
 #: The method's cautions, shown near the top of every report: (heading, text).
@@ -780,6 +782,23 @@ def _maps_html(result, gauges, scheme, classes, include_year_maps):
                 width=900,
             )
         )
+    field = "recharge_trend_mm_per_decade"
+    if (
+        field in catchments.columns
+        and np.isfinite(pd.to_numeric(catchments[field], errors="coerce")).any()
+    ):
+        out.append(
+            _img(
+                trend_map(catchments, gauges),
+                "Map of the trend of annual recharge by catchment",
+                f"Trend of each whole basin's annual recharge over its complete water years "
+                f"(at least {MIN_YEARS}): Sen's slope in mm/yr per decade, brown falling and "
+                "blue-green rising; hatched where the Mann–Kendall test (serial correlation "
+                "allowed for) finds no clear trend at the 5 % level. A trend over the record "
+                "says what happened, not what will.",
+                width=900,
+            )
+        )
     subbasins = getattr(result, "subbasins", None)
     if subbasins is not None and "recharge_mm_per_year" in getattr(subbasins, "columns", ()):
         out.append(
@@ -1020,6 +1039,20 @@ def _facts_html(g):
                 "Mean over years with every event measured",
                 f"{_fmt(g.recharge_mm_per_year_fully_measured)} mm/yr "
                 f"({g.fully_measured_years} years)",
+            )
+        )
+    slope = getattr(g, "recharge_trend_mm_per_decade", np.nan)
+    if np.isfinite(slope):
+        facts.append(
+            (
+                "Trend of annual recharge",
+                f"{slope:+,.1f} mm/yr per decade, {g.recharge_trend} ("
+                + (
+                    "p < 0.001"
+                    if g.recharge_trend_p_value < 0.001
+                    else f"p = {_sig(g.recharge_trend_p_value, 2)}"
+                )
+                + ")",
             )
         )
     between = getattr(g, "recharge_between_events_mm_per_year", np.nan)

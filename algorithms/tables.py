@@ -41,6 +41,7 @@ TEXT_COLUMNS = {
     "estimate_source",
     "downstream_gauge",
     "upstream_gauges",
+    "recharge_trend",
 }
 
 

@@ -124,7 +124,7 @@ _TABLE_FIELDS = {
         baseflow_m3:double storage_change_mm:double storage_change_m3:double residual_mm:double
         seasonal_recharge_mm:double flow_mm:double baseflow_index:double days:int64
         days_missing:int64 days_zero_or_flagged:int64 events:int64 events_skipped:int64
-        all_events_measured:bool
+        all_events_measured:bool recharge_between_events_mm:double
         incremental_recharge_mm:double""",
     "EVENTS": """gauge_id:string event:int64 peak_date:date rise_start_date:date
         peaks_merged:int64 critical_time_days:double critical_date:date q_before_m3s:double

@@ -363,3 +363,17 @@ def test_ranges_hold_the_value_and_k_always_shows_its_interval():
     for low, high in ((382.49, 382.51), (0.05, 0.95), (-1.5, -1.4)):
         a, b = _ends(low, high)
         assert float(a) <= low and float(b) >= high
+
+
+def test_report_maps_the_recharge_trend_and_gives_each_gauge_its_trend(demo, demo_report):
+    result, _, _ = demo
+    _, page = demo_report
+    slopes = result.catchments["recharge_trend_mm_per_decade"]
+    assert np.isfinite(slopes.astype(float)).any()  # the demo has gauges with 10 years or more
+    assert 'alt="Map of the trend of annual recharge by catchment"' in page
+    text = " ".join(_text(page).split())
+    assert "Sen's slope in mm/yr per decade" in text
+    gid = result.catchments.loc[slopes.astype(float).notna(), "gauge_id"].iloc[0]
+    g = result.gauges[gid]
+    slope = f"{g.recharge_trend_mm_per_decade:+,.1f}"
+    assert f"Trend of annual recharge: {slope} mm/yr per decade, {g.recharge_trend}" in text

@@ -94,3 +94,40 @@ def test_too_few_years_give_no_trend_and_missing_years_are_left_out():
     values = np.arange(12.0)
     values[[2, 5]] = np.nan
     assert recharge_trend(np.arange(12), values)["years"] == 10
+
+
+def test_exact_null_distribution_matches_kendalls_table_and_the_variance_formula():
+    # Kendall (1975), Rank Correlation Methods, Appendix Table 1 (from memory): for n = 4 the
+    # 24 orders give S = −6, −4, …, 6 with frequencies 1, 3, 5, 6, 5, 3, 1, so
+    # P(S ≥ 6) = 1/24 and P(S ≥ 4) = 4/24. Recomputed here by enumerating every order, and
+    # Var(S) = n(n−1)(2n+5)/18 (no ties) checked against the exact variance for n = 4 to 7.
+    import itertools
+    from collections import Counter
+
+    counts = Counter(mann_kendall_s(p) for p in itertools.permutations(range(4)))
+    assert [counts[s] for s in range(-6, 7, 2)] == [1, 3, 5, 6, 5, 3, 1]
+    for n in range(4, 8):
+        s_values = np.array([mann_kendall_s(p) for p in itertools.permutations(range(n))])
+        assert s_values.mean() == 0
+        assert s_variance(np.arange(n)) == pytest.approx(np.mean(s_values.astype(float) ** 2))
+
+
+@pytest.mark.slow
+def test_each_gauge_carries_the_trend_of_its_complete_years():
+    from recharge_atlas.sample_layers.families import make_family, run_gauge
+
+    gauge = make_family("wet_clustered", 5, n_gauges=1)[0]
+    result = run_gauge(gauge)
+    annual = result.tables["annual"]
+    complete = np.asarray(annual["complete"], dtype=bool)
+    assert complete.sum() >= 10
+    expected = recharge_trend(
+        np.asarray(annual["water_year"])[complete], np.asarray(annual["recharge_mm"])[complete]
+    )
+    assert result.recharge_trend_mm_per_decade == pytest.approx(
+        expected["recharge_trend_mm_per_decade"]
+    )
+    assert result.recharge_trend_p_value == pytest.approx(expected["recharge_trend_p_value"])
+    assert result.recharge_trend == expected["recharge_trend"] != ""
+    # Built without a trend, the invented climate should seldom show one at 5 %.
+    assert result.recharge_trend_p_value > 0.001
