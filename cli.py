@@ -11,6 +11,7 @@ code, either every output is written completely or none is touched.
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import sys
 import time
 import warnings
@@ -95,6 +96,19 @@ def _parser():
         metavar="PATH",
         help="daily discharge table: CSV, Parquet or a vector table (one row per gauge and day)",
     )
+    precipitation = files.add_mutually_exclusive_group()
+    precipitation.add_argument(
+        "--precipitation-field",
+        metavar="FIELD",
+        help="field of the catchments layer with mean annual precipitation in mm/yr: adds "
+        "recharge_share_of_precipitation (a share above 1 is flagged)",
+    )
+    precipitation.add_argument(
+        "--precipitation-raster",
+        metavar="PATH",
+        help="or a raster of mean annual precipitation in mm/yr, averaged over each catchment "
+        "(needs rasterio: pip install 'recharge-atlas[raster]')",
+    )
     files.add_argument(
         "--out",
         required=True,
@@ -176,7 +190,13 @@ def _parser():
 
 
 #: The command line's inputs, recorded with their size and SHA-256 in every output.
-INPUT_OPTIONS = ("--gauges", "--catchments", "--subbasins", "--discharge")
+INPUT_OPTIONS = (
+    "--gauges",
+    "--catchments",
+    "--subbasins",
+    "--discharge",
+    "--precipitation-raster",
+)
 
 
 def _provenance(command_parser, args):
@@ -435,10 +455,13 @@ def run_files(
     gauges_per_group=None,
     provenance=None,
     overwrite=False,
+    precipitation_raster=None,
 ):
     """Read the inputs, run the pipeline and write the outputs. Returns the AtlasResult.
 
     Give either ``catchments`` (total drainage areas) or ``subbasins`` (a subbasin map).
+    ``precipitation_raster`` (mm/yr) is averaged over each catchment into the field
+    :data:`precipitation.RASTER_FIELD`, which the run then uses as ``precipitation_field``.
     ``out`` may be a PostgreSQL target (``postgresql://…|schema=NAME``; ``overwrite`` replaces
     tables there). ``provenance`` (:class:`provenance.Provenance`) is recorded in every output; without it
     the inputs are recorded under plain names and the settings as the pipeline holds them.
@@ -464,6 +487,8 @@ def run_files(
         )
 
     sources = {"gauges": where(gauges), what: where(basins), "discharge table": where(discharge)}
+    if precipitation_raster is not None:
+        sources["precipitation raster"] = str(precipitation_raster)
     outputs = [(map_path, "map"), (year_maps_path, "per-year map")]
     outputs = ([] if to_database else [(out, "output")]) + outputs
     outputs = [(Path(p), w) for p, w in outputs + [(report_path, "report")] if p]
@@ -489,6 +514,15 @@ def run_files(
     from recharge_atlas.algorithms.maps import class_breaks
 
     class_breaks([1.0, 2.0], scheme, classes)  # a bad scheme or class count fails before the run
+    if subbasins is not None and (settings.precipitation_field or precipitation_raster):
+        raise InputError(
+            "the share of precipitation is computed for catchments (--catchments), "
+            "not for subbasin maps"
+        )
+    if precipitation_raster is not None:
+        from recharge_atlas.algorithms.precipitation import RASTER_FIELD
+
+        settings = dataclasses.replace(settings, precipitation_field=RASTER_FIELD)
     settings = settings.resolved()  # bad settings fail before any file is read
     if provenance is None:
         from recharge_atlas.algorithms.provenance import Provenance
@@ -499,6 +533,11 @@ def run_files(
     try:
         gauge_layer = files.read_layer(gauges, "gauges")
         basin_layer = files.read_layer(basins, what)
+        if precipitation_raster is not None:
+            from recharge_atlas.algorithms.precipitation import RASTER_FIELD, zonal_means
+
+            basin_layer = basin_layer.copy()  # in memory: the input file is not touched
+            basin_layer[RASTER_FIELD] = zonal_means(basin_layer, precipitation_raster)
         _require_fields(gauge_layer, basin_layer, what, settings, sources, subbasins is not None)
         table = _discharge(files, discharge, gauge_layer, settings, gauges_per_group)
         if hasattr(table, "columns"):  # read whole (groups check their gauge field)
@@ -705,6 +744,7 @@ def _settings(args):
         link_tolerance_m=args.link_tolerance,
         overlap_tolerance=args.overlap_tolerance,
         reported_area_field=args.reported_area_field,
+        precipitation_field=args.precipitation_field,
         ungauged=args.ungauged,
         subbasin_id_field=args.subbasin_id_field,
         downstream_field=args.downstream_field,
@@ -890,6 +930,7 @@ def _command(args, parser=None):
         gauges_per_group=args.gauges_per_group,
         provenance=provenance,
         overwrite=args.overwrite,
+        precipitation_raster=args.precipitation_raster,
     )
     from recharge_atlas.algorithms.database import describe
 

@@ -533,7 +533,6 @@ def _nearest_clean(x, wanted, lo, hi, clean=None):
     return pick
 
 
-
 def recession_rises(events, logq, day0, recession_index_days):
     """Recharge the recession gained between measured events, which no event counts.
 

@@ -831,9 +831,7 @@ def _finish_map(ax, layer, crs, notes, classes_note):
     else:
         notes.append("No scale bar or north arrow: the layer has no CRS.")
         crs_name = "unknown CRS"
-    notes.append(
-        f"Recession-curve displacement (Rorabaugh 1964). {classes_note} CRS: {crs_name}."
-    )
+    notes.append(f"Recession-curve displacement (Rorabaugh 1964). {classes_note} CRS: {crs_name}.")
     ax.text(
         0.0,
         -0.02,

@@ -94,6 +94,9 @@ CATCHMENT_FIELDS = [
     "recharge_trend",
 ]
 
+#: Fields added after :data:`CATCHMENT_FIELDS` when a run is given precipitation.
+PRECIPITATION_FIELDS = ["precipitation_mm_per_year", "recharge_share_of_precipitation"]
+
 #: Fields the gauge table has besides the catchment ones.
 GAUGE_EXTRA_FIELDS = ["events_skipped", "mean_event_recharge_m3", "mean_event_recharge_mm"]
 #: Columns of the daily table.
@@ -165,6 +168,11 @@ class Settings:
     reported_area_field : str or None
         Field of the gauges layer with a reported drainage area (km²); a mismatch of more than
         10 % with the computed area is flagged.
+    precipitation_field : str or None
+        Field of the catchments layer with mean annual precipitation (mm/yr). The catchments
+        then get ``precipitation_mm_per_year`` and ``recharge_share_of_precipitation``; a share
+        above 1 is flagged. (A precipitation raster is read into such a field first, by QGIS's
+        zonal statistics or :mod:`precipitation`.)
     ungauged : str
         Subbasin maps: ``donor`` (borrow the nearest gauged depth, said in ``estimate_source``)
         or ``empty``.
@@ -198,6 +206,7 @@ class Settings:
     link_tolerance_m: float = LINK_TOLERANCE_M
     overlap_tolerance: float = OVERLAP_TOLERANCE
     reported_area_field: str | None = None
+    precipitation_field: str | None = None
     ungauged: str = "donor"
     subbasin_id_field: str = "subbasin_id"
     downstream_field: str = "downstream_id"
@@ -287,6 +296,7 @@ class Settings:
             link_tolerance_m=tolerance,
             overlap_tolerance=overlap,
             reported_area_field=self.reported_area_field or None,
+            precipitation_field=self.precipitation_field or None,
             workers=workers,
             dask_scheduler=self.dask_scheduler or None,
             flag_field=self.flag_field or None,
@@ -339,7 +349,7 @@ def check_recession_index(value, **where) -> float:
 FIELD_SETTINGS = {
     "gauges layer": ("gauge_id_field", "recession_index_field", "reported_area_field"),
     "discharge table": ("discharge_gauge_field", "date_field", "value_field", "flag_field"),
-    "catchments layer": ("catchment_gauge_field",),
+    "catchments layer": ("catchment_gauge_field", "precipitation_field"),
     "subbasins layer": ("subbasin_id_field", "downstream_field"),
 }
 
@@ -1432,11 +1442,11 @@ def _given_recession_index(gauges, settings):
     return given
 
 
-def _number_field(gauges, field, ids, expected):
-    """A numeric field of the gauges layer as floats (NaN where empty). A value that is not
-    a number is an error naming the gauge: a text field given by mistake would otherwise be
-    ignored without a word."""
-    require_columns(gauges, [field], "gauges layer")
+def _number_field(gauges, field, ids, expected, what="gauges layer"):
+    """A numeric field of the gauges layer (or ``what``) as floats (NaN where empty). A value
+    that is not a number is an error naming the gauge (``ids``; None: the row): a text field
+    given by mistake would otherwise be ignored without a word."""
+    require_columns(gauges, [field], what)
     column = pd.Series(gauges[field].to_numpy(), dtype=object)
     values = pd.to_numeric(column, errors="coerce").to_numpy(float)
     text = column.astype(str).str.strip()
@@ -1445,12 +1455,40 @@ def _number_field(gauges, field, ids, expected):
     if wrong.size:
         first = int(wrong[0])
         raise InputError(
-            f"the gauges layer's field holds {quoted(column.iloc[first])}, not a number "
+            f"the {what}'s field holds {quoted(column.iloc[first])}, not a number "
             f"({counted(wrong.size, 'feature')} so); expected {expected}, or an empty value",
             field=field,
-            gauge=ids[first],
+            gauge=ids[first] if ids is not None else None,
+            row=None if ids is not None else first + 1,
         )
     return values
+
+
+def _precipitation(catchments, settings):
+    """Mean annual precipitation (mm/yr) of each catchment row, or None when not given."""
+    if not settings.precipitation_field:
+        return None
+    return _number_field(
+        catchments,
+        settings.precipitation_field,
+        None,
+        "a mean annual precipitation in mm/yr",
+        what="catchments layer",
+    )
+
+
+def _precipitation_share(recharge, precipitation):
+    """``(share, note)``: recharge ÷ precipitation (NaN without a precipitation above 0), and
+    a caution when the share is above 1 (else "")."""
+    if not (np.isfinite(recharge) and np.isfinite(precipitation) and precipitation > 0):
+        return np.nan, ""
+    share = recharge / precipitation
+    if share > 1:
+        return share, (
+            f"recharge is {share:.1f} times the precipitation ({precipitation:,.0f} mm/yr): "
+            "check that the precipitation is a yearly mean in mm, and the catchment"
+        )
+    return share, ""
 
 
 def _gauge_points(gauges, what="gauges"):
@@ -2133,6 +2171,7 @@ def run_atlas(
     reporter = reporter or Reporter()
     gauge_ids = _gauge_ids(gauges, settings, reporter)
     given_k = _given_recession_index(gauges, settings)
+    _precipitation(catchments, settings)  # a wrong field stops the run before the work
     basins = _link_basins(gauges, gauge_ids, catchments, settings, reporter)
     links, nesting = basins.links, basins.nesting
     area_of = basins.area_of()
@@ -2490,14 +2529,25 @@ def _catchment_layer(catchments, basins, results, settings, incremental):
             notes.append("no gauge linked to this catchment")
         values["quality"] = "; ".join(notes) if notes else "ok"
         rows.append(values)
-    added = pd.DataFrame(rows, columns=CATCHMENT_FIELDS, index=out.index)
+    fields = list(CATCHMENT_FIELDS)
+    precipitation = _precipitation(catchments, settings)
+    if precipitation is not None:
+        fields += PRECIPITATION_FIELDS
+        for values, p in zip(rows, precipitation):
+            share, note = _precipitation_share(values["recharge_mm_per_year"], p)
+            values["precipitation_mm_per_year"] = p
+            values["recharge_share_of_precipitation"] = share
+            if note:
+                quality = values["quality"]
+                values["quality"] = note if quality == "ok" else f"{quality}; {note}"
+    added = pd.DataFrame(rows, columns=fields, index=out.index)
     for name in ("recession_segments", "complete_years", "events", "incremental_years"):
         added[name] = added[name].astype("int64")
     geometry_name = out.geometry.name
-    kept = [c for c in out.columns if c != geometry_name and c not in CATCHMENT_FIELDS]
-    for name in CATCHMENT_FIELDS:
+    kept = [c for c in out.columns if c != geometry_name and c not in fields]
+    for name in fields:
         out[name] = added[name]
-    return out[kept + CATCHMENT_FIELDS + [geometry_name]]
+    return out[kept + fields + [geometry_name]]
 
 
 def _stack(results, name, share=True):

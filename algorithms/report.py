@@ -31,9 +31,9 @@ from . import files
 from .annual import water_year_bounds
 from .errors import Cancelled, InputError
 from .maps import SCHEMES, recharge_map, year_maps
+from .recession import CRITICAL_TIME_FACTOR
 from .trend_map import trend_map
 from .trends import MIN_YEARS
-from .recession import CRITICAL_TIME_FACTOR
 
 #: The method's cautions, shown near the top of every report: (heading, text).
 CAUTIONS = (

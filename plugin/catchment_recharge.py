@@ -13,6 +13,7 @@ from qgis.core import (
     QgsProcessingParameterFeatureSink,
     QgsProcessingParameterFeatureSource,
     QgsProcessingParameterField,
+    QgsProcessingParameterRasterLayer,
 )
 
 from . import compat, styling
@@ -26,6 +27,38 @@ class CatchmentAlgorithm(RechargeRunAlgorithm):
     CATCHMENTS = "CATCHMENTS"
     CATCHMENT_GAUGE_FIELD = "CATCHMENT_GAUGE_FIELD"
     INCREMENTAL_AREAS = "INCREMENTAL_AREAS"
+    PRECIPITATION_FIELD = "PRECIPITATION_FIELD"
+    PRECIPITATION_RASTER = "PRECIPITATION_RASTER"
+
+    #: The precipitation raster of this run (set by :meth:`_prepare`), or None.
+    _precipitation_raster = None
+
+    def _init_precipitation_parameters(self):
+        """Mean annual precipitation (mm/yr) by a field of the catchments or a raster: the
+        catchments then get the share of precipitation that recharges (advanced)."""
+        self.add_advanced(
+            QgsProcessingParameterField(
+                self.PRECIPITATION_FIELD,
+                self.tr("Mean annual precipitation field in the catchments (mm/yr)"),
+                parentLayerParameterName=self.CATCHMENTS,
+                type=compat.FIELD_NUMERIC,
+                optional=True,
+            )
+        )
+        self.add_advanced(
+            QgsProcessingParameterRasterLayer(
+                self.PRECIPITATION_RASTER,
+                self.tr("or a raster of mean annual precipitation (mm/yr)"),
+                optional=True,
+            )
+        )
+
+    def _given_raster(self, parameters, context):
+        if not self._has(self.PRECIPITATION_RASTER) or not parameters.get(
+            self.PRECIPITATION_RASTER
+        ):
+            return None
+        return self.parameterAsRasterLayer(parameters, self.PRECIPITATION_RASTER, context)
 
     def _init_catchment_parameters(self):
         self.addParameter(
@@ -49,13 +82,58 @@ class CatchmentAlgorithm(RechargeRunAlgorithm):
         return {"catchments": self.source(parameters, self.CATCHMENTS, context)}
 
     def _basin_settings(self, parameters, context):
+        from ..algorithms.precipitation import RASTER_FIELD
+
         field = self.field_name(parameters, self.CATCHMENT_GAUGE_FIELD, context)
-        return {"catchment_gauge_field": field or None}
+        settings = {"catchment_gauge_field": field or None}
+        if self._has(self.PRECIPITATION_FIELD):
+            rain = self.field_name(parameters, self.PRECIPITATION_FIELD, context) or None
+            self._precipitation_both = bool(rain and parameters.get(self.PRECIPITATION_RASTER))
+            settings["precipitation_field"] = (
+                RASTER_FIELD if parameters.get(self.PRECIPITATION_RASTER) else rain
+            )
+        return settings
+
+    #: Both a precipitation field and a raster were given (refused when the inputs are read).
+    _precipitation_both = False
+
+    def _prepare(self, parameters, context, gauges):
+        self._precipitation_raster = self._given_raster(parameters, context)
+        self._precipitation_asked = bool(
+            self._has(self.PRECIPITATION_RASTER) and parameters.get(self.PRECIPITATION_RASTER)
+        )
+
+    def _check_basins(self, tables, settings, feedback):
+        """The raster's mean under each catchment, into the field the core reads."""
+        if self._precipitation_raster is None:
+            return
+        from ..algorithms.precipitation import RASTER_FIELD
+        from .precipitation import zonal_means
+
+        feedback.setProgressText(self.tr("Precipitation under each catchment"))
+        frame = tables["catchments"].frame
+        frame[RASTER_FIELD] = zonal_means(self._precipitation_raster, frame, feedback)
 
     def _check_basin_fields(self, sources, settings, feedback):
         """By id, the catchments need the gauge id field; by location they need none (the
-        gauges then need points with a CRS, which the core checks)."""
+        gauges then need points with a CRS, which the core checks). A precipitation field must
+        be there; a precipitation raster must be readable."""
+        from ..algorithms.errors import InputError
+
         catchments = sources["catchments"]
+        if self._precipitation_both:
+            raise InputError(
+                "give the precipitation as a field (PRECIPITATION_FIELD) or as a raster "
+                "(PRECIPITATION_RASTER), not both"
+            )
+        if getattr(self, "_precipitation_asked", False) and self._precipitation_raster is None:
+            raise InputError("the precipitation raster could not be read (PRECIPITATION_RASTER)")
+        if self._precipitation_raster is None and settings.precipitation_field:
+            self._require_fields(
+                catchments,
+                [(self.PRECIPITATION_FIELD, settings.precipitation_field)],
+                "catchments layer",
+            )
         field = settings.catchment_gauge_field
         if settings.link_method(catchments.fields().names()) == "id":
             self._require_fields(
@@ -151,6 +229,7 @@ class CatchmentRecharge(CatchmentAlgorithm):
         self._init_catchment_parameters()
         self._init_unit_parameters()
         self._init_method_parameters(link=True)
+        self._init_precipitation_parameters()
         self.addParameter(
             QgsProcessingParameterFeatureSink(
                 self.OUTPUT, self.tr("Catchment recharge"), compat.SOURCE_POLYGON

@@ -9,6 +9,7 @@ their values are not part of the API.
 
 from __future__ import annotations
 
+from qgis.analysis import QgsZonalStatistics
 from qgis.core import (
     Qgis,
     QgsCoordinateReferenceSystem,
@@ -41,6 +42,7 @@ _NAMESPACE = {
     "QgsProcessingParameterField": QgsProcessingParameterField,
     "QgsProcessingParameterNumber": QgsProcessingParameterNumber,
     "QgsWkbTypes": QgsWkbTypes,
+    "QgsZonalStatistics": QgsZonalStatistics,
     "QMetaType": QMetaType,
     "QUrl": QUrl,
     "QVariant": QVariant,
@@ -133,6 +135,9 @@ SOURCE_SKIP_GEOMETRY_CHECK = first_of(
     "Qgis.ProcessingFeatureSourceFlag.SkipGeometryValidityChecks",
     "QgsProcessingFeatureSource.FlagSkipGeometryValidityChecks",
 )
+
+#: The mean of a zonal statistics run (Qgis.ZonalStatistic since 3.36).
+ZONAL_MEAN = first_of("Qgis.ZonalStatistic.Mean", "QgsZonalStatistics.Statistic.Mean")
 
 #: The WKT flavour PROJ prefers (Qgis.CrsWktVariant since 3.36).
 URL_FULLY_DECODED = first_of("QUrl.ComponentFormattingOption.FullyDecoded", "QUrl.FullyDecoded")

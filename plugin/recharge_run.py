@@ -796,7 +796,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
             if value is None:
                 value = definition.defaultValue()
             if name in self._INPUTS:
-                layer = self.parameterAsVectorLayer(parameters, name, context)
+                layer = self._input_layer(parameters, name, context)
                 source = layer.source() if layer is not None else value
                 if source:
                     inputs.append((name, str(source)))
@@ -925,7 +925,17 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
         return outputs
 
     #: The input parameters whose files no output may be written into.
-    _INPUTS = ("GAUGES", "DISCHARGE", "CATCHMENTS", "SUBBASINS")
+    _INPUTS = ("GAUGES", "DISCHARGE", "CATCHMENTS", "SUBBASINS", "PRECIPITATION_RASTER")
+    #: Those of them that are rasters.
+    _RASTER_INPUTS = ("PRECIPITATION_RASTER",)
+
+    def _input_layer(self, parameters, name, context):
+        """The layer of input parameter ``name`` (vector, or raster for :data:`_RASTER_INPUTS`)."""
+        if name in self._RASTER_INPUTS:
+            if not parameters.get(name):
+                return None
+            return self.parameterAsRasterLayer(parameters, name, context)
+        return self.parameterAsVectorLayer(parameters, name, context)
 
     def _check_outputs_are_not_inputs(self, parameters, context):
         """Raise InputError when an output would be written into one of the input files (a
@@ -938,7 +948,7 @@ class RechargeRunAlgorithm(RechargeAtlasAlgorithm):
         for name in self._INPUTS:
             if not self._has(name):
                 continue
-            layer = self.parameterAsVectorLayer(parameters, name, context)
+            layer = self._input_layer(parameters, name, context)
             path = _file_of(layer.source()) if layer is not None else None
             if path:
                 inputs.append(path)
