@@ -78,6 +78,8 @@ def test_parameters_are_the_briefs(algorithm):
         "CLASSES",
         "CLASS_COUNT",
         "WORKERS",
+        "PRECIPITATION_FIELD",
+        "PRECIPITATION_RASTER",
         "OUTPUT",
         "INCREMENTAL_AREAS",
         "ANNUAL",
@@ -118,6 +120,8 @@ ADVANCED = [
     "CLASSES",
     "CLASS_COUNT",
     "WORKERS",
+    "PRECIPITATION_FIELD",
+    "PRECIPITATION_RASTER",
 ]
 
 
