@@ -26,7 +26,7 @@ from messy_region import digests, write_region
 from shapely.geometry import LineString, Polygon
 from test_end_to_end import run_args
 
-from recharge_atlas.algorithms import files, pipeline
+from recharge_atlas.algorithms import files, groups, pipeline
 from recharge_atlas.cli import main
 
 #: Numbers of a gauge compared with the clean run.
@@ -623,14 +623,14 @@ def test_an_existing_output_is_replaced_only_when_complete(case, capsys, monkeyp
 
 
 def test_one_failing_gauge_is_flagged_and_the_run_goes_on(case, capsys, monkeypatch):
-    real = pipeline._gauge_hydrology
+    real = groups._gauge_hydrology
 
     def failing(record, *args, **kwargs):
         if record.gauge_id == "CD2":
             raise FloatingPointError("overflow in the recession fit\nsecond line of detail")
         return real(record, *args, **kwargs)
 
-    monkeypatch.setattr(pipeline, "_gauge_hydrology", failing)
+    monkeypatch.setattr(groups, "_gauge_hydrology", failing)
     case.run(capsys)
     out = case.flagged(
         "CD2",
@@ -644,14 +644,14 @@ def test_one_failing_gauge_is_flagged_and_the_run_goes_on(case, capsys, monkeypa
 def test_the_summary_counts_computed_flagged_and_failed(clean, monkeypatch):
     from recharge_atlas.algorithms.pipeline import run_atlas
 
-    real = pipeline._gauge_hydrology
+    real = groups._gauge_hydrology
 
     def failing(record, *args, **kwargs):
         if record.gauge_id == "EF3":
             raise ValueError("made to fail")
         return real(record, *args, **kwargs)
 
-    monkeypatch.setattr(pipeline, "_gauge_hydrology", failing)
+    monkeypatch.setattr(groups, "_gauge_hydrology", failing)
     paths = clean["paths"]
     table = files.read_table(paths["discharge"])
     table = table[(table["gauge_id"] != "CD2") | (table.index % 2 == 0)]  # CD2: half its days

@@ -8,12 +8,8 @@ import numpy as np
 import pytest
 
 from recharge_atlas.algorithms.annual import annual_columns
-from recharge_atlas.algorithms.pipeline import (
-    BETWEEN_EVENTS_SHARE,
-    CATCHMENT_FIELDS,
-    GaugeResult,
-    between_events_notes,
-)
+from recharge_atlas.algorithms.pipeline import CATCHMENT_FIELDS, GaugeResult
+from recharge_atlas.algorithms.quality import BETWEEN_EVENTS_SHARE, between_events_notes
 from recharge_atlas.sample_layers.families import make_family, run_gauge
 
 

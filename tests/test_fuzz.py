@@ -35,13 +35,11 @@ from shapely.geometry import (
 
 from recharge_atlas.algorithms.discharge import FIRST_YEAR, LAST_YEAR, read_dates, tidy_discharge
 from recharge_atlas.algorithms.errors import InputError
-from recharge_atlas.algorithms.pipeline import (
+from recharge_atlas.algorithms.pipeline import Settings, run_atlas, run_gauges
+from recharge_atlas.algorithms.settings import (
     MAX_RUNOFF_END_LAG_DAYS,
     MAX_SEGMENT_DAYS,
     RECESSION_INDEX_RANGE,
-    Settings,
-    run_atlas,
-    run_gauges,
 )
 
 #: Multiplies every example count; above 1 the examples are drawn afresh on each run.

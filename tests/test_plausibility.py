@@ -4,7 +4,7 @@ recharge and baseflow against the flow they are part of.
 Sources beside the checks:
 
 * the range of a river's mean annual flow depth, a few mm/yr to a few m/yr, is common practice
-  (``pipeline.FLOW_DEPTH_MM_PER_YEAR``), not a published limit;
+  (``quality.FLOW_DEPTH_MM_PER_YEAR``), not a published limit;
 * the unit factors are NIST SP 811 (2008), Appendix B, through ``algorithms/units.py``:
   1 ft³ = 0.028316846592 m³ exactly, 1 L = 10⁻³ m³, 1 ML/d = 1000 m³ / 86,400 s;
 * a year of 365.25 days (Julian year, 31,557,600 s), and mass balance: recharge that returns
@@ -23,16 +23,13 @@ import pandas as pd
 import pytest
 from test_end_to_end import run_args
 
-from recharge_atlas.algorithms import pipeline
+from recharge_atlas.algorithms import quality, summary
 from recharge_atlas.algorithms.discharge import GaugeRecord, tidy_discharge
-from recharge_atlas.algorithms.pipeline import (
+from recharge_atlas.algorithms.pipeline import Reporter, Settings, gauge_hydrology, run_atlas
+from recharge_atlas.algorithms.quality import (
     FLOW_DEPTH_MM_PER_YEAR,
     PLAUSIBILITY_CHECKS,
-    Reporter,
-    Settings,
     flow_depth_note,
-    gauge_hydrology,
-    run_atlas,
     water_balance_notes,
 )
 from recharge_atlas.algorithms.tables import ColumnTable
@@ -251,11 +248,11 @@ def test_recharge_above_flow_is_flagged(qm04):
     complete = np.asarray(annual["complete"], dtype=bool)
     # The check's flow volume per water year equals the annual table's flow depth × area
     # (Σ Q · 86,400 s over the water year's days, computed twice, apart).
-    volume = pipeline._flow_m3_by_water_year(record.flow, 10, annual["water_year"])
+    volume = quality._flow_m3_by_water_year(record.flow, 10, annual["water_year"])
     np.testing.assert_allclose(volume, flow_mm * area * 1e3, rtol=1e-12)
     # Recharge made 1.5 times the flow in every year (as a double count would).
     _with_annual(result, recharge_m3=np.where(complete, 1.5 * volume, np.nan))
-    notes = pipeline._record_quality(record, result, settings)
+    notes = quality._record_quality(record, result, settings)
     assert result.implausible == ["recharge_over_flow"]
     years = int(complete.sum())
     flow_mean = flow_mm[complete].mean()
@@ -265,7 +262,7 @@ def test_recharge_above_flow_is_flagged(qm04):
     ), notes[0]
     assert "the recession index (45 days) or the events are likely wrong" in notes[0]
     # Within the method's error of the flow (a stream fed wholly by groundwater): no flag.
-    assert pipeline.RECHARGE_OVER_FLOW == 0.10
+    assert quality.RECHARGE_OVER_FLOW == 0.10
     _with_annual(result, recharge_m3=np.where(complete, 1.09 * volume, np.nan))
     assert water_balance_notes(result) == []
     _with_annual(result, recharge_m3=np.where(complete, 1.11 * volume, np.nan))
@@ -290,9 +287,9 @@ def test_recharge_above_flow_without_area_says_cubic_metres(qm04):
     record, _ = qm04
     result = gauge_hydrology(record, np.nan, Settings())
     annual = result.table("annual")
-    volume = pipeline._flow_m3_by_water_year(record.flow, 10, annual["water_year"])
+    volume = quality._flow_m3_by_water_year(record.flow, 10, annual["water_year"])
     _with_annual(result, recharge_m3=2.0 * volume)
-    notes = pipeline._plausibility_notes(record, result, Settings().resolved())
+    notes = quality._plausibility_notes(record, result, Settings().resolved())
     assert result.implausible == ["recharge_over_flow"]
     assert "m³/yr is more than the mean flow" in notes[0]
     assert "what rivers carry" not in " ".join(notes)  # no area: no flow-depth check
@@ -304,7 +301,7 @@ def test_baseflow_above_flow_is_flagged(qm04):
     result = gauge_hydrology(record, area, settings)
     assert result.baseflow_index < 1 and result.implausible == []
     result.baseflow_index = 1.2  # Σ baseflow / Σ flow as a broken separation would give
-    notes = pipeline._record_quality(record, result, settings)
+    notes = quality._record_quality(record, result, settings)
     assert result.implausible == ["baseflow_over_flow"]
     assert notes[0].startswith("baseflow index 1.20 is above 1: the baseflow exceeds the flow")
     assert "(check the baseflow method, --baseflow-method / BASEFLOW_METHOD)" in notes[0]
@@ -324,7 +321,7 @@ def test_baseflow_above_flow_is_flagged(qm04):
     ],
 )
 def test_summary_line_when_most_gauges_fail_one_check(counts, gauges, said):
-    line = pipeline._plausibility_line(counts, gauges)
+    line = summary._plausibility_line(counts, gauges)
     if said is None:
         assert line == ""
     else:
@@ -352,17 +349,17 @@ def test_command_line_flags_litres_read_as_cubic_metres(tmp_path, sample_paths, 
     ]
     layer = gpd.read_file(out, layer="catchments").dropna(subset=["gauge_id"])
     assert len(layer) == 6
-    for quality in layer["quality"]:
-        assert "far above what rivers carry" in quality and "about 1,000 times" in quality
-        assert HINT in quality
+    for text in layer["quality"]:
+        assert "far above what rivers carry" in text and "about 1,000 times" in text
+        assert HINT in text
 
 
 def test_numbers_in_words():
-    assert pipeline._number(math.log10(177_334.0)) == "177,000"
-    assert pipeline._number(math.log10(12.34)) == "12.3"
-    assert pipeline._number(math.log10(0.183)) == "0.18"
-    assert pipeline._number(math.log10(3e-298)) == "3.0×10^-298"
-    assert pipeline._number(math.log10(9.96e11)) == "1.0×10^12"
-    assert pipeline._at_least(math.log10(20_766.0)) == "20,000"
-    assert pipeline._at_least(math.log10(1.57)) == "1.5"
-    assert pipeline._at_least(297.5) == "10^297"
+    assert quality._number(math.log10(177_334.0)) == "177,000"
+    assert quality._number(math.log10(12.34)) == "12.3"
+    assert quality._number(math.log10(0.183)) == "0.18"
+    assert quality._number(math.log10(3e-298)) == "3.0×10^-298"
+    assert quality._number(math.log10(9.96e11)) == "1.0×10^12"
+    assert quality._at_least(math.log10(20_766.0)) == "20,000"
+    assert quality._at_least(math.log10(1.57)) == "1.5"
+    assert quality._at_least(297.5) == "10^297"

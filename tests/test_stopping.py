@@ -40,7 +40,7 @@ HOLDER = """
 import os, sys, time
 from pathlib import Path
 from recharge_atlas import cli
-from recharge_atlas.algorithms import files, pipeline
+from recharge_atlas.algorithms import files, groups
 
 ready, stage, args = Path(sys.argv[1]), sys.argv[2], sys.argv[3:]
 
@@ -49,7 +49,7 @@ def hold(*a, **k):
     time.sleep(900)
 
 if stage == "compute":
-    pipeline._gauge_hydrology = hold
+    groups._gauge_hydrology = hold
 elif stage == "write":
     files.add_attribute_table = hold
 raise SystemExit(cli.main(args))

@@ -10,7 +10,8 @@ import pandas as pd
 import pytest
 
 from recharge_atlas.algorithms.files import read_attribute_table
-from recharge_atlas.algorithms.pipeline import SINK_TABLES, run_atlas
+from recharge_atlas.algorithms.groups import SINK_TABLES
+from recharge_atlas.algorithms.pipeline import run_atlas
 
 
 @pytest.fixture(scope="module")

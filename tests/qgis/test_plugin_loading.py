@@ -202,7 +202,7 @@ def test_fallback_defaults_equal_the_core():
     the core, are the core's."""
     from recharge_atlas.algorithms.baseflow import METHODS
     from recharge_atlas.algorithms.maps import MAX_CLASSES, SCHEMES, class_breaks
-    from recharge_atlas.algorithms.pipeline import LINK_METHODS, Settings
+    from recharge_atlas.algorithms.settings import LINK_METHODS, Settings
     from recharge_atlas.algorithms.subbasins import UNGAUGED_CHOICES
     from recharge_atlas.plugin import recharge_run, styling
 
