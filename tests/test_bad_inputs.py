@@ -26,7 +26,7 @@ from messy_region import digests, write_region
 from shapely.geometry import LineString, Polygon
 from test_end_to_end import run_args
 
-from recharge_atlas.algorithms import files, groups, pipeline
+from recharge_atlas.algorithms import files, geopackage, groups, pipeline, readers
 from recharge_atlas.cli import main
 
 #: Numbers of a gauge compared with the clean run.
@@ -570,7 +570,7 @@ def test_disk_full_mid_write_leaves_nothing(case, capsys, monkeypatch):
     def full(*args, **kwargs):
         raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
 
-    monkeypatch.setattr(files, "add_attribute_table", full)
+    monkeypatch.setattr(geopackage, "add_attribute_table", full)
     case.run(capsys)
     case.error(f"no space left on device while writing the output (file {case.out})")
 
@@ -603,7 +603,7 @@ def test_interrupt_mid_write_leaves_nothing(case, capsys, monkeypatch):
     def interrupted(*args, **kwargs):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(files, "add_attribute_table", interrupted)
+    monkeypatch.setattr(geopackage, "add_attribute_table", interrupted)
     case.run(capsys)
     assert case.code == 130 and "interrupted; no output written" in case.stderr
     assert list(case.outdir.iterdir()) == []
@@ -612,7 +612,7 @@ def test_interrupt_mid_write_leaves_nothing(case, capsys, monkeypatch):
 def test_an_existing_output_is_replaced_only_when_complete(case, capsys, monkeypatch):
     earlier = case.paths["gauges"].read_bytes()  # an earlier result: any GeoPackage
     case.out.write_bytes(earlier)
-    monkeypatch.setattr(files, "add_attribute_table", lambda *a, **k: 1 / 0)
+    monkeypatch.setattr(geopackage, "add_attribute_table", lambda *a, **k: 1 / 0)
     case.run(capsys)
     assert case.code == 1
     assert case.out.read_bytes() == earlier
@@ -1002,7 +1002,7 @@ def test_parquet_without_an_engine_says_which_package_to_install(case, capsys, m
 
     table = case.inputs / "discharge.parquet"
     table.write_bytes(b"PAR1" + b"\0" * 16 + b"PAR1")
-    monkeypatch.setattr(files.pd, "read_parquet", no_engine)
+    monkeypatch.setattr(readers.pd, "read_parquet", no_engine)
     case.run(capsys, discharge=table)
     case.error("reading Parquet needs the Python package pyarrow: install it (pip install "
                "pyarrow", "discharge.parquet")  # fmt: skip

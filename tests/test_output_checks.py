@@ -21,7 +21,7 @@ from messy_region import digests
 from test_bad_inputs import Case, clean  # noqa: F401  (the clean run is a fixture)
 from test_end_to_end import run_args
 
-from recharge_atlas.algorithms import files, pipeline
+from recharge_atlas.algorithms import geopackage, outputs, pipeline
 from recharge_atlas.cli import main
 
 
@@ -49,7 +49,7 @@ def _raise(exc):
     ids=["oserror", "sqlite"],
 )
 def test_disk_full_in_the_writers_words_is_exit_2(case, capsys, monkeypatch, exc):
-    monkeypatch.setattr(files, "add_attribute_table", _raise(exc))
+    monkeypatch.setattr(geopackage, "add_attribute_table", _raise(exc))
     case.run(capsys)
     case.error(f"no space left on device while writing the output (file {case.out})")
 
@@ -70,7 +70,7 @@ def test_disk_full_that_gdal_does_not_name_is_found_by_asking_the_file_system(
 
     monkeypatch.setattr(os, "statvfs", statvfs)
     failed = errors.DataSourceError("Failed to commit transaction")
-    monkeypatch.setattr(files, "add_attribute_table", _raise(failed))
+    monkeypatch.setattr(geopackage, "add_attribute_table", _raise(failed))
     case.run(capsys)
     case.error(f"no space left on device while writing the output (file {case.out})")
 
@@ -80,15 +80,15 @@ def test_an_unexplained_writer_error_with_room_on_disk_stays_an_internal_error(
 ):
     errors = pytest.importorskip("pyogrio.errors")
     failed = errors.DataSourceError("Failed to commit transaction")
-    monkeypatch.setattr(files, "add_attribute_table", _raise(failed))
-    monkeypatch.setattr(files, "_file_size_limit", lambda: None)
+    monkeypatch.setattr(geopackage, "add_attribute_table", _raise(failed))
+    monkeypatch.setattr(outputs, "_file_size_limit", lambda: None)
     case.run(capsys)
     assert case.code == 1 and "internal error: DataSourceError" in case.stderr
     assert list(case.outdir.iterdir()) == []
 
 
 def test_the_table_spill_on_a_full_disk_is_exit_2(case, capsys, monkeypatch):
-    monkeypatch.setattr(files, "_insert_rows", _raise(sqlite3.OperationalError("disk full")))
+    monkeypatch.setattr(geopackage, "_insert_rows", _raise(sqlite3.OperationalError("disk full")))
     case.run(capsys, "--gauges-per-group", "1")
     case.error("no space left on device while keeping the result tables on disk")
 

@@ -145,10 +145,10 @@ def test_rows_go_in_whole_and_in_order_whatever_the_rows_per_statement(
 
     import pandas as pd
 
-    from recharge_atlas.algorithms import files
+    from recharge_atlas.algorithms import files, geopackage
 
-    monkeypatch.setattr(files, "_most_parameters", lambda db: most_parameters)
-    monkeypatch.setattr(files, "ROWS_PER_INSERT", 250)  # slices that do not divide evenly
+    monkeypatch.setattr(geopackage, "_most_parameters", lambda db: most_parameters)
+    monkeypatch.setattr(geopackage, "ROWS_PER_INSERT", 250)  # slices that do not divide evenly
     n = 1003
     frame = pd.DataFrame(
         {"i": np.arange(n), "x": np.arange(n) / 7.0, "t": [f"r{i}" for i in range(n)]}

@@ -137,12 +137,12 @@ def test_reading_in_gauge_groups_gives_identical_results(
 ):
     import geopandas as gpd
 
-    from recharge_atlas.algorithms import files
+    from recharge_atlas.algorithms import readers
     from recharge_atlas.algorithms.files import read_attribute_table
     from recharge_atlas.cli import main
 
     if slice_rows:  # a group's text file read in many slices
-        monkeypatch.setattr(files, "GROUP_FILE_ROWS", slice_rows)
+        monkeypatch.setattr(readers, "GROUP_FILE_ROWS", slice_rows)
     if suffix == ".parquet":
         pytest.importorskip("pyarrow")
     table = pd.read_csv(sample_paths["discharge"], dtype={"gauge_id": str})
@@ -185,7 +185,7 @@ def test_reading_in_gauge_groups_gives_identical_results(
 def test_a_group_file_read_in_slices_is_the_group_file_read_whole(tmp_path, monkeypatch):
     """Slices joined give the same table: same text, same columns in the same order, and the
     ids as categories with the same (sorted) categories."""
-    from recharge_atlas.algorithms import files
+    from recharge_atlas.algorithms import files, readers
 
     path = tmp_path / "group.csv"
     rng = np.random.default_rng(5)
@@ -198,7 +198,7 @@ def test_a_group_file_read_in_slices_is_the_group_file_read_whole(tmp_path, monk
         }
     ).to_csv(path, index=False)
     whole = files._read_group_file(path, "site", "date")
-    monkeypatch.setattr(files, "GROUP_FILE_ROWS", 300)
+    monkeypatch.setattr(readers, "GROUP_FILE_ROWS", 300)
     sliced = files._read_group_file(path, "site", "date")
     pd.testing.assert_frame_equal(sliced, whole)
     assert list(sliced.columns) == ["date", "site", "flow"]

@@ -40,7 +40,7 @@ HOLDER = """
 import os, sys, time
 from pathlib import Path
 from recharge_atlas import cli
-from recharge_atlas.algorithms import files, groups
+from recharge_atlas.algorithms import geopackage, groups
 
 ready, stage, args = Path(sys.argv[1]), sys.argv[2], sys.argv[3:]
 
@@ -51,7 +51,7 @@ def hold(*a, **k):
 if stage == "compute":
     groups._gauge_hydrology = hold
 elif stage == "write":
-    files.add_attribute_table = hold
+    geopackage.add_attribute_table = hold
 raise SystemExit(cli.main(args))
 """
 
