@@ -67,3 +67,25 @@ def test_readme_stays_short_and_its_links_resolve():
     assert len(README.splitlines()) <= 250
     for target in re.findall(r"\]\(((?:docs/)[^)#]+)\)", README):
         assert (ROOT / target).is_file(), target
+
+
+def test_architecture_page_matches_the_code():
+    """docs/architecture.md names every module of the core and the shells, and every
+    ``module.name`` it names exists (issue 17: the page must match the code)."""
+    import importlib
+    import re
+
+    page = (ROOT / "docs" / "architecture.md").read_text(encoding="utf-8")
+    modules = {p.stem for p in (ROOT / "algorithms").glob("*.py") if p.stem != "__init__"}
+    missing = sorted(m for m in modules if f"{m}.py" not in page and f"`{m}." not in page)
+    assert not missing, f"modules the page does not name: {missing}"
+    for folder, stem in re.findall(r"`(?:(algorithms|plugin)/)?(\w+)\.py", page):
+        where = ROOT / (folder or "algorithms") / f"{stem}.py"
+        elsewhere = [ROOT / f"{stem}.py", ROOT / "plugin" / f"{stem}.py"]
+        assert where.exists() or any(p.exists() for p in elsewhere), f"{stem}.py is absent"
+    for module, name in re.findall(r"`(\w+)\.(\w+)(?:\(\))?`", page):
+        if name == "py":
+            continue
+        if module in modules:
+            loaded = importlib.import_module(f"recharge_atlas.algorithms.{module}")
+            assert hasattr(loaded, name), f"{module}.{name} named on the page but absent"
