@@ -14,13 +14,12 @@ import textwrap
 
 import numpy as np
 
+from .choropleth_classes import _as_float, _digits, _round_significant, class_index, class_labels
 from .errors import InputError
 from .maps import (
     EDGE_COLOUR,
     GAUGE_COLOUR,
     NO_ESTIMATE_COLOUR,
-    _as_float,
-    _digits,
     _draw_gauges,
     _finish_map,
     _hatched,
@@ -28,10 +27,7 @@ from .maps import (
     _point_layer,
     _reason_labels,
     _require_field,
-    _round_significant,
     _visible,
-    class_index,
-    class_labels,
     containing,
     hatch_colour,
     no_estimate_reasons,
