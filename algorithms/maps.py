@@ -228,8 +228,6 @@ def recharge_map(
     >>> figure = recharge_map(result.catchments, gauges, scheme="natural_breaks")  # doctest: +SKIP
     """
     from matplotlib.figure import Figure
-    from matplotlib.lines import Line2D
-    from matplotlib.patches import Patch
 
     _require_field(catchments, field, "catchments")
     if nested not in NESTED_STYLES:
@@ -264,10 +262,7 @@ def recharge_map(
     ax = figure.add_subplot(1, 1, 1)
     colours = [c if f else "none" for c, f in zip(colours, filled)]
     layer.plot(ax=ax, color=colours, edgecolor=EDGE_COLOUR, linewidth=0.8)
-    for reason, hatch in NO_ESTIMATE_REASONS.items():
-        pick = (reasons == reason) & filled
-        if hatch and pick.any():
-            _hatched(ax, _visible(layer, pick), hatch, "#707070")
+    _hatch_reasons(ax, layer, reasons, NO_ESTIMATE_REASONS, filled)
     if mode != "plain":
         layer[outer].plot(ax=ax, facecolor="none", edgecolor="black", linewidth=2.2, zorder=3)
     points = _point_layer(gauges, catchments.crs)
@@ -279,38 +274,11 @@ def recharge_map(
                 whole[str(gid)] = f"{value:,.{digits}f} {units}".strip()
     _draw_gauges(ax, points, {gid: f"whole basin {text}" for gid, text in whole.items()})
     _reason_labels(ax, layer, reasons)
-    handles = [
-        Patch(facecolor=palette[i], edgecolor=EDGE_COLOUR, label=label)
-        for i, label in enumerate(class_labels(breaks) if breaks.size >= 2 else [])
-    ]
-    for reason, hatch in NO_ESTIMATE_REASONS.items():
-        if np.any((reasons == reason) & filled):
-            handles.append(
-                Patch(facecolor=NO_ESTIMATE_COLOUR, edgecolor="#707070", hatch=hatch, label=reason)
-            )
-    if mode != "plain":
-        handles.append(
-            Patch(
-                facecolor="none",
-                edgecolor="black",
-                linewidth=2.2,
-                label="basin with gauged\nbasins inside it",
-            )
-        )
-    if points is not None and len(points):
-        handles.append(
-            Line2D([], [], color=GAUGE_COLOUR, marker="^", linestyle="none", label="gauge")
-        )
+    handles = _class_handles(palette, breaks)
+    handles += _reason_handles(reasons, NO_ESTIMATE_REASONS, filled)
+    handles += _closing_handles(mode != "plain", points is not None and len(points) > 0)
     if handles:
-        ax.legend(
-            handles=handles,
-            title=legend_title(field, units),
-            loc="upper left",
-            bbox_to_anchor=(1.01, 1.0),
-            fontsize=8,
-            title_fontsize=9,
-            frameon=False,
-        )
+        _side_legend(ax, handles, legend_title(field, units))
     ax.set_title(title or _default_title(field, units, mode))
     _finish_map(
         ax,
@@ -490,6 +458,72 @@ def _hatched(ax, layer, hatch, colour):
     return collection
 
 
+def _hatch_reasons(ax, layer, reasons, hatches, filled):
+    """Hatch the filled grey basins by why they have no value (``hatches``: reason -> hatch;
+    a reason with no hatch stays plain grey)."""
+    for reason, hatch in hatches.items():
+        pick = (reasons == reason) & filled
+        if hatch and pick.any():
+            _hatched(ax, _visible(layer, pick), hatch, "#707070")
+
+
+# --------------------------------------------------------------------------- legend entries
+
+#: Legend label of the thick outline of a basin that contains other gauged basins.
+NESTED_LABEL = "basin with gauged\nbasins inside it"
+
+
+def _class_handles(palette, breaks):
+    """Legend entries of the classes: a patch of each class colour labelled with its limits."""
+    from matplotlib.patches import Patch
+
+    return [
+        Patch(facecolor=palette[i], edgecolor=EDGE_COLOUR, label=label)
+        for i, label in enumerate(class_labels(breaks) if breaks.size >= 2 else [])
+    ]
+
+
+def _reason_handles(reasons, hatches, filled):
+    """Legend entries of the grey basins: one for each reason in ``hatches`` (reason -> hatch)
+    that a filled basin has, in the order of ``hatches``."""
+    from matplotlib.patches import Patch
+
+    return [
+        Patch(facecolor=NO_ESTIMATE_COLOUR, edgecolor="#707070", hatch=hatch, label=reason)
+        for reason, hatch in hatches.items()
+        if np.any((reasons == reason) & filled)
+    ]
+
+
+def _closing_handles(nested, gauges, linewidth=2.2, label=NESTED_LABEL):
+    """The last legend entries: the thick outline of a basin with gauged basins inside it
+    (when ``nested``), drawn ``linewidth`` wide, and the gauge triangle (when ``gauges``)."""
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+
+    handles = []
+    if nested:
+        handles.append(Patch(facecolor="none", edgecolor="black", linewidth=linewidth, label=label))
+    if gauges:
+        handles.append(
+            Line2D([], [], color=GAUGE_COLOUR, marker="^", linestyle="none", label="gauge")
+        )
+    return handles
+
+
+def _side_legend(ax, handles, title):
+    """The legend of a single map, to the right of it."""
+    ax.legend(
+        handles=handles,
+        title=title,
+        loc="upper left",
+        bbox_to_anchor=(1.01, 1.0),
+        fontsize=8,
+        title_fontsize=9,
+        frameon=False,
+    )
+
+
 def _default_title(field, units, mode="plain"):
     if field == "recharge_mm_per_year" and mode == "outline":
         return f"Mean annual groundwater recharge of whole basins ({units}), complete years"
@@ -551,7 +585,6 @@ def year_maps(
         One axis per water year, laid out in a grid, and one figure legend.
     """
     from matplotlib.figure import Figure
-    from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
     _require_field(catchments_layer, gauge_field, "catchments")
@@ -663,10 +696,7 @@ def year_maps(
         for spine in ax.spines.values():
             spine.set_edgecolor("#bbbbbb")
 
-    handles = [
-        Patch(facecolor=palette[i], edgecolor=EDGE_COLOUR, label=label)
-        for i, label in enumerate(class_labels(breaks) if breaks.size >= 2 else [])
-    ]
+    handles = _class_handles(palette, breaks)
     if np.any(no_gauge):
         handles.append(Patch(facecolor=NO_ESTIMATE_COLOUR, edgecolor=EDGE_COLOUR, label="no gauge"))
     if any_missing or breaks.size < 2:
@@ -682,19 +712,12 @@ def year_maps(
         handles.append(
             Patch(facecolor="white", edgecolor="#555555", hatch="////", label="incomplete year")
         )
-    if np.any(outer):
-        handles.append(
-            Patch(
-                facecolor="none",
-                edgecolor="black",
-                linewidth=1.2,
-                label="basin with gauged basins inside it\n(its colour shows only outside them)",
-            )
-        )
-    if points is not None and len(points):
-        handles.append(
-            Line2D([], [], color=GAUGE_COLOUR, marker="^", linestyle="none", label="gauge")
-        )
+    handles += _closing_handles(
+        np.any(outer),
+        points is not None and len(points) > 0,
+        linewidth=1.2,
+        label="basin with gauged basins inside it\n(its colour shows only outside them)",
+    )
     figure.legend(
         handles=handles,
         title=legend_title(field, units).replace("\n", " "),
