@@ -1,9 +1,13 @@
-"""Choropleth maps of recharge (matplotlib, no display needed).
+"""Choropleth maps of recharge (matplotlib, no display needed): the drawing.
 
-Functions here return matplotlib figures; :func:`files.save_figure` writes them. The class
-limits come from :func:`class_breaks` (quantiles, equal intervals or natural breaks), computed
-here without any classification package, so the QGIS style, the PNG map and the report can
-all use the same classes.
+:func:`recharge_map` draws one field over the catchments (nested basins as the area between
+gauges or as outlines, grey basins with the reason), :func:`year_maps` one panel per water
+year with one set of classes; the helpers below them (gauges, reason labels, hatching, the
+notes under a map, the legend entries) serve :mod:`trend_map` too. Functions here return
+matplotlib figures; :func:`files.save_figure` writes them.
+
+The class limits, colours and labels are in :mod:`choropleth_classes`, the scale bar and the
+north arrow in :mod:`map_furniture`; their names stay importable from here.
 """
 
 from __future__ import annotations
@@ -14,327 +18,39 @@ import warnings
 import numpy as np
 import pandas as pd
 
+from .choropleth_classes import (  # noqa: F401  (the classes' names stay importable from here)
+    CLASS_COLOURS,
+    FIELD_LABELS,
+    MAX_CLASSES,
+    NATURAL_BREAKS_MAX_VALUES,
+    SCHEMES,
+    _as_float,
+    _digits,
+    class_breaks,
+    class_colours,
+    class_index,
+    class_labels,
+    legend_title,
+    map_classes,
+    round_breaks,
+    within_class_squares,
+)
 from .errors import InputError
+from .map_furniture import (  # noqa: F401  (the furniture's names stay importable from here)
+    _draw_furniture,
+    ground_scale,
+    map_aspect,
+    north_angle,
+    scale_bar,
+)
 
-#: Colours for up to five recharge classes, light (little recharge) to dark blue (much):
-#: ColorBrewer "Blues" (Brewer, colorbrewer2.org), six classes without the near-white first,
-#: so the lowest class still reads as a colour on white paper.
-CLASS_COLOURS = ["#c6dbef", "#9ecae1", "#6baed6", "#3182bd", "#08519c"]
+# Colours of what is drawn besides the classes: basins without an estimate, outlines, gauges.
 NO_ESTIMATE_COLOUR = "#d9d9d9"
 EDGE_COLOUR = "#333333"
 GAUGE_COLOUR = "#b2182b"
 
-#: Ways to draw class limits (see :func:`class_breaks`).
-SCHEMES = ("quantiles", "equal_interval", "natural_breaks")
-#: Most classes a map may have (a legend with more cannot be told apart by eye).
-MAX_CLASSES = 12
-#: Natural breaks use at most this many distinct values; above it, an evenly spaced sample
-#: of the sorted values (smallest and largest always kept).
-NATURAL_BREAKS_MAX_VALUES = 3000
-
-#: Plain labels for fields a user is likely to map (legend and title).
-FIELD_LABELS = {
-    "recharge_mm_per_year": "Mean annual recharge",
-    "recharge_mm_per_year_low": "Mean annual recharge, low end",
-    "recharge_mm_per_year_high": "Mean annual recharge, high end",
-    "incremental_recharge_mm_per_year": "Mean annual recharge of the area between gauges",
-    "baseflow_mm_per_year": "Mean annual baseflow",
-    "seasonal_recharge_mm_per_year": "Mean annual recharge by seasonal recession",
-    "baseflow_index": "Baseflow index",
-    "recession_index_days": "Recession index",
-    "critical_time_days": "Critical time",
-    "recharge_mm": "Recharge",
-}
-
-
-# --------------------------------------------------------------------------- classes
-
-
-def class_breaks(values, scheme="quantiles", classes=5):
-    """Class limits of the finite values for a choropleth map.
-
-    Parameters
-    ----------
-    values : array_like
-        Numbers to classify; NaN, None and infinite values are left out.
-    scheme : {"quantiles", "equal_interval", "natural_breaks"}
-        ``quantiles``: about the same number of values in each class. ``equal_interval``:
-        classes of equal width between the smallest and largest value. ``natural_breaks``:
-        the limits that make the classes as internally alike as possible, by the exact
-        dynamic programme of Fisher (1958), as used for natural breaks by Jenks (1977).
-    classes : int
-        Number of classes wanted (1 to :data:`MAX_CLASSES`). Fewer are returned when there
-        are fewer distinct values, or when quantiles coincide.
-
-    Returns
-    -------
-    numpy.ndarray
-        The smallest value followed by the upper limit of each class, so ``len - 1`` classes.
-        A value belongs to the first class whose upper limit it does not exceed (upper
-        limits are inclusive). The first class may hold only the smallest value (its two
-        limits are then equal). Empty when no value is finite; ``[v, v]`` when all values
-        equal ``v``.
-
-    Notes
-    -----
-    Quantiles are taken at 1/k, 2/k … 1 of all finite values (ties counted) with linear
-    interpolation, and repeated limits are merged. Equal intervals split [min, max] into k
-    equal parts. Natural breaks minimise the total squared deviation of the values from
-    their class means over all ways to cut the sorted values into k groups (Fisher, W.D.
-    1958, J. Am. Stat. Assoc. 53, 789–798; Jenks, G.F. 1977, Univ. Kansas Occasional Paper
-    2). Equal values always fall in one class. The programme takes time k·m² for m distinct
-    values; above :data:`NATURAL_BREAKS_MAX_VALUES` distinct values it works on that many
-    values taken at evenly spaced ranks of the sorted data (deterministic; smallest and
-    largest kept), so its limits are then close to, not exactly, the optimum.
-
-    Examples
-    --------
-    >>> class_breaks([1, 2, 3, 10, 11, 12, 20, 21, 22], "natural_breaks", 3).tolist()
-    [1.0, 3.0, 12.0, 22.0]
-    >>> class_breaks([0, 10, 20, 30, 40], "equal_interval", 2).tolist()
-    [0.0, 20.0, 40.0]
-    """
-    if scheme not in SCHEMES:
-        raise InputError(f"map classes were {scheme!r}; expected one of {list(SCHEMES)}")
-    k = _class_count(classes)
-    v = np.sort(_finite(values))
-    if v.size == 0:
-        return np.array([])
-    distinct = np.unique(v)
-    if distinct.size == 1:
-        return np.array([v[0], v[0]])
-    k = min(k, distinct.size)
-    if scheme == "quantiles":
-        upper = np.quantile(v, np.arange(1, k + 1) / k)
-        upper[-1] = v[-1]
-        upper = np.unique(upper)
-    elif scheme == "equal_interval":
-        upper = np.linspace(v[0], v[-1], k + 1)[1:]
-        upper[-1] = v[-1]
-    else:
-        upper = _natural_breaks(v, k)
-    return np.concatenate([[v[0]], upper])
-
-
-def round_breaks(breaks, values=None, figures=2):
-    """Class limits rounded to ``figures`` significant figures, more where needed.
-
-    The lowest limit is rounded down and the highest up, so every value stays inside; the
-    limits between classes go to the nearest rounded number. When rounding would merge two
-    limits, change the number of classes, or empty a class that held values, one more
-    significant figure is tried (up to 15, then the limits are returned unrounded).
-
-    Notes
-    -----
-    Two significant figures for legend limits is our own rule, in line with the common
-    practice of showing no more digits than a reader can use on a map (a recharge estimate
-    carries a band of several percent, so a third figure would claim more than it knows).
-
-    Examples
-    --------
-    >>> round_breaks([163.5, 180.2, 196.4, 213.0, 233.4, 260.1]).tolist()
-    [160.0, 180.0, 200.0, 210.0, 230.0, 270.0]
-    """
-    b = np.asarray(breaks, dtype=float)
-    if b.size < 2 or not np.all(np.isfinite(b)) or b[0] == b[-1]:
-        return b.copy()  # one value: shown as it is
-    v = None if values is None else _finite(values)
-    before = None if v is None else np.bincount(class_index(v, b), minlength=b.size - 1)
-    for f in range(int(figures), 16):
-        low = _round_significant(b[0], f, np.floor)
-        high = _round_significant(b[-1], f, np.ceil)
-        inner = [_round_significant(x, f, np.round) for x in b[1:-1]]
-        r = np.array([low, *inner, high])
-        if b[0] == b[1]:
-            r[0] = r[1] = b[0]  # a first class of only the smallest value keeps it exactly
-        steps = np.diff(r[1:]) if b[0] == b[1] else np.diff(r)
-        if np.any(steps <= 0):
-            continue
-        if v is not None:
-            after = np.bincount(class_index(v, r), minlength=r.size - 1)
-            if np.any((after == 0) & (before > 0)):
-                continue
-        return r
-    return b.copy()
-
-
-def _round_significant(x, figures, how):
-    """``x`` rounded (``how``: np.floor, np.ceil or np.round) to ``figures`` significant figures."""
-    if x == 0 or not np.isfinite(x):
-        return float(x)
-    exponent = math.floor(math.log10(abs(x))) - figures + 1
-    step = 10.0**exponent
-    out = float(how(x / step)) * step
-    return round(out, -exponent) if exponent < 0 else float(round(out))
-
-
-def map_classes(values, scheme="quantiles", classes=5):
-    """Class limits as the maps draw them: :func:`class_breaks`, then :func:`round_breaks`.
-
-    Never more classes than distinct values; a quantile class that holds no value (limits
-    interpolated between tied values) is merged into the class above; no class that held a
-    value is left empty by the rounding. The QGIS style should use these limits too, so the map and the layer agree.
-    """
-    breaks = class_breaks(values, scheme, classes)
-    if scheme != "equal_interval" and breaks.size > 2:
-        # Quantiles interpolated between tied values can leave a class with no value: merge it
-        # into the class above (equal intervals keep empty classes by their definition).
-        counts = np.bincount(class_index(_finite(values), breaks), minlength=breaks.size - 1)
-        keep = np.concatenate([[True], counts > 0])
-        keep[-1] = True
-        if breaks[0] == breaks[1]:
-            keep[1] = True
-        breaks = breaks[keep]
-    return round_breaks(breaks, values)
-
-
-def class_index(values, breaks):
-    """Class number (0-based) of each value for limits from :func:`class_breaks`.
-
-    NaN values, and all values when ``breaks`` is empty, get −1. Values outside the limits
-    go to the first or last class.
-    """
-    v = _as_float(values)
-    breaks = np.asarray(breaks, dtype=float)
-    out = np.full(v.shape, -1, dtype=int)
-    if breaks.size < 2:
-        return out
-    n = breaks.size - 1
-    ok = np.isfinite(v)
-    out[ok] = np.clip(np.searchsorted(breaks[1:], v[ok], side="left"), 0, n - 1)
-    return out
-
-
-def _class_count(classes):
-    try:
-        k = int(classes)
-        whole = not isinstance(classes, bool) and k == float(classes)
-    except (TypeError, ValueError, OverflowError):
-        whole = False
-    if not whole or not 1 <= k <= MAX_CLASSES:
-        raise InputError(
-            f"number of map classes was {classes!r}; expected a whole number from 1 to {MAX_CLASSES}"
-        )
-    return k
-
-
-def _as_float(values):
-    """Any sequence of numbers (None, pandas NA, text numbers allowed) as a float array."""
-    series = pd.to_numeric(pd.Series(np.asarray(values, dtype=object).ravel()), errors="coerce")
-    return series.to_numpy(dtype=float, na_value=np.nan)
-
-
-def _finite(values):
-    v = _as_float(values)
-    return v[np.isfinite(v)]
-
-
-def _natural_breaks(sorted_values, k):
-    """Upper class limits minimising the within-class sum of squares (Fisher 1958)."""
-    v = sorted_values
-    if np.unique(v).size > NATURAL_BREAKS_MAX_VALUES:
-        ranks = np.round(np.linspace(0, v.size - 1, NATURAL_BREAKS_MAX_VALUES)).astype(int)
-        v = v[ranks]
-    x, weight = np.unique(v, return_counts=True)
-    m = x.size
-    k = min(k, m)
-    # Centred and scaled values keep the sums of squares free of cancellation.
-    spread = x[-1] - x[0]
-    z = (x - x.mean()) / spread
-    w = weight.astype(float)
-    cw = np.concatenate([[0.0], np.cumsum(w)])
-    cz = np.concatenate([[0.0], np.cumsum(w * z)])
-    czz = np.concatenate([[0.0], np.cumsum(w * z * z)])
-
-    def within(a, b):
-        """Sum of squares of the values a..b-1 (a may be an array)."""
-        n = cw[b] - cw[a]
-        s = cz[b] - cz[a]
-        return np.maximum(czz[b] - czz[a] - s * s / n, 0.0)
-
-    # cost[j, i]: least sum of squares splitting the first i values into j + 1 classes.
-    cost = np.full((k, m + 1), np.inf)
-    start = np.zeros((k, m + 1), dtype=int)
-    cost[0, 1:] = within(np.zeros(m, dtype=int), np.arange(1, m + 1))
-    for j in range(1, k):
-        for i in range(j + 1, m + 1):
-            a = np.arange(j, i)
-            total = cost[j - 1, a] + within(a, i)
-            best = int(np.argmin(total))
-            cost[j, i] = total[best]
-            start[j, i] = a[best]
-    ends = [m]
-    for j in range(k - 1, 0, -1):
-        ends.append(start[j, ends[-1]])
-    ends = ends[::-1]
-    return x[np.asarray(ends) - 1]
-
-
-def within_class_squares(values, breaks):
-    """Sum over classes of squared deviations from the class mean (lower is tighter).
-
-    The quantity natural breaks minimise; used to compare classifications.
-    """
-    v = _finite(values)
-    idx = class_index(v, breaks)
-    total = 0.0
-    for c in np.unique(idx):
-        part = v[idx == c]
-        total += float(((part - part.mean()) ** 2).sum())
-    return total
-
 
 # --------------------------------------------------------------------------- drawing helpers
-
-
-def class_colours(n):
-    """``n`` class colours as ``#rrggbb`` text, light (little recharge) to dark (much).
-
-    The PNG maps and the QGIS style both use these, so the two look alike.
-    """
-    if n <= len(CLASS_COLOURS):
-        idx = np.round(np.linspace(0, len(CLASS_COLOURS) - 1, n)).astype(int)
-        return [CLASS_COLOURS[i] for i in idx]
-    from matplotlib import colormaps
-    from matplotlib.colors import to_hex
-
-    cmap = colormaps["Blues"]
-    return [to_hex(cmap(x)) for x in np.linspace(0.2, 1.0, n)]
-
-
-def _digits(breaks):
-    """Decimals that keep every class limit distinct in the legend."""
-    b = np.asarray(breaks, dtype=float)
-    if b.size == 0:
-        return 0
-    top = float(np.nanmax(np.abs(b)))
-    digits = 0 if top >= 100 or np.all(b == np.round(b)) else 1 if top >= 1 else 2
-    distinct = np.unique(b).size
-    while digits < 4 and np.unique(np.round(b, digits)).size < distinct:
-        digits += 1
-    return digits
-
-
-def class_labels(breaks):
-    """Legend labels such as ``120 – 180`` for limits from :func:`class_breaks`."""
-    b = np.asarray(breaks, dtype=float)
-    digits = _digits(b)
-    labels = []
-    for low, high in zip(b[:-1], b[1:]):
-        if low == high:
-            labels.append(f"{low:,.{digits}f}")
-        else:
-            labels.append(f"{low:,.{digits}f} – {high:,.{digits}f}")
-    return labels
-
-
-def legend_title(field, units):
-    """The legend title: the field's plain label and the units."""
-    import textwrap
-
-    label = FIELD_LABELS.get(field, str(field).replace("_", " ").capitalize())
-    label = "\n".join(textwrap.wrap(label, 26)) or label
-    return f"{label}\n({units})" if units else label
 
 
 def _colours(values, breaks):
@@ -385,164 +101,6 @@ def _blank_axes(ax):
 def _require_field(frame, field, what):
     if field not in frame.columns:
         raise InputError(f"the {what} have no field {field!r}", field=field)
-
-
-# --------------------------------------------------------------------------- scale bar, north arrow
-
-
-def _lonlat_transformers(crs):
-    from pyproj import CRS, Transformer
-
-    crs = CRS.from_user_input(crs)
-    geographic = CRS.from_epsg(4326)
-    to_lonlat = Transformer.from_crs(crs, geographic, always_xy=True)
-    from_lonlat = Transformer.from_crs(geographic, crs, always_xy=True)
-    return crs, to_lonlat, from_lonlat
-
-
-def ground_scale(crs, bounds):
-    """Metres on the ground per map unit along x and along y, at the centre of ``bounds``.
-
-    Measured, not assumed: two points a thousandth of the map's width (height) apart about
-    the centre are taken to longitude/latitude with pyproj and their geodesic distance on
-    the WGS 84 ellipsoid is computed with :class:`pyproj.Geod` (Karney 2013, J. Geodesy 87,
-    43–55). This holds for any CRS: in a geographic CRS a degree of longitude shrinks with
-    the cosine of latitude; in a projected CRS the projection's own scale factor counts.
-
-    Returns
-    -------
-    (float, float)
-        Metres per map unit along x (east–west on the map) and along y.
-    """
-    from pyproj import Geod
-
-    crs, to_lonlat, _ = _lonlat_transformers(crs)
-    xmin, ymin, xmax, ymax = (float(b) for b in bounds)
-    xc, yc = (xmin + xmax) / 2, (ymin + ymax) / 2
-    geod = Geod(ellps="WGS84")
-    out = []
-    for dx, dy in (((xmax - xmin) / 1000 or 1e-6, 0.0), (0.0, (ymax - ymin) / 1000 or 1e-6)):
-        lon, lat = to_lonlat.transform([xc - dx / 2, xc + dx / 2], [yc - dy / 2, yc + dy / 2])
-        metres = geod.inv(lon[0], lat[0], lon[1], lat[1])[2]
-        out.append(metres / (dx + dy))
-    return out[0], out[1]
-
-
-def map_aspect(crs, bounds):
-    """The y/x drawing ratio that shows the centre of the map without stretch.
-
-    1 for a projected CRS (its units are alike on both axes); in a geographic CRS the
-    ratio of the ground length of a degree of latitude to one of longitude at the centre
-    (about 1/cos(latitude)), as measured by :func:`ground_scale`.
-    """
-    from pyproj import CRS
-
-    if not CRS.from_user_input(crs).is_geographic:
-        return 1.0
-    x_metres, y_metres = ground_scale(crs, bounds)
-    return y_metres / x_metres
-
-
-def scale_bar(crs, bounds, fraction=0.25):
-    """A scale bar for a map of ``bounds``: its length in map units and on the ground.
-
-    The ground length is the largest 1, 2 or 5 × 10^n metres (common practice for scale
-    bars) not above ``fraction`` of the map's width, measured at the centre of the map by
-    :func:`ground_scale`. In a geographic CRS the bar is true only near the centre's
-    latitude; the map says so.
-
-    Returns
-    -------
-    (float, float, str)
-        Length in map units, length in metres, and its label (``"20 km"``, ``"500 m"``).
-    """
-    x_metres, _ = ground_scale(crs, bounds)
-    width_m = (float(bounds[2]) - float(bounds[0])) * x_metres
-    if not np.isfinite(width_m) or width_m <= 0:
-        raise ValueError(f"the map has no width to scale (bounds {list(bounds)})")
-    target = width_m * fraction
-    power = 10.0 ** math.floor(math.log10(target))
-    metres = max(m * power for m in (1, 2, 5) if m * power <= target)
-    label = f"{metres / 1000:g} km" if metres >= 1000 else f"{metres:g} m"
-    return metres / x_metres, metres, label
-
-
-def north_angle(crs, bounds):
-    """Direction of true north at the map's centre, in degrees clockwise from the map's up.
-
-    The centre is taken to longitude/latitude and a point 0.01° of latitude north of it is
-    projected back into ``crs`` (pyproj); the angle of the line between them on the drawn map
-    (with the aspect of :func:`map_aspect`) is the direction of the north arrow. In a
-    projected CRS it is minus the meridian convergence there; in a geographic CRS it is 0.
-    """
-    crs, to_lonlat, from_lonlat = _lonlat_transformers(crs)
-    xmin, ymin, xmax, ymax = (float(b) for b in bounds)
-    xc, yc = (xmin + xmax) / 2, (ymin + ymax) / 2
-    lon, lat = to_lonlat.transform(xc, yc)
-    step = 0.01 if lat < 89.98 else -0.01  # at the pole, look from just south of it
-    x2, y2 = from_lonlat.transform(lon, lat + step)
-    dx, dy = (x2 - xc) * np.sign(step), (y2 - yc) * np.sign(step)
-    return math.degrees(math.atan2(dx, dy * map_aspect(crs, bounds)))
-
-
-def _draw_furniture(ax, crs, bounds):
-    """Scale bar (lower left) and north arrow (lower right); a note of what they mean."""
-    from matplotlib import patheffects
-
-    length, _, label = scale_bar(crs, bounds)
-    x0, y0 = bounds[0], bounds[1]
-    width, height = bounds[2] - bounds[0], bounds[3] - bounds[1]
-    bx, by = x0 + 0.03 * width, y0 + 0.04 * height
-    halo = [patheffects.withStroke(linewidth=3, foreground="white")]
-    ax.plot(
-        [bx, bx + length],
-        [by, by],
-        color="black",
-        linewidth=3,
-        solid_capstyle="butt",
-        zorder=7,
-        gid="scale-bar",
-        path_effects=[patheffects.withStroke(linewidth=5, foreground="white")],
-    )
-    for x in (bx, bx + length):
-        ax.plot([x, x], [by, by + 0.015 * height], color="black", linewidth=1, zorder=7)
-    ax.text(
-        bx + length / 2,
-        by + 0.02 * height,
-        label,
-        ha="center",
-        va="bottom",
-        fontsize=8,
-        zorder=7,
-        gid="scale-bar-label",
-        path_effects=halo,
-    )
-    angle = math.radians(north_angle(crs, bounds))
-    size = 28.0  # points
-    tail = (-size * math.sin(angle), -size * math.cos(angle))
-    ax.annotate(
-        "",
-        xy=(0.95, 0.16),
-        xycoords="axes fraction",
-        xytext=tail,
-        textcoords="offset points",
-        arrowprops={"arrowstyle": "-|>", "color": "black", "linewidth": 1.5, "mutation_scale": 14},
-        zorder=7,
-        gid="north-arrow",
-    )
-    ax.annotate(
-        "N",
-        xy=(0.95, 0.16),
-        xycoords="axes fraction",
-        xytext=(6 * math.sin(angle), 6 * math.cos(angle)),
-        textcoords="offset points",
-        ha="center",
-        va="center",
-        fontsize=9,
-        fontweight="bold",
-        zorder=7,
-        path_effects=halo,
-    )
 
 
 # --------------------------------------------------------------------------- maps
@@ -670,8 +228,6 @@ def recharge_map(
     >>> figure = recharge_map(result.catchments, gauges, scheme="natural_breaks")  # doctest: +SKIP
     """
     from matplotlib.figure import Figure
-    from matplotlib.lines import Line2D
-    from matplotlib.patches import Patch
 
     _require_field(catchments, field, "catchments")
     if nested not in NESTED_STYLES:
@@ -706,10 +262,7 @@ def recharge_map(
     ax = figure.add_subplot(1, 1, 1)
     colours = [c if f else "none" for c, f in zip(colours, filled)]
     layer.plot(ax=ax, color=colours, edgecolor=EDGE_COLOUR, linewidth=0.8)
-    for reason, hatch in NO_ESTIMATE_REASONS.items():
-        pick = (reasons == reason) & filled
-        if hatch and pick.any():
-            _hatched(ax, _visible(layer, pick), hatch, "#707070")
+    _hatch_reasons(ax, layer, reasons, NO_ESTIMATE_REASONS, filled)
     if mode != "plain":
         layer[outer].plot(ax=ax, facecolor="none", edgecolor="black", linewidth=2.2, zorder=3)
     points = _point_layer(gauges, catchments.crs)
@@ -721,38 +274,11 @@ def recharge_map(
                 whole[str(gid)] = f"{value:,.{digits}f} {units}".strip()
     _draw_gauges(ax, points, {gid: f"whole basin {text}" for gid, text in whole.items()})
     _reason_labels(ax, layer, reasons)
-    handles = [
-        Patch(facecolor=palette[i], edgecolor=EDGE_COLOUR, label=label)
-        for i, label in enumerate(class_labels(breaks) if breaks.size >= 2 else [])
-    ]
-    for reason, hatch in NO_ESTIMATE_REASONS.items():
-        if np.any((reasons == reason) & filled):
-            handles.append(
-                Patch(facecolor=NO_ESTIMATE_COLOUR, edgecolor="#707070", hatch=hatch, label=reason)
-            )
-    if mode != "plain":
-        handles.append(
-            Patch(
-                facecolor="none",
-                edgecolor="black",
-                linewidth=2.2,
-                label="basin with gauged\nbasins inside it",
-            )
-        )
-    if points is not None and len(points):
-        handles.append(
-            Line2D([], [], color=GAUGE_COLOUR, marker="^", linestyle="none", label="gauge")
-        )
+    handles = _class_handles(palette, breaks)
+    handles += _reason_handles(reasons, NO_ESTIMATE_REASONS, filled)
+    handles += _closing_handles(mode != "plain", points is not None and len(points) > 0)
     if handles:
-        ax.legend(
-            handles=handles,
-            title=legend_title(field, units),
-            loc="upper left",
-            bbox_to_anchor=(1.01, 1.0),
-            fontsize=8,
-            title_fontsize=9,
-            frameon=False,
-        )
+        _side_legend(ax, handles, legend_title(field, units))
     ax.set_title(title or _default_title(field, units, mode))
     _finish_map(
         ax,
@@ -932,6 +458,72 @@ def _hatched(ax, layer, hatch, colour):
     return collection
 
 
+def _hatch_reasons(ax, layer, reasons, hatches, filled):
+    """Hatch the filled grey basins by why they have no value (``hatches``: reason -> hatch;
+    a reason with no hatch stays plain grey)."""
+    for reason, hatch in hatches.items():
+        pick = (reasons == reason) & filled
+        if hatch and pick.any():
+            _hatched(ax, _visible(layer, pick), hatch, "#707070")
+
+
+# --------------------------------------------------------------------------- legend entries
+
+#: Legend label of the thick outline of a basin that contains other gauged basins.
+NESTED_LABEL = "basin with gauged\nbasins inside it"
+
+
+def _class_handles(palette, breaks):
+    """Legend entries of the classes: a patch of each class colour labelled with its limits."""
+    from matplotlib.patches import Patch
+
+    return [
+        Patch(facecolor=palette[i], edgecolor=EDGE_COLOUR, label=label)
+        for i, label in enumerate(class_labels(breaks) if breaks.size >= 2 else [])
+    ]
+
+
+def _reason_handles(reasons, hatches, filled):
+    """Legend entries of the grey basins: one for each reason in ``hatches`` (reason -> hatch)
+    that a filled basin has, in the order of ``hatches``."""
+    from matplotlib.patches import Patch
+
+    return [
+        Patch(facecolor=NO_ESTIMATE_COLOUR, edgecolor="#707070", hatch=hatch, label=reason)
+        for reason, hatch in hatches.items()
+        if np.any((reasons == reason) & filled)
+    ]
+
+
+def _closing_handles(nested, gauges, linewidth=2.2, label=NESTED_LABEL):
+    """The last legend entries: the thick outline of a basin with gauged basins inside it
+    (when ``nested``), drawn ``linewidth`` wide, and the gauge triangle (when ``gauges``)."""
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+
+    handles = []
+    if nested:
+        handles.append(Patch(facecolor="none", edgecolor="black", linewidth=linewidth, label=label))
+    if gauges:
+        handles.append(
+            Line2D([], [], color=GAUGE_COLOUR, marker="^", linestyle="none", label="gauge")
+        )
+    return handles
+
+
+def _side_legend(ax, handles, title):
+    """The legend of a single map, to the right of it."""
+    ax.legend(
+        handles=handles,
+        title=title,
+        loc="upper left",
+        bbox_to_anchor=(1.01, 1.0),
+        fontsize=8,
+        title_fontsize=9,
+        frameon=False,
+    )
+
+
 def _default_title(field, units, mode="plain"):
     if field == "recharge_mm_per_year" and mode == "outline":
         return f"Mean annual groundwater recharge of whole basins ({units}), complete years"
@@ -993,7 +585,6 @@ def year_maps(
         One axis per water year, laid out in a grid, and one figure legend.
     """
     from matplotlib.figure import Figure
-    from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
     _require_field(catchments_layer, gauge_field, "catchments")
@@ -1105,10 +696,7 @@ def year_maps(
         for spine in ax.spines.values():
             spine.set_edgecolor("#bbbbbb")
 
-    handles = [
-        Patch(facecolor=palette[i], edgecolor=EDGE_COLOUR, label=label)
-        for i, label in enumerate(class_labels(breaks) if breaks.size >= 2 else [])
-    ]
+    handles = _class_handles(palette, breaks)
     if np.any(no_gauge):
         handles.append(Patch(facecolor=NO_ESTIMATE_COLOUR, edgecolor=EDGE_COLOUR, label="no gauge"))
     if any_missing or breaks.size < 2:
@@ -1124,19 +712,12 @@ def year_maps(
         handles.append(
             Patch(facecolor="white", edgecolor="#555555", hatch="////", label="incomplete year")
         )
-    if np.any(outer):
-        handles.append(
-            Patch(
-                facecolor="none",
-                edgecolor="black",
-                linewidth=1.2,
-                label="basin with gauged basins inside it\n(its colour shows only outside them)",
-            )
-        )
-    if points is not None and len(points):
-        handles.append(
-            Line2D([], [], color=GAUGE_COLOUR, marker="^", linestyle="none", label="gauge")
-        )
+    handles += _closing_handles(
+        np.any(outer),
+        points is not None and len(points) > 0,
+        linewidth=1.2,
+        label="basin with gauged basins inside it\n(its colour shows only outside them)",
+    )
     figure.legend(
         handles=handles,
         title=legend_title(field, units).replace("\n", " "),

@@ -14,24 +14,24 @@ import textwrap
 
 import numpy as np
 
+from .choropleth_classes import _as_float, _digits, _round_significant, class_index
 from .errors import InputError
 from .maps import (
     EDGE_COLOUR,
-    GAUGE_COLOUR,
     NO_ESTIMATE_COLOUR,
-    _as_float,
-    _digits,
+    _class_handles,
+    _closing_handles,
     _draw_gauges,
     _finish_map,
+    _hatch_reasons,
     _hatched,
     _plot_order,
     _point_layer,
+    _reason_handles,
     _reason_labels,
     _require_field,
-    _round_significant,
+    _side_legend,
     _visible,
-    class_index,
-    class_labels,
     containing,
     hatch_colour,
     no_estimate_reasons,
@@ -77,7 +77,6 @@ def trend_map(catchments, gauges=None, title=None):
     matplotlib.figure.Figure
     """
     from matplotlib.figure import Figure
-    from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
     _require_field(catchments, SLOPE_FIELD, "catchments")
@@ -109,10 +108,7 @@ def trend_map(catchments, gauges=None, title=None):
     for i in np.unique(index[unclear]):  # hatch lines that stand out on each fill
         pick = unclear & (index == i)
         _hatched(ax, _visible(layer, pick), NO_CLEAR_TREND_HATCH, hatch_colour(palette[i]))
-    for reason, hatch in NO_TREND_REASONS.items():
-        pick = (reasons == reason) & filled
-        if hatch and pick.any():
-            _hatched(ax, _visible(layer, pick), hatch, "#707070")
+    _hatch_reasons(ax, layer, reasons, NO_TREND_REASONS, filled)
     if outer.any():
         layer[outer].plot(ax=ax, facecolor="none", edgecolor="black", linewidth=2.2, zorder=3)
     digits = max(_digits(breaks), 1) if breaks.size else 1
@@ -124,11 +120,7 @@ def trend_map(catchments, gauges=None, title=None):
     _draw_gauges(ax, _point_layer(gauges, catchments.crs), whole)
     _reason_labels(ax, layer, reasons)
 
-    labels = class_labels(breaks) if breaks.size >= 2 else []
-    handles = [
-        Patch(facecolor=palette[i], edgecolor=EDGE_COLOUR, label=label)
-        for i, label in enumerate(labels)
-    ]
+    handles = _class_handles(palette, breaks)
     if unclear.any():
         handles.append(
             Patch(
@@ -138,33 +130,9 @@ def trend_map(catchments, gauges=None, title=None):
                 label=f"no clear trend\n(p ≥ {ALPHA:g})",
             )
         )
-    for reason, hatch in NO_TREND_REASONS.items():
-        if np.any((reasons == reason) & filled):
-            handles.append(
-                Patch(facecolor=NO_ESTIMATE_COLOUR, edgecolor="#707070", hatch=hatch, label=reason)
-            )
-    if outer.any():
-        handles.append(
-            Patch(
-                facecolor="none",
-                edgecolor="black",
-                linewidth=2.2,
-                label="basin with gauged\nbasins inside it",
-            )
-        )
-    if gauges is not None and len(gauges):
-        handles.append(
-            Line2D([], [], color=GAUGE_COLOUR, marker="^", linestyle="none", label="gauge")
-        )
-    ax.legend(
-        handles=handles,
-        title="Trend of annual recharge\n(mm/yr per decade)",
-        loc="upper left",
-        bbox_to_anchor=(1.01, 1.0),
-        fontsize=8,
-        title_fontsize=9,
-        frameon=False,
-    )
+    handles += _reason_handles(reasons, NO_TREND_REASONS, filled)
+    handles += _closing_handles(outer.any(), gauges is not None and len(gauges) > 0)
+    _side_legend(ax, handles, "Trend of annual recharge\n(mm/yr per decade)")
     ax.set_title(title or "Trend of annual recharge (mm/yr per decade)")
     note = (
         "Colours: Sen's slope of each whole basin's annual recharge over its complete water "
