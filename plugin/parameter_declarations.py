@@ -128,21 +128,30 @@ class ParameterDeclarations:
                 [compat.SOURCE_VECTOR],
             )
         )
-        for name, label, default in (
+        self._init_field_parameters(
+            self.DISCHARGE,
             (
-                self.DISCHARGE_GAUGE_FIELD,
-                self.tr("Gauge id field in the discharge table"),
-                "gauge_id",
+                (
+                    self.DISCHARGE_GAUGE_FIELD,
+                    self.tr("Gauge id field in the discharge table"),
+                    "gauge_id",
+                ),
+                (self.DATE_FIELD, self.tr("Date field"), "date"),
+                (self.VALUE_FIELD, self.tr("Discharge field"), "discharge"),
             ),
-            (self.DATE_FIELD, self.tr("Date field"), "date"),
-            (self.VALUE_FIELD, self.tr("Discharge field"), "discharge"),
-        ):
+        )
+
+    def _init_field_parameters(self, parent, fields):
+        """An optional field parameter of any type in layer parameter ``parent`` for each
+        ``(name, label, default)`` of ``fields``, in that order (optional so that the default
+        holds when left empty: see ``ParameterValues._DEFAULT_FIELDS``)."""
+        for name, label, default in fields:
             self.addParameter(
                 QgsProcessingParameterField(
                     name,
                     label,
                     defaultValue=default,
-                    parentLayerParameterName=self.DISCHARGE,
+                    parentLayerParameterName=parent,
                     type=compat.FIELD_ANY,
                     optional=True,
                 )
