@@ -2,7 +2,8 @@
 
 A thin shell over :func:`recharge_atlas.algorithms.pipeline.run_atlas`, the pipeline the
 command line uses too, so both give the same numbers. The parameters, tables and report it
-shares with ``subbasinrecharge`` live in :mod:`recharge_run`; the catchment parameters and the
+shares with ``subbasinrecharge`` live in :mod:`recharge_run` and its mixins (declared in
+:mod:`parameter_declarations`, written by :mod:`sink_writing`); the catchment parameters and the
 linking it shares with ``linkcheck`` and ``rechargereport`` in :class:`CatchmentAlgorithm`.
 """
 

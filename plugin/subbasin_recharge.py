@@ -4,7 +4,7 @@ A thin shell over :func:`recharge_atlas.algorithms.pipeline.run_atlas_subbasins`
 ``recharge-atlas run --subbasins`` uses too, so both give the same numbers. Basins are
 described as non-overlapping subbasins that each name the subbasin they drain into; each gauge
 sits at the outlet of the subbasin it lies in. The parameters, tables and report it shares with
-``catchmentrecharge`` live in :mod:`recharge_run`.
+``catchmentrecharge`` live in :mod:`recharge_run` and its mixins.
 """
 
 from __future__ import annotations
