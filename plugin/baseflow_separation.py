@@ -22,18 +22,23 @@ class BaseflowSeparation(GaugeAlgorithm):
         "quality",
     )
     _STYLED_OUTPUTS = {GaugeAlgorithm.OUTPUT: ("baseflow_index",)}
+    _GROUP_ID = "recession"
+    _OWN_METHODS = (
+        GaugeAlgorithm.BASEFLOW_METHOD,
+        GaugeAlgorithm.BFI_MAX,
+        *GaugeAlgorithm._GIVEN_INDEX,
+    )
+    _BASIC_METHODS = (
+        GaugeAlgorithm.BASEFLOW_METHOD,
+        GaugeAlgorithm.BFI_MAX,
+        GaugeAlgorithm.RECESSION_INDEX,
+    )
 
     def name(self):
         return "baseflowseparation"
 
     def displayName(self):  # noqa: N802 (QGIS API name)
         return self.tr("Baseflow separation")
-
-    def group(self):
-        return self.tr("Recession and baseflow")
-
-    def groupId(self):  # noqa: N802
-        return "recession"
 
     def shortDescription(self):  # noqa: N802
         return self.tr(
@@ -47,23 +52,6 @@ class BaseflowSeparation(GaugeAlgorithm):
             "recession index,streamflow,discharge,hydrology,gauge"
         ).split(",")
 
-    def initAlgorithm(self, config=None):  # noqa: N802
-        self._init_gauge_inputs(water_year=True)
-        self._init_method_parameters(
-            names=(
-                self.BASEFLOW_METHOD,
-                self.BFI_MAX,
-                self.RECESSION_INDEX,
-                self.RECESSION_INDEX_FIELD,
-                self.RUNOFF_END_LAG,
-                self.MIN_SEGMENT_DAYS,
-                self.FLAG_FIELD,
-                self.FLAG_VALUES,
-                self.CLASSES,
-                self.CLASS_COUNT,
-                self.WORKERS,
-            ),
-            basic=(self.BASEFLOW_METHOD, self.BFI_MAX, self.RECESSION_INDEX),
-        )
+    def _init_outputs(self):
         self._gauge_sink(self.tr("Gauges with baseflow index"))
         self._table_sink(self.DAILY, self.tr("Daily discharge and baseflow"), True)

@@ -2,7 +2,8 @@
 
 A thin shell over :func:`recharge_atlas.algorithms.pipeline.run_atlas`, the pipeline the
 command line uses too, so both give the same numbers. The parameters, tables and report it
-shares with ``subbasinrecharge`` live in :mod:`recharge_run`; the catchment parameters and the
+shares with ``subbasinrecharge`` live in :mod:`recharge_run` and its mixins (declared in
+:mod:`parameter_declarations`, written by :mod:`sink_writing`); the catchment parameters and the
 linking it shares with ``linkcheck`` and ``rechargereport`` in :class:`CatchmentAlgorithm`.
 """
 
@@ -77,6 +78,14 @@ class CatchmentAlgorithm(RechargeRunAlgorithm):
                 optional=True,
             )
         )
+
+    def _init_catchment_run_inputs(self):
+        """The inputs of a recharge run on catchments: the gauges and discharge table, the
+        catchments, the units and water year, and every method parameter."""
+        self._init_gauge_parameters()
+        self._init_catchment_parameters()
+        self._init_unit_parameters()
+        self._init_method_parameters(link=True)
 
     def _basin_sources(self, parameters, context):
         return {"catchments": self.source(parameters, self.CATCHMENTS, context)}
@@ -225,10 +234,7 @@ class CatchmentRecharge(CatchmentAlgorithm):
         ).split(",")
 
     def initAlgorithm(self, config=None):  # noqa: N802
-        self._init_gauge_parameters()
-        self._init_catchment_parameters()
-        self._init_unit_parameters()
-        self._init_method_parameters(link=True)
+        self._init_catchment_run_inputs()
         self._init_precipitation_parameters()
         self.addParameter(
             QgsProcessingParameterFeatureSink(

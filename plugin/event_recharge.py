@@ -28,18 +28,13 @@ class EventRecharge(GaugeAlgorithm):
     #: Fields added from the event table, after ``events``.
     EVENT_FIELDS = ("events_skipped", "mean_event_recharge_m3", "mean_event_recharge_mm")
     _STYLED_OUTPUTS = {GaugeAlgorithm.OUTPUT: ("recharge_mm_per_year", "recharge_m3_per_year")}
+    _OWN_METHODS = GaugeAlgorithm._GIVEN_INDEX
 
     def name(self):
         return "eventrecharge"
 
     def displayName(self):  # noqa: N802 (QGIS API name)
         return self.tr("Event recharge")
-
-    def group(self):
-        return self.tr("Recharge")
-
-    def groupId(self):  # noqa: N802
-        return "recharge"
 
     def shortDescription(self):  # noqa: N802
         return self.tr(
@@ -53,21 +48,7 @@ class EventRecharge(GaugeAlgorithm):
             "recession index,water year,streamflow,discharge,hydrology,gauge"
         ).split(",")
 
-    def initAlgorithm(self, config=None):  # noqa: N802
-        self._init_gauge_inputs(water_year=True)
-        self._init_method_parameters(
-            names=(
-                self.RECESSION_INDEX,
-                self.RECESSION_INDEX_FIELD,
-                self.RUNOFF_END_LAG,
-                self.MIN_SEGMENT_DAYS,
-                self.FLAG_FIELD,
-                self.FLAG_VALUES,
-                self.CLASSES,
-                self.CLASS_COUNT,
-                self.WORKERS,
-            )
-        )
+    def _init_outputs(self):
         self._table_sink(self.EVENTS, self.tr("Recharge events"), True, optional=False)
         self._gauge_sink(self.tr("Gauges with event recharge"), optional=True)
 

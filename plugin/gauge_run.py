@@ -19,12 +19,15 @@ from qgis.core import QgsProcessingParameterFeatureSink
 from . import compat, conversion
 from .recharge_run import RechargeRunAlgorithm
 
+_R = RechargeRunAlgorithm
+
 
 class GaugeAlgorithm(RechargeRunAlgorithm):
+    """Base of the gauge algorithms. Subclasses name the method parameters they show before
+    :data:`_RECORD_METHODS` (:data:`_OWN_METHODS`), declare their outputs
+    (:meth:`_init_outputs`), :data:`_GAUGE_FIELDS` and, if needed, :meth:`_gauge_values`."""
+
     OUTPUT_LAYER = "gauges"
-    """Base of the gauge algorithms. Subclasses declare their parameters (with
-    :meth:`_init_gauge_inputs`), :data:`_GAUGE_FIELDS` and, if needed,
-    :meth:`_gauge_values`."""
 
     #: The core's per-gauge fields (``AtlasResult.gauge_table``) the gauge points get, in order,
     #: after ``gauge_id``.
@@ -34,7 +37,49 @@ class GaugeAlgorithm(RechargeRunAlgorithm):
     _area_field = None
     _gauge_crs = None
 
+    #: The toolbox group: the base's ("recharge") or "recession".
+    _GROUP_ID = "recharge"
+    #: Whether the algorithm takes the water year's first month (WATER_YEAR_START).
+    _WATER_YEAR = True
+    #: The algorithm's own method parameters, shown first, and those of them shown outside
+    #: "Advanced parameters" (all others are advanced).
+    _OWN_METHODS: tuple = ()
+    _BASIC_METHODS: tuple = ()
+    #: The recession index the user may give: one for all gauges, or a field of the gauges.
+    _GIVEN_INDEX = (_R.RECESSION_INDEX, _R.RECESSION_INDEX_FIELD)
+    #: The method parameters every gauge algorithm shows after its own: how the record is cut
+    #: and read, the map classes and the processes.
+    _RECORD_METHODS = (
+        _R.RUNOFF_END_LAG,
+        _R.MIN_SEGMENT_DAYS,
+        _R.FLAG_FIELD,
+        _R.FLAG_VALUES,
+        _R.CLASSES,
+        _R.CLASS_COUNT,
+        _R.WORKERS,
+    )
+
+    def group(self):
+        if self.groupId() == "recession":
+            return self.tr("Recession and baseflow")
+        return super().group()
+
+    def groupId(self):  # noqa: N802 (QGIS API name)
+        return self._GROUP_ID
+
     # ---------------------------------------------------------------- declaring parameters
+
+    def initAlgorithm(self, config=None):  # noqa: N802
+        """The gauge inputs, the method parameters and the outputs (:meth:`_init_outputs`)."""
+        self._init_gauge_inputs(water_year=self._WATER_YEAR)
+        self._init_method_parameters(
+            names=(*self._OWN_METHODS, *self._RECORD_METHODS), basic=self._BASIC_METHODS
+        )
+        self._init_outputs()
+
+    def _init_outputs(self):
+        """Declare the outputs (the gauge points with :meth:`_gauge_sink`, the tables)."""
+        raise NotImplementedError
 
     def _init_gauge_inputs(self, water_year=True):
         """GAUGES, its id and area fields, the discharge table and its fields, UNITS and (when

@@ -15,7 +15,7 @@ from qgis.core import QgsProcessingException, QgsProcessingParameterFeatureSink
 
 from . import compat
 from .catchment_recharge import CatchmentAlgorithm
-from .recharge_run import _READ_END, _RUN_END
+from .progress import _READ_END, _RUN_END
 
 #: Fields the core gives the catchments (``check_links``), in order; tests check them.
 LINK_FIELDS = (

@@ -25,18 +25,14 @@ class RecessionIndex(GaugeAlgorithm):
         "quality",
     )
     _STYLED_OUTPUTS = {GaugeAlgorithm.OUTPUT: ("recession_index_days",)}
+    _GROUP_ID = "recession"
+    _WATER_YEAR = False
 
     def name(self):
         return "recessionindex"
 
     def displayName(self):  # noqa: N802 (QGIS API name)
         return self.tr("Recession index")
-
-    def group(self):
-        return self.tr("Recession and baseflow")
-
-    def groupId(self):  # noqa: N802
-        return "recession"
 
     def shortDescription(self):  # noqa: N802
         return self.tr(
@@ -51,19 +47,7 @@ class RecessionIndex(GaugeAlgorithm):
             "critical time,streamflow,discharge,hydrology,gauge"
         ).split(",")
 
-    def initAlgorithm(self, config=None):  # noqa: N802
-        self._init_gauge_inputs(water_year=False)
-        self._init_method_parameters(
-            names=(
-                self.RUNOFF_END_LAG,
-                self.MIN_SEGMENT_DAYS,
-                self.FLAG_FIELD,
-                self.FLAG_VALUES,
-                self.CLASSES,
-                self.CLASS_COUNT,
-                self.WORKERS,
-            )
-        )
+    def _init_outputs(self):
         self._gauge_sink(self.tr("Gauges with recession index"))
         self._table_sink(self.SEGMENTS, self.tr("Recession segments"), True)
         self._table_sink(self.MASTER_RECESSION, self.tr("Recession index by flow level"), True)

@@ -45,10 +45,7 @@ class RechargeReport(CatchmentAlgorithm):
         ).split(",")
 
     def initAlgorithm(self, config=None):  # noqa: N802
-        self._init_gauge_parameters()
-        self._init_catchment_parameters()
-        self._init_unit_parameters()
-        self._init_method_parameters(link=True)
+        self._init_catchment_run_inputs()
         self.addParameter(
             QgsProcessingParameterFileDestination(
                 self.REPORT,

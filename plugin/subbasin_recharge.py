@@ -4,7 +4,7 @@ A thin shell over :func:`recharge_atlas.algorithms.pipeline.run_atlas_subbasins`
 ``recharge-atlas run --subbasins`` uses too, so both give the same numbers. Basins are
 described as non-overlapping subbasins that each name the subbasin they drain into; each gauge
 sits at the outlet of the subbasin it lies in. The parameters, tables and report it shares with
-``catchmentrecharge`` live in :mod:`recharge_run`.
+``catchmentrecharge`` live in :mod:`recharge_run` and its mixins.
 """
 
 from __future__ import annotations
@@ -13,7 +13,6 @@ from qgis.core import (
     QgsProcessingException,
     QgsProcessingParameterFeatureSink,
     QgsProcessingParameterFeatureSource,
-    QgsProcessingParameterField,
 )
 
 from . import compat, styling
@@ -72,24 +71,17 @@ class SubbasinRecharge(RechargeRunAlgorithm):
                 self.SUBBASINS, self.tr("Subbasins"), [compat.SOURCE_POLYGON]
             )
         )
-        for name, label, default in (
-            (self.SUBBASIN_ID_FIELD, self.tr("Subbasin id field"), "subbasin_id"),
+        self._init_field_parameters(
+            self.SUBBASINS,
             (
-                self.DOWNSTREAM_FIELD,
-                self.tr("Field naming the subbasin each drains into"),
-                "downstream_id",
+                (self.SUBBASIN_ID_FIELD, self.tr("Subbasin id field"), "subbasin_id"),
+                (
+                    self.DOWNSTREAM_FIELD,
+                    self.tr("Field naming the subbasin each drains into"),
+                    "downstream_id",
+                ),
             ),
-        ):
-            self.addParameter(
-                QgsProcessingParameterField(
-                    name,
-                    label,
-                    defaultValue=default,
-                    parentLayerParameterName=self.SUBBASINS,
-                    type=compat.FIELD_ANY,
-                    optional=True,
-                )
-            )
+        )
         self._choice_parameter(
             self.UNGAUGED, self.tr("Subbasins with no gauge downstream take"), "donor"
         )

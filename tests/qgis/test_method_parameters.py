@@ -153,7 +153,7 @@ def test_a_table_without_rows_keeps_its_fields(qgis_app, name):
     import pandas as pd
 
     from recharge_atlas.plugin.conversion import frame_fields, qgs_field
-    from recharge_atlas.plugin.recharge_run import _with_fields, table_fields
+    from recharge_atlas.plugin.sink_writing import _with_fields, table_fields
 
     fields, rows = frame_fields(_with_fields(pd.DataFrame({"gauge_id": []}), name))
     assert rows == []
@@ -192,7 +192,7 @@ def test_quality_codes_change_the_result(flagged_core, core_result):
 def test_table_fields_are_the_cores(core_result):
     """The fields given to empty tables are those the core writes (names and types)."""
     from recharge_atlas.plugin.conversion import _kind
-    from recharge_atlas.plugin.recharge_run import table_fields
+    from recharge_atlas.plugin.sink_writing import table_fields
 
     frames = {
         "ANNUAL": core_result.annual,

@@ -204,31 +204,31 @@ def test_fallback_defaults_equal_the_core():
     from recharge_atlas.algorithms.maps import MAX_CLASSES, SCHEMES, class_breaks
     from recharge_atlas.algorithms.settings import LINK_METHODS, Settings
     from recharge_atlas.algorithms.subbasins import UNGAUGED_CHOICES
-    from recharge_atlas.plugin import recharge_run, styling
+    from recharge_atlas.plugin import choices, styling
 
-    assert tuple(recharge_run.BASEFLOW_METHODS) == tuple(METHODS)
-    assert recharge_run._BFI_MAX == Settings().bfi_max
-    assert recharge_run._MIN_SEGMENT_DAYS == Settings().min_segment_days
-    assert recharge_run.PERIODS[0] == Settings().period
-    assert tuple(recharge_run.LINK_METHODS) == LINK_METHODS
-    assert recharge_run.LINK_METHODS["auto"].startswith(Settings().link)
-    assert recharge_run._LINK_TOLERANCE_M == Settings().link_tolerance_m
-    assert recharge_run._OVERLAP_TOLERANCE == Settings().overlap_tolerance
-    assert tuple(recharge_run.UNGAUGED_CHOICES) == UNGAUGED_CHOICES
-    assert next(iter(recharge_run.UNGAUGED_CHOICES)) == Settings().ungauged
-    assert tuple(recharge_run.MAP_CLASSES) == SCHEMES
-    assert recharge_run._MAX_CLASSES == MAX_CLASSES
+    assert tuple(choices.BASEFLOW_METHODS) == tuple(METHODS)
+    assert choices._BFI_MAX == Settings().bfi_max
+    assert choices._MIN_SEGMENT_DAYS == Settings().min_segment_days
+    assert choices.PERIODS[0] == Settings().period
+    assert tuple(choices.LINK_METHODS) == LINK_METHODS
+    assert choices.LINK_METHODS["auto"].startswith(Settings().link)
+    assert choices._LINK_TOLERANCE_M == Settings().link_tolerance_m
+    assert choices._OVERLAP_TOLERANCE == Settings().overlap_tolerance
+    assert tuple(choices.UNGAUGED_CHOICES) == UNGAUGED_CHOICES
+    assert next(iter(choices.UNGAUGED_CHOICES)) == Settings().ungauged
+    assert tuple(choices.MAP_CLASSES) == SCHEMES
+    assert choices._MAX_CLASSES == MAX_CLASSES
     default = inspect.signature(class_breaks).parameters["classes"].default
-    assert recharge_run._CLASS_COUNT == default == styling.CLASSES
+    assert choices._CLASS_COUNT == default == styling.CLASSES
     assert tuple(styling.SCHEMES) == SCHEMES
 
 
 def test_fallback_unit_labels_equal_the_core():
     from recharge_atlas.algorithms.units import DISCHARGE_UNITS, UNIT_ALIASES
-    from recharge_atlas.plugin import recharge_run
+    from recharge_atlas.plugin import choices
 
-    assert list(recharge_run._UNIT_LABELS) == list(DISCHARGE_UNITS)
-    assert recharge_run._UNIT_ALIASES == UNIT_ALIASES
+    assert list(choices._UNIT_LABELS) == list(DISCHARGE_UNITS)
+    assert choices._UNIT_ALIASES == UNIT_ALIASES
 
 
 def test_compat_constants_are_enums_not_ints():

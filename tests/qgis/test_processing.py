@@ -387,7 +387,7 @@ def test_help_describes_every_output_field_and_the_cautions(algorithm, core_resu
     """Every field the algorithm writes to any output, the parameters with their ids, and the
     cautions, are in the help."""
     from recharge_atlas.plugin.base import help_text
-    from recharge_atlas.plugin.recharge_run import _TABLE_FIELDS, table_fields
+    from recharge_atlas.plugin.sink_writing import _TABLE_FIELDS, table_fields
 
     text = help_text(algorithm.name())  # the full page (Help button)
     input_fields = {"name", "geometry"}  # the demo catchments' own fields

@@ -347,7 +347,7 @@ def test_parameters(subbasin_algorithm):
 
 def test_help_describes_every_output_field_and_the_cautions(subbasin_algorithm, core_subbasins):
     from recharge_atlas.plugin.base import help_text
-    from recharge_atlas.plugin.recharge_run import _TABLE_FIELDS, table_fields
+    from recharge_atlas.plugin.sink_writing import _TABLE_FIELDS, table_fields
 
     text = help_text(subbasin_algorithm.name())  # the full page (Help button)
     assert text, "plugin/help/subbasinrecharge.html is missing"
