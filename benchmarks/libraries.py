@@ -249,9 +249,11 @@ def breaks(args):
             line += f", mapclassify.FisherJenks {1000 * theirs:.1f} ms, same limits: {equal}"
             if not equal:  # the one that minimises the within-class sum of squares is right
                 theirs_limits = np.concatenate([[values.min()], fj.bins])
+                ours_squares = within_class_squares(values, limits)
+                their_squares = within_class_squares(values, theirs_limits)
                 line += (
-                    f" (within-class sum of squares: ours {within_class_squares(values, limits):,.2f}"
-                    f", mapclassify {within_class_squares(values, theirs_limits):,.2f})"
+                    f" (within-class sum of squares: ours {ours_squares:,.2f}, "
+                    f"mapclassify {their_squares:,.2f})"
                 )
         print(line)
 
