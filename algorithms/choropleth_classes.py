@@ -227,6 +227,13 @@ def _finite(values):
     return v[np.isfinite(v)]
 
 
+# Fisher's algorithm by hand, measured against mapclassify.FisherJenks 2.10 (issue 17; ``python
+# benchmarks/libraries.py``; without numba, which would speed mapclassify up: not measured):
+# 50 values 1.6 ms against 3.0 ms, 500 values 19 ms against 273-280 ms, 3,000 values
+# 0.21-0.28 s against 9.6-10.3 s. The limits are equal on 50 and 500 values; on 3,000 one limit
+# differs and ours has the smaller within-class sum of squares, the quantity both minimise
+# (tests/test_maps.py checks equality on smaller samples). Kept because it measures better, and
+# QGIS's Python on Debian 12 has no mapclassify.
 def _natural_breaks(sorted_values, k):
     """Upper class limits minimising the within-class sum of squares (Fisher 1958)."""
     v = sorted_values
