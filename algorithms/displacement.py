@@ -601,17 +601,35 @@ def recession_rises(events, logq, day0, recession_index_days):
     tc = critical_time_days(k)
     start, end = np.log10(q_post[pair]), np.log10(q_pre[pair]) + (b - a) / k  # carried to a
     gain = q_pre[pair] - q_post[pair] * 10.0 ** (-(b - a) / k)
-    later = np.empty(a.size)  # b − τ
-    for i, (first, last) in enumerate(zip(a, b)):
-        carried = x[first : last + 1] + np.arange(last - first + 1) / k
-        if carried.size >= 5:
-            windows = np.lib.stride_tricks.sliding_window_view(carried, 5)
-            carried = np.concatenate((carried[:2], np.median(windows, axis=1), carried[-2:]))
-        half = 0.5 * (end[i] - start[i])
-        made = (carried - start[i]) * np.sign(half) >= abs(half)
-        later[i] = last - first - (np.argmax(made) if made.any() else last - first)
+    later = _days_after_half_gain(x, a, b, k, start, end)  # b − τ
     value = gain * 10.0 ** (np.maximum(later - tc, 0.0) / k)
     return {
         "date": day0 + b.astype("timedelta64[D]"),
         "recharge_m3": displacement_recharge_m3(0.0, value, k),
     }
+
+
+def _days_after_half_gain(x, a, b, k, start, end):
+    """``b − τ`` for each interval ``[a, b]`` of :func:`recession_rises`, all intervals at once.
+
+    The log flow carried along K to ``a`` (``x_d + (d − a)/K``) is smoothed by a 5-day running
+    median inside each interval (its two first and two last days as they are; intervals of
+    fewer than 5 days not at all); ``τ`` is the first day on which it has made half the way from
+    ``start`` to ``end`` (``b − τ`` is 0 when no day has).
+    """
+    lengths = b - a + 1
+    firsts = np.concatenate(([0], np.cumsum(lengths)[:-1]))
+    offset = np.arange(int(lengths.sum())) - np.repeat(firsts, lengths)  # d − a
+    carried = x[np.repeat(a, lengths) + offset] + offset / k
+    smoothed = carried.copy()
+    if carried.size >= 5:
+        medians = np.median(np.lib.stride_tricks.sliding_window_view(carried, 5), axis=1)
+        inner = (offset >= 2) & (offset <= np.repeat(lengths, lengths) - 3)
+        smoothed[inner] = medians[np.flatnonzero(inner) - 2]
+    half = 0.5 * (end - start)
+    made = (smoothed - np.repeat(start, lengths)) * np.repeat(np.sign(half), lengths) >= np.repeat(
+        np.abs(half), lengths
+    )
+    never = np.iinfo(np.int64).max
+    first_made = np.minimum.reduceat(np.where(made, offset, never), firsts)
+    return np.where(first_made < never, (b - a) - first_made, 0).astype(float)
