@@ -351,7 +351,11 @@ def _discharge(files, path, gauge_layer, settings, gauges_per_group):
         large = file_path.exists() and file_path.stat().st_size > files.STREAM_BYTES
         gauges_per_group = files.GAUGES_PER_GROUP if large else 0
     if gauges_per_group == 0:
-        return files.read_table(path, "discharge table")
+        return files.read_table(
+            path,
+            "discharge table",
+            id_fields=[settings.discharge_gauge_field or settings.gauge_id_field],
+        )
     require_columns(gauge_layer, [settings.gauge_id_field], "gauges layer")
     ids = [
         g

@@ -178,11 +178,13 @@ def _reason(exc, file_path=None):
     return text
 
 
-def read_table(path, what="discharge table"):
+def read_table(path, what="discharge table", id_fields=()):
     """Read a table: CSV/TSV text, Parquet, or the attribute table of any vector source.
 
     Text files are read with every column as text; the core converts ids, dates and values
-    itself, so gauge ids keep their leading zeros.
+    itself, so gauge ids keep their leading zeros. Text columns of a Parquet file named in
+    ``id_fields`` (a gauge id repeated on every day) are read as categories: a small code per
+    row instead of a text per row.
     """
     from . import database
 
@@ -202,7 +204,7 @@ def read_table(path, what="discharge table"):
                 **TEXT_MISSING,
             )
         if suffix == ".parquet":
-            return pd.read_parquet(file_path)
+            return _read_parquet(file_path, id_fields)
         frame = read_layer(path, what)
     except InputError:
         raise
@@ -212,6 +214,34 @@ def read_table(path, what="discharge table"):
         raise _text_error(exc, file_path, what) from None
     if "geometry" in frame.columns:
         frame = pd.DataFrame(frame.drop(columns="geometry"))
+    return frame
+
+
+def _read_parquet(file_path, id_fields=()):
+    """A Parquet file whole, its text columns in ``id_fields`` as categories.
+
+    Read through Arrow's own reader with the system's allocator, each column's Arrow memory
+    freed as soon as it is converted, and freed memory handed back: for 2,000 gauges x 30
+    years (21.9 million rows) the read peaked 740 MB above the start against 1,146 MB through
+    ``pandas.read_parquet``, and held 488 MB after against 750 MB (issue 17).
+    """
+    try:
+        import pyarrow as pa
+        import pyarrow.parquet as pq
+    except ImportError:
+        return pd.read_parquet(file_path)  # pandas says which engine is missing
+    schema = pq.read_schema(file_path)
+    text = (pa.types.is_string, pa.types.is_large_string)
+    wanted = [
+        name
+        for name in dict.fromkeys(id_fields)
+        if name in schema.names and any(is_text(schema.field(name).type) for is_text in text)
+    ]
+    with _system_arrow_memory():
+        table = pq.read_table(file_path, read_dictionary=wanted or None)
+        frame = table.to_pandas(self_destruct=True, split_blocks=True)
+        del table
+    _hand_back_memory()
     return frame
 
 

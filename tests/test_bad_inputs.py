@@ -1003,6 +1003,8 @@ def test_parquet_without_an_engine_says_which_package_to_install(case, capsys, m
     table = case.inputs / "discharge.parquet"
     table.write_bytes(b"PAR1" + b"\0" * 16 + b"PAR1")
     monkeypatch.setattr(readers.pd, "read_parquet", no_engine)
+    monkeypatch.setitem(sys.modules, "pyarrow", None)  # not installed: importing it fails
+    monkeypatch.setitem(sys.modules, "pyarrow.parquet", None)
     case.run(capsys, discharge=table)
     case.error("reading Parquet needs the Python package pyarrow: install it (pip install "
                "pyarrow", "discharge.parquet")  # fmt: skip

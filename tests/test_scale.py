@@ -304,3 +304,49 @@ def test_a_gauge_group_is_let_go_once_used(tmp_path, suffix):
     gc.collect()
     assert held() is None
     assert [set(g["gauge_id"].astype(str)) for g in groups] == [{"B2"}, {"C3"}]
+
+
+def test_a_parquet_table_read_whole_takes_its_text_ids_as_categories(tmp_path):
+    """Read whole (the command line's path for files up to the streaming size), text gauge ids
+    come back as categories, leading zeros kept; numeric ids, dates and values as written."""
+    pytest.importorskip("pyarrow")
+    from recharge_atlas.algorithms.files import read_table
+
+    table = pd.DataFrame(
+        {
+            "gauge_id": np.repeat(["007", "010", "7"], 4),
+            "number": np.repeat([7, 10, 7], 4),
+            "date": np.tile(pd.date_range("2001-01-01", periods=4), 3),
+            "discharge": np.arange(12, dtype=float),
+        }
+    )
+    path = tmp_path / "q.parquet"
+    table.to_parquet(path, index=False)
+    got = read_table(path, id_fields=["gauge_id", "number", "absent"])
+    assert isinstance(got["gauge_id"].dtype, pd.CategoricalDtype)
+    assert list(got["gauge_id"].astype(object)) == list(table["gauge_id"])
+    pd.testing.assert_frame_equal(got.drop(columns="gauge_id"), table.drop(columns="gauge_id"),
+                                  check_dtype=False)  # fmt: skip
+    plain = read_table(path)
+    assert not isinstance(plain["gauge_id"].dtype, pd.CategoricalDtype)
+
+
+def test_a_parquet_table_gives_the_same_results_whole_or_in_groups(demo_region, tmp_path):
+    pytest.importorskip("pyarrow")
+    from recharge_atlas.cli import run_files
+
+    folder = tmp_path / "in"
+    folder.mkdir()
+    demo_region.gauges.to_file(folder / "gauges.gpkg", layer="gauges")
+    demo_region.catchments.to_file(folder / "catchments.gpkg", layer="catchments")
+    parquet = folder / "discharge.parquet"
+    demo_region.discharge.to_parquet(parquet, index=False)
+    results = []
+    for per_group in (0, 2):
+        out = tmp_path / f"out{per_group}.gpkg"
+        run_files(folder / "gauges.gpkg", folder / "catchments.gpkg", parquet, out, Settings(),
+                  gauges_per_group=per_group)  # fmt: skip
+        from recharge_atlas.algorithms.files import read_attribute_table
+
+        results.append(read_attribute_table(out, "annual"))
+    pd.testing.assert_frame_equal(results[0], results[1])
