@@ -111,9 +111,20 @@ def reading_offset(recession_index_days, reading_days, terms=200):
     (``S(α) − 1 ≈ α²/24``: +0.2 % at K = 10 days). Returns ``R_read / R − 1``.
     """
     k = np.asarray(recession_index_days, dtype=float)
-    alpha = LN10 / k
     # The day holding the pulse is never read; half a day after it the series still converges.
     t = np.maximum(np.asarray(reading_days, dtype=float), 0.5)
+    if k.ndim == 0 and t.ndim == 1 and t.size > 2:
+        # One K, many events read on few distinct days: the series once per day (at least two
+        # columns, so each column is summed in the same order as with all the events).
+        days, where = np.unique(t, return_inverse=True)
+        days = np.concatenate((days, days[:1])) if days.size == 1 else days
+        return _reading_offset(k, days, terms)[where.reshape(-1)]
+    return _reading_offset(k, t, terms)
+
+
+def _reading_offset(k, t, terms):
+    """:func:`reading_offset` for K ``k`` and reading days ``t`` (each at least ½)."""
+    alpha = LN10 / k
     tc = CRITICAL_TIME_FACTOR * k
     n2 = (np.arange(1, 2 * terms, 2, dtype=float) ** 2).reshape((-1,) + (1,) * np.ndim(t * k))
     x = n2 * alpha

@@ -174,6 +174,11 @@ class SinkWriting:
             target = self._started_geopackage(parameters, name) if len(frame) else None
             if target is not None:
                 dest = self._add_table(target, name, frame, context)
+                feedback.pushInfo(
+                    self.tr("{}: added to {} by the command line's GeoPackage writer").format(
+                        name, target[0]
+                    )
+                )
             else:
                 fields, rows = conversion.frame_fields(frame)
                 dest = self._write(
