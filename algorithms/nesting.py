@@ -70,6 +70,8 @@ def find_nesting(basins, overlap_tolerance=OVERLAP_TOLERANCE) -> Nesting:
         [g.bounds if g is not None and not g.is_empty else (np.nan,) * 4 for g in geoms]
     )
     order = np.argsort(planar, kind="stable")
+    rank = np.empty(len(ids), dtype=np.int64)
+    rank[order] = np.arange(len(ids))  # candidates are tried from the smallest basin up
     nesting = Nesting()
     for i in range(len(ids)):
         nesting.upstream[ids[i]] = []
@@ -77,31 +79,35 @@ def find_nesting(basins, overlap_tolerance=OVERLAP_TOLERANCE) -> Nesting:
         if planar[i] <= 0:
             nesting.downstream[ids[i]] = None
             continue
-        # Candidates: larger basins whose box holds this one's; the smallest that contains it wins.
+        # Candidates: larger basins whose box holds this one's (all found at once); the smallest
+        # that contains it wins.
         b = bounds[i]
         width = max(b[2] - b[0], b[3] - b[1])
         slack = overlap_tolerance * width
         parent = None
-        for j in order:
-            if j == i or planar[j] <= planar[i]:
-                continue
-            bj = bounds[j]
-            if (
-                bj[0] - slack <= b[0]
-                and bj[1] - slack <= b[1]
-                and b[2] <= bj[2] + slack
-                and b[3] <= bj[3] + slack
-            ):
-                if geoms[j].intersection(geoms[i]).area >= (1.0 - overlap_tolerance) * planar[i]:
-                    parent = ids[j]
-                    break
+        with np.errstate(invalid="ignore"):  # empty basins have NaN boxes: never candidates
+            holds = (
+                (bounds[:, 0] - slack <= b[0])
+                & (bounds[:, 1] - slack <= b[1])
+                & (b[2] <= bounds[:, 2] + slack)
+                & (b[3] <= bounds[:, 3] + slack)
+                & (planar > planar[i])
+            )
+        candidates = np.flatnonzero(holds)
+        for j in candidates[np.argsort(rank[candidates], kind="stable")]:
+            if geoms[j].intersection(geoms[i]).area >= (1.0 - overlap_tolerance) * planar[i]:
+                parent = ids[j]
+                break
         nesting.downstream[ids[i]] = parent
         if parent is not None:
             nesting.upstream[parent].append(ids[i])
     pieces = {}
+    row_of = {}
+    for i, gid in enumerate(ids):
+        row_of.setdefault(gid, i)
     for i, gid in enumerate(ids):
         geom = geoms[i]
-        inner = [geoms[ids.index(u)] for u in nesting.upstream[gid]]
+        inner = [geoms[row_of[u]] for u in nesting.upstream[gid]]
         if geom is not None and inner:
             geom = geom.difference(unary_union(inner))
         pieces[gid] = geom
