@@ -3,7 +3,7 @@
 A full disk, a file-size limit, a demo folder that cannot be made, a name too long for the
 file system, a read-only target or a file of another format under the output's name: each is
 exit 2 with one line naming the file, never exit 1, and nothing is left or replaced. The cases
-run the command line on the small invented region of ``tests/test_bad_inputs.py``.
+run the command line on the small invented region of ``tests/bad_input_cases.py``.
 """
 
 from __future__ import annotations
@@ -17,16 +17,21 @@ import sys
 from pathlib import Path
 
 import pytest
+from bad_input_cases import Case, clean_region
 from messy_region import digests
-from test_bad_inputs import Case, clean  # noqa: F401  (the clean run is a fixture)
 from test_end_to_end import run_args
 
 from recharge_atlas.algorithms import geopackage, outputs, pipeline
 from recharge_atlas.cli import main
 
 
+@pytest.fixture(scope="module")
+def clean(tmp_path_factory):
+    return clean_region(tmp_path_factory)
+
+
 @pytest.fixture
-def case(tmp_path, clean):  # noqa: F811
+def case(tmp_path, clean):
     return Case(tmp_path, clean)
 
 
