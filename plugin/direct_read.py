@@ -176,6 +176,54 @@ def read_discharge(path, wanted, expected_rows):
         return None
     if any(name not in frame.columns for name in wanted):
         return None
+    if callable(expected_rows):
+        lines = plain_text_rows(path)
+        expected_rows = lines if lines is not None else expected_rows()
     if expected_rows is not None and expected_rows >= 0 and len(frame) != expected_rows:
         return None
     return frame[list(wanted)].copy()
+
+
+def plain_text_rows(path, chunk=1 << 24):
+    """The rows of a text table counted from its lines, when each line is a row for any CSV
+    reader (QGIS's and ours): no quote character, no blank line, no NUL byte (UTF-16), lines
+    ending in LF or CR LF. None otherwise, or for any other file (QGIS then counts).
+
+    Counting the lines of a 200-gauge, 30-year CSV (51 MB) takes about 0.05 s; asking QGIS
+    (its OGR layer reads every feature) took 1.4 s, a fifth of a ``qgis_process`` run.
+    """
+    import re
+
+    path = Path(path)
+    if path.suffix.lower() not in _TEXT or not path.is_file():
+        return None
+    blank = re.compile(rb"\n[ \t\r]*\n")
+    lines = 0
+    tail = b""
+    first = True
+    last = b""
+    with open(path, "rb") as handle:
+        while True:
+            part = handle.read(chunk)
+            if not part:
+                break
+            if first and (
+                part.startswith((b"\xff\xfe", b"\xfe\xff")) or re.match(rb"[ \t\r]*\n", part)
+            ):
+                return None
+            first = False
+            if b'"' in part or b"\x00" in part:
+                return None
+            seen = tail + part
+            if blank.search(seen) or seen.count(b"\r") != seen.count(b"\r\n") + seen.endswith(
+                b"\r"
+            ):
+                return None
+            lines += part.count(b"\n")
+            tail, last = seen[-64:], part[-1:]
+    if first:
+        return None  # an empty file
+    if tail.endswith(b"\r"):
+        return None
+    lines += last != b"\n"  # a last line without its line end
+    return lines - 1  # the header

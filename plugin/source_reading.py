@@ -89,7 +89,7 @@ class SourceReading:
             feedback.setProgressText(self.tr("Reading the {}").format(what))
             table = None
             if what == "discharge" and direct is not None:
-                frame = direct_read.read_discharge(direct, names, source.featureCount())
+                frame = direct_read.read_discharge(direct, names, source.featureCount)
                 if frame is not None:
                     table = conversion.LayerTable(frame, source.fields())
                     from ..algorithms.database import is_database

@@ -195,3 +195,47 @@ def test_a_table_the_core_reads_otherwise_than_qgis_counts_goes_through_qgis(qgi
     assert len(read_discharge(path, wanted, -1)) == 2  # QGIS does not know the count
     assert read_discharge(path, wanted, 3) is None
     assert read_discharge(path, ["gauge_id", "flow"], 2) is None
+
+
+@pytest.mark.parametrize(
+    "text, rows",
+    [
+        ("gauge_id,date,discharge\nQM01,2000-10-01,4.5\nQM01,2000-10-02,4.4\n", 2),
+        ("gauge_id,date,discharge\r\nQM01,2000-10-01,4.5\r\nQM01,2000-10-02,4.4", 2),
+        ("gauge_id,date,discharge\n", 0),
+        ("gauge_id;date;discharge\nQM01;2000-10-01;4,5\n", 1),
+        ('gauge_id,date,discharge\n"QM01",2000-10-01,4.5\n', None),  # quotes: QGIS counts
+        ("gauge_id,date,discharge\nQM01,2000-10-01,4.5\n\nQM01,2000-10-02,4.4\n", None),
+        ("gauge_id,date,discharge\nQM01,2000-10-01,4.5\n \n", None),  # a blank line
+        ("\ngauge_id,date,discharge\nQM01,2000-10-01,4.5\n", None),
+        ("gauge_id,date,discharge\rQM01,2000-10-01,4.5\r", None),  # old Mac line ends
+        ("", None),
+    ],
+)
+def test_rows_counted_from_lines_only_when_each_line_is_a_row(tmp_path, text, rows):
+    from recharge_atlas.plugin.direct_read import plain_text_rows
+
+    path = tmp_path / "discharge.csv"
+    path.write_bytes(text.encode("utf-8"))
+    assert plain_text_rows(path) == rows
+    assert plain_text_rows(path, chunk=7) == rows  # a line end or blank line across two reads
+    assert plain_text_rows(tmp_path / "absent.csv") is None
+
+
+def test_qgis_counts_the_features_only_when_the_lines_cannot_tell(qgis_app, tmp_path):
+    from recharge_atlas.plugin.direct_read import read_discharge
+
+    wanted = ["gauge_id", "date", "discharge"]
+    asked = []
+
+    def count(rows):
+        return lambda: asked.append(rows) or rows
+
+    plain = tmp_path / "plain.csv"
+    plain.write_text("gauge_id,date,discharge\nQM01,2000-10-01,4.5\nQM01,2000-10-02,4.4\n")
+    assert len(read_discharge(plain, wanted, count(2))) == 2 and asked == []
+    quoted = tmp_path / "quoted.csv"
+    quoted.write_text('gauge_id,date,discharge\n"QM01",2000-10-01,4.5\n"QM01",2000-10-02,4.4\n')
+    assert len(read_discharge(quoted, wanted, count(2))) == 2 and asked == [2]
+    assert read_discharge(quoted, wanted, count(3)) is None  # QGIS sees another count
+    assert plain.read_text().count("\n") == 3  # the file is left as it was
