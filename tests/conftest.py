@@ -32,3 +32,19 @@ def demo_region():
     from recharge_atlas.sample_layers.generate import make_region
 
     return make_region()
+
+
+@pytest.fixture(scope="module")
+def clean(tmp_path_factory):
+    """The bad-input cases' small region and its clean run (see tests/bad_input_cases.py)."""
+    from bad_input_cases import clean_region
+
+    return clean_region(tmp_path_factory)
+
+
+@pytest.fixture
+def case(tmp_path, clean):
+    """One bad-input case: a copy of the clean region to spoil (tests/bad_input_cases.py)."""
+    from bad_input_cases import Case
+
+    return Case(tmp_path, clean)

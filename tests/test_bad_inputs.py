@@ -21,24 +21,13 @@ import geopandas as gpd
 import numpy as np
 import pandas as pd
 import pytest
-from bad_input_cases import OTHERS, SPOILT, Case, _rows, clean_region
+from bad_input_cases import OTHERS, SPOILT, _rows
 from messy_region import digests
 from shapely.geometry import LineString, Polygon
 from test_end_to_end import run_args
 
 from recharge_atlas.algorithms import files, geopackage, groups, pipeline
 from recharge_atlas.cli import main
-
-
-@pytest.fixture(scope="module")
-def clean(tmp_path_factory):
-    return clean_region(tmp_path_factory)
-
-
-@pytest.fixture
-def case(tmp_path, clean):
-    return Case(tmp_path, clean)
-
 
 # --------------------------------------------------------------------------- files
 

@@ -9,20 +9,9 @@ import sys
 
 import pandas as pd
 import pytest
-from bad_input_cases import OTHERS, SPOILT, Case, _rows, clean_region
+from bad_input_cases import OTHERS, SPOILT, _rows
 
 from recharge_atlas.algorithms import readers
-
-
-@pytest.fixture(scope="module")
-def clean(tmp_path_factory):
-    return clean_region(tmp_path_factory)
-
-
-@pytest.fixture
-def case(tmp_path, clean):
-    return Case(tmp_path, clean)
-
 
 # --------------------------------------------------------------------------- issue 14 (inputs)
 

@@ -17,22 +17,11 @@ import sys
 from pathlib import Path
 
 import pytest
-from bad_input_cases import Case, clean_region
 from messy_region import digests
 from test_end_to_end import run_args
 
 from recharge_atlas.algorithms import geopackage, outputs, pipeline
 from recharge_atlas.cli import main
-
-
-@pytest.fixture(scope="module")
-def clean(tmp_path_factory):
-    return clean_region(tmp_path_factory)
-
-
-@pytest.fixture
-def case(tmp_path, clean):
-    return Case(tmp_path, clean)
 
 
 def _raise(exc):

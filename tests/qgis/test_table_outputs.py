@@ -12,7 +12,6 @@ pytest.importorskip("qgis.core")
 
 from qgis.core import (  # noqa: E402
     QgsProcessingContext,
-    QgsProcessingFeedback,
     QgsProcessingOutputLayerDefinition,
     QgsProject,
     QgsVectorLayer,
@@ -20,18 +19,6 @@ from qgis.core import (  # noqa: E402
 from support_qgis import SAMPLE, assert_table_is, sample_parameters  # noqa: E402
 
 ALGORITHM = "recharge_atlas:catchmentrecharge"
-
-
-class Log(QgsProcessingFeedback):
-    """Keeps what the run says."""
-
-    def __init__(self):
-        super().__init__()
-        self.lines = []
-
-    def pushInfo(self, text):  # noqa: N802 (QGIS API name)
-        self.lines.append(text)
-        super().pushInfo(text)
 
 
 def _columns(path, table):
@@ -44,7 +31,11 @@ def _contents(path):
         return dict(db.execute("select table_name, data_type from gpkg_contents"))
 
 
-def test_tables_in_a_started_geopackage_are_the_command_lines(qgis_app, core_result, tmp_path):
+def _said(log):
+    return [text for kind, text in log.lines if kind == "info"]
+
+
+def test_tables_in_a_started_geopackage_are_the_command_lines(core_result, log_feedback, tmp_path):
     import processing
 
     from recharge_atlas.cli import main
@@ -62,9 +53,9 @@ def test_tables_in_a_started_geopackage_are_the_command_lines(qgis_app, core_res
         outputs[name] = definition
     context = QgsProcessingContext()
     context.setProject(project)
-    log = Log()
+    log = log_feedback()
     results = processing.run(ALGORITHM, sample_parameters(**outputs), context=context, feedback=log)
-    said = [line for line in log.lines if "by the command line's GeoPackage writer" in line]
+    said = [line for line in _said(log) if "by the command line's GeoPackage writer" in line]
     assert [line.split(":")[0] for line in said] == ["ANNUAL", "EVENTS"]
     assert results["ANNUAL"] == f"{out}|layername=annual"
     assert results["EVENTS"] == f"{out}|layername=events"
@@ -81,17 +72,19 @@ def test_tables_in_a_started_geopackage_are_the_command_lines(qgis_app, core_res
         assert details.outputName == name
 
 
-def test_a_table_to_a_file_of_its_own_still_goes_through_a_sink(qgis_app, core_result, tmp_path):
+def test_a_table_to_a_file_of_its_own_still_goes_through_a_sink(
+    core_result, log_feedback, tmp_path
+):
     import processing
 
     out, annual = tmp_path / "recharge.gpkg", tmp_path / "annual.gpkg"
-    log = Log()
+    log = log_feedback()
     results = processing.run(
         ALGORITHM,
         sample_parameters(OUTPUT=str(out), ANNUAL=str(annual), EVENTS="memory:"),
         feedback=log,
     )
-    assert not [line for line in log.lines if "GeoPackage writer" in line]
+    assert not [line for line in _said(log) if "GeoPackage writer" in line]
     layer = QgsVectorLayer(results["ANNUAL"], "a", "ogr")
     assert layer.isValid()
     assert_table_is(layer, core_result.annual, "annual")
