@@ -219,15 +219,22 @@ class SinkWriting:
         from qgis.core import QgsProcessingContext
 
         from ..algorithms.geopackage import RESULT_TABLES, add_attribute_table
+        from ..algorithms.outputs import disk_full
 
         text, layer, definition = target
         description = {n: d for n, _, d in RESULT_TABLES}.get(layer, "")
-        db = sqlite3.connect(text)
         try:
-            with db:
-                add_attribute_table(db, layer, frame, description)
-        finally:
-            db.close()
+            db = sqlite3.connect(text)
+            try:
+                with db:  # one transaction: the table is there whole or not at all
+                    add_attribute_table(db, layer, frame, description)
+            finally:
+                db.close()
+        except (OSError, sqlite3.Error) as exc:
+            full = disk_full(exc, text, f"writing the {layer} table")
+            if full is not None:
+                raise full from None
+            raise
         dest = f"{text}|layername={layer}"
         project = definition.destinationProject if definition is not None else None
         if project is not None:

@@ -91,3 +91,23 @@ def test_a_table_to_a_file_of_its_own_still_goes_through_a_sink(
     events = results["EVENTS"]
     events = events if isinstance(events, QgsVectorLayer) else None
     assert events is None or events.featureCount() == len(core_result.events)
+
+
+def test_a_full_disk_while_adding_a_table_is_said_in_words(tmp_path, monkeypatch):
+    import sqlite3
+
+    import processing
+    from qgis.core import QgsProcessingException
+
+    from recharge_atlas.algorithms import geopackage
+
+    def full(*args, **kwargs):
+        raise sqlite3.OperationalError("database or disk is full")
+
+    monkeypatch.setattr(geopackage, "add_attribute_table", full)
+    out = tmp_path / "recharge.gpkg"
+    with pytest.raises(QgsProcessingException) as raised:
+        processing.run(ALGORITHM, sample_parameters(OUTPUT=str(out), ANNUAL=str(out)))
+    message = str(raised.value)
+    assert "while writing the annual table" in message and "internal error" not in message
+    assert str(out) in message
