@@ -217,6 +217,13 @@ def read_table(path, what="discharge table", id_fields=()):
     return frame
 
 
+def _is_text(kind):
+    """Whether an Arrow type is text (read as categories when it holds gauge ids)."""
+    import pyarrow as pa
+
+    return pa.types.is_string(kind) or pa.types.is_large_string(kind)
+
+
 def _read_parquet(file_path, id_fields=()):
     """A Parquet file whole, its text columns in ``id_fields`` as categories.
 
@@ -226,16 +233,14 @@ def _read_parquet(file_path, id_fields=()):
     ``pandas.read_parquet``, and held 488 MB after against 750 MB (issue 17).
     """
     try:
-        import pyarrow as pa
         import pyarrow.parquet as pq
     except ImportError:
         return pd.read_parquet(file_path)  # pandas says which engine is missing
     schema = pq.read_schema(file_path)
-    text = (pa.types.is_string, pa.types.is_large_string)
     wanted = [
         name
         for name in dict.fromkeys(id_fields)
-        if name in schema.names and any(is_text(schema.field(name).type) for is_text in text)
+        if name in schema.names and _is_text(schema.field(name).type)
     ]
     with _system_arrow_memory():
         table = pq.read_table(file_path, read_dictionary=wanted or None)
@@ -448,7 +453,7 @@ def _parquet_rows_of(file_path, gauge_field, values, kind):
     import pyarrow.compute as pc
     import pyarrow.parquet as pq
 
-    text_ids = pa.types.is_string(kind) or pa.types.is_large_string(kind)
+    text_ids = _is_text(kind)
     # Text ids come as a dictionary (a category column: a small number a row, not the text).
     source = pq.ParquetFile(file_path, read_dictionary=[gauge_field] if text_ids else None)
     wanted = pa.array(values, type=kind) if not pa.types.is_dictionary(kind) else pa.array(values)
