@@ -609,6 +609,20 @@ def recession_rises(events, logq, day0, recession_index_days):
     }
 
 
+def _running_median_of_5(values):
+    """The median of every 5 consecutive values (``size − 4`` of them; NaN where one of the
+    five is NaN), as ``np.median`` of the sliding windows gives it, by comparisons alone.
+
+    Of the first four, the larger of the two pairs' smaller values and the smaller of their
+    larger values are the middle two; the median of five is the median of those two and the
+    fifth. ``np.minimum`` and ``np.maximum`` carry NaN through, as ``np.median`` does.
+    """
+    a, b, c, d, e = (values[i : values.size - 4 + i] for i in range(5))
+    low = np.maximum(np.minimum(a, b), np.minimum(c, d))
+    high = np.minimum(np.maximum(a, b), np.maximum(c, d))
+    return np.maximum(np.minimum(low, high), np.minimum(np.maximum(low, high), e))
+
+
 def _days_after_half_gain(x, a, b, k, start, end):
     """``b − τ`` for each interval ``[a, b]`` of :func:`recession_rises`, all intervals at once.
 
@@ -623,7 +637,7 @@ def _days_after_half_gain(x, a, b, k, start, end):
     carried = x[np.repeat(a, lengths) + offset] + offset / k
     smoothed = carried.copy()
     if carried.size >= 5:
-        medians = np.median(np.lib.stride_tricks.sliding_window_view(carried, 5), axis=1)
+        medians = _running_median_of_5(carried)
         inner = (offset >= 2) & (offset <= np.repeat(lengths, lengths) - 3)
         smoothed[inner] = medians[np.flatnonzero(inner) - 2]
     half = 0.5 * (end - start)

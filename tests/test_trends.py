@@ -14,6 +14,7 @@ from recharge_atlas.algorithms.trends import (
     FALLING,
     NO_TREND,
     RISING,
+    _ranks,
     mann_kendall,
     mann_kendall_s,
     recharge_trend,
@@ -131,3 +132,31 @@ def test_each_gauge_carries_the_trend_of_its_complete_years():
     assert result.recharge_trend == expected["recharge_trend"] != ""
     # Built without a trend, the invented climate should seldom show one at 5 %.
     assert result.recharge_trend_p_value > 0.001
+
+
+def test_serial_correction_is_the_formula_written_out_and_ranks_are_scipys():
+    # Hamed & Rao (1998), as in the module's docstring, written out a lag at a time with
+    # scipy.stats.rankdata's ranks (the reference); the module adds every lag's products at
+    # once and ranks by itself, which must give the very same numbers (ties included).
+    rng = np.random.default_rng(7)
+    for trial in range(200):
+        n = int(rng.integers(4, 45))
+        years = np.sort(rng.choice(np.arange(1950, 2030), n, replace=False)).astype(float)
+        x = np.round(rng.normal(100, 30, n) / (10 if trial % 2 else 1))  # ties every other
+        for i in range(1, n):
+            x[i] += 0.7 * x[i - 1] if trial % 3 == 0 else 0.0
+        ranks = stats.rankdata(x - sen_slope(years, x) * years)
+        ranks = ranks - ranks.mean()
+        expected = 1.0
+        if np.sum(ranks**2) > 0:
+            total = 0.0
+            for k in range(1, n - 2):
+                rho = float(np.sum(ranks[:-k] * ranks[k:])) / float(np.sum(ranks**2))
+                if abs(rho) > 1.96 / math.sqrt(n):
+                    total += (n - k) * (n - k - 1) * (n - k - 2) * rho
+            expected = max(1.0 + 2.0 * total / (n * (n - 1) * (n - 2)), 1e-9)
+        assert serial_correction(years, x) == expected
+        assert np.array_equal(_ranks(x), stats.rankdata(x))
+    # The p-value is the normal's two-sided tail (scipy.stats.norm.sf as the reference).
+    s, var, z, p = mann_kendall(np.arange(30), rng.normal(size=30) + 0.05 * np.arange(30))
+    assert p == 2 * stats.norm.sf(abs(z))
