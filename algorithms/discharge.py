@@ -611,6 +611,7 @@ def _split_gauges(names, codes, ticks, per_day, values, problems, flagged, min_d
     for g, name in enumerate(names):
         a, b = bounds[g], bounds[g + 1]
         if a == b:
+            marks = np.zeros(0, bool)
             flow = pd.Series(
                 [], dtype=float, index=pd.DatetimeIndex([], name="date"), name="discharge_m3s"
             )
@@ -639,7 +640,7 @@ def _split_gauges(names, codes, ticks, per_day, values, problems, flagged, min_d
                 "conflicting_times": int(conflicting[g]),
                 "days_averaged": int(averaged[g]),
                 "days_incomplete": int(incomplete[g]),
-                "days_flagged": int(flags.sum()),
+                "days_flagged": int(np.count_nonzero(marks)),
                 "sub_daily": bool(step_of[g] < 1.0),
             }
         )

@@ -138,43 +138,53 @@ def incremental_recharge(nesting: Nesting, annual: pd.DataFrame):
         Gauge id to ``(mean m³/yr, mean mm/yr, years)`` over those years.
     """
     complete = annual[annual["complete"].astype(bool)] if len(annual) else annual
-    volume = {
-        (g, y): v
-        for g, y, v in zip(
-            complete.get("gauge_id", []),
-            complete.get("water_year", []),
-            complete.get("recharge_m3", []),
-        )
-    }
-    years_of = {}
-    for g, y in volume:
-        years_of.setdefault(g, set()).add(y)
-    rows = []
+    # The complete years' volumes as a table of gauges by water years, and which are there.
+    gauges = np.asarray(complete.get("gauge_id", []), dtype=object)
+    years = np.asarray(complete.get("water_year", []), dtype=np.int64)
+    row_of = {g: i for i, g in enumerate(dict.fromkeys(gauges.tolist()))}
+    first = int(years.min()) if years.size else 0
+    shape = (len(row_of), int(years.max()) - first + 1 if years.size else 0)
+    volume, present = np.full(shape, np.nan), np.zeros(shape, bool)
+    cells = ([row_of[g] for g in gauges.tolist()], years - first)
+    volume[cells] = np.asarray(complete.get("recharge_m3", []), dtype=float)
+    present[cells] = True
+    nowhere = np.zeros(shape[1], bool)
+    parts = []
     summary = {}
     for gid, ups in nesting.upstream.items():
-        years = set(years_of.get(gid, set()))
+        # The gauge's complete years that are complete at every gauge directly upstream; the
+        # volumes upstream taken off in order, as a sum from zero would take them.
+        kept = present[row_of[gid]] if gid in row_of else nowhere
+        taken = 0.0
         for u in ups:
-            years &= years_of.get(u, set())
+            kept = kept & (present[row_of[u]] if u in row_of else nowhere)
+        kept = np.flatnonzero(kept)
+        m3 = np.empty(0)
+        if kept.size:  # then the gauge and every gauge upstream have rows
+            for u in ups:
+                taken = taken + volume[row_of[u], kept]
+            m3 = volume[row_of[gid], kept] - taken
         area = nesting.incremental_area_km2.get(gid, np.nan)
-        values = []
-        for y in sorted(years):
-            m3 = volume[(gid, y)] - sum(volume[(u, y)] for u in ups)
-            mm = m3 / (area * 1e3) if np.isfinite(area) and area > 0 else np.nan
-            rows.append(
-                {
-                    "gauge_id": gid,
-                    "water_year": int(y),
-                    "incremental_recharge_m3": m3,
-                    "incremental_recharge_mm": mm,
-                }
-            )
-            values.append((m3, mm))
-        if values:
-            m3 = float(np.mean([v[0] for v in values]))
-            mm = m3 / (area * 1e3) if np.isfinite(area) and area > 0 else np.nan
-            summary[gid] = (m3, mm, len(values))
+        has_area = bool(np.isfinite(area) and area > 0)
+        mm = m3 / (area * 1e3) if has_area else np.full(kept.size, np.nan)
+        if kept.size:
+            parts.append((gid, kept + first, m3, mm))
+            mean = float(np.mean(m3))
+            summary[gid] = (mean, mean / (area * 1e3) if has_area else np.nan, int(kept.size))
         else:
             summary[gid] = (np.nan, np.nan, 0)
     columns = ["gauge_id", "water_year", "incremental_recharge_m3", "incremental_recharge_mm"]
-    by_year = pd.DataFrame(rows, columns=columns) if rows else empty_table(columns)
+    if not parts:
+        return empty_table(columns), summary
+    ids = np.empty(len(parts), dtype=object)
+    ids[:] = [gid for gid, *_ in parts]
+    by_year = pd.DataFrame(
+        {
+            "gauge_id": ids.repeat([p[1].size for p in parts]),
+            "water_year": np.concatenate([p[1] for p in parts]).astype(np.int64),
+            "incremental_recharge_m3": np.concatenate([p[2] for p in parts]),
+            "incremental_recharge_mm": np.concatenate([p[3] for p in parts]),
+        },
+        columns=columns,
+    )
     return by_year, summary

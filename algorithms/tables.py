@@ -112,7 +112,9 @@ def stack(tables, keys, key_name, order, share=False) -> pd.DataFrame:
     parts = [(key, t) for key, t in zip(keys, tables) if t is not None and len(t)]
     if not parts:
         return empty_table([key_name, *order])
-    data = {key_name: np.concatenate([np.full(len(t), key, dtype=object) for key, t in parts])}
+    keys = np.empty(len(parts), dtype=object)
+    keys[:] = [key for key, _ in parts]  # as they are (np.array would make tuples rows)
+    data = {key_name: keys.repeat([len(t) for _, t in parts])}
     for c in order:
         data[c] = np.concatenate([np.asarray(t.columns[c]) for _, t in parts])
     frame = pd.DataFrame(data, copy=False)
