@@ -390,9 +390,8 @@ def segment_columns(x, rises: Rises, lag_days, min_days, sums: _Sums) -> ColumnT
 
 def _covered(first, last, n):
     """Days lying in any of the spans ``[first, last]`` (inclusive), as a boolean mask."""
-    count = np.zeros(n + 1, np.int64)
-    np.add.at(count, first, 1)
-    np.add.at(count, last + 1, -1)
+    first, last = np.asarray(first, np.int64), np.asarray(last, np.int64)
+    count = np.bincount(first, minlength=n + 1) - np.bincount(last + 1, minlength=n + 1)
     return np.cumsum(count[:n]) > 0
 
 
@@ -754,9 +753,8 @@ def rising_share(logq, segments, recession_index_days):
     k = float(recession_index_days)
     if not first.size or not np.isfinite(k) or k <= 0:
         return np.nan
-    inside = np.zeros(x.size, dtype=np.int64)  # +1 where a segment starts, −1 at its last day
-    np.add.at(inside, first, 1)
-    np.add.at(inside, last, -1)
+    # +1 where a segment starts, −1 at its last day (days lie in the record)
+    inside = np.bincount(first, minlength=x.size) - np.bincount(last, minlength=x.size)
     step_in_segment = np.cumsum(inside)[:-1] > 0  # the step from day t to t + 1
     d = np.diff(x)[step_in_segment] + 1.0 / k
     d = d[np.isfinite(d)]

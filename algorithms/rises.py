@@ -8,6 +8,7 @@ before it, and the flow falls that far below it before a new, higher climb. The 
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -278,14 +279,17 @@ class Rises:
             return self.peak, np.ones(n), np.arange(n)
         return self.pulse_peak, self.pulse_rise, self.pulse_event
 
-    @property
+    @functools.cached_property
     def last_peak(self) -> np.ndarray:
-        """The last pulse of each event (its peak when it has one pulse)."""
+        """The last pulse of each event (its peak when it has one pulse); worked out once, as a
+        read-only array (a gauge's steps ask for it a dozen times; Rises are not changed)."""
         day, _, event = self.pulses()
         if day.size == 0:
-            return np.empty(0, int)
-        last = np.flatnonzero(np.append(event[1:] != event[:-1], True))
-        return day[last]
+            out = np.empty(0, int)
+        else:
+            out = day[np.flatnonzero(np.append(event[1:] != event[:-1], True))]
+        out.flags.writeable = False
+        return out
 
 
 def find_rises(logq, lag_days, threshold, recession_index_days=None) -> Rises:
@@ -379,13 +383,14 @@ def _rising_days(x, rise_start, last_peak):
     """
     first = np.minimum(rise_start + 1, last_peak)  # an event seen only after a gap: its peak
     positions, span, _ = _laid_end_to_end(first, last_peak - first + 1)
-    q = 10.0**x
-    # Growth since the last day with a value (across a gap for a rise hidden in it).
+    # Growth since the last day with a value (across a gap for a rise hidden in it); the flow
+    # is worked out on the days needed only.
     finite = np.isfinite(x)
     last_valid = np.maximum.accumulate(np.where(finite, np.arange(x.size), -1))
     before = last_valid[np.maximum(positions - 1, 0)]
     with np.errstate(invalid="ignore"):
-        growth = np.where(before >= 0, q[positions] - q[np.maximum(before, 0)], 0.0)
+        grown = 10.0 ** x[positions] - 10.0 ** x[np.maximum(before, 0)]
+        growth = np.where(before >= 0, grown, 0.0)
     growth = np.nan_to_num(growth, nan=0.0)
     keep = (growth > 0) | (positions == last_peak[span])
     return {
