@@ -117,9 +117,10 @@ def _check_existing_output(target, what):
 _OWNER_TAG = re.compile(r"~ra-(?P<where>[0-9a-f]{8})-(?P<pid>[0-9]+)-")
 
 
-#: Hidden files beside an output (with SQLite's journal files).
+#: Hidden files beside an output (with SQLite's journal files, and the file of the second
+#: process that writes some of a GeoPackage's tables, ``geopackage._TableHelper``).
 _BESIDE = re.compile(
-    r"^\..*\.~ra-[0-9a-f]{8}-[0-9]+-[a-z0-9_]+\.[A-Za-z0-9]+(-journal|-wal|-shm)?$"
+    r"^\..*\.~ra-[0-9a-f]{8}-[0-9]+-[a-z0-9_]+\.[A-Za-z0-9]+(-tables|-journal|-wal|-shm)?$"
 )
 
 

@@ -6,6 +6,7 @@ works, leaves nothing behind."""
 from __future__ import annotations
 
 import multiprocessing
+import os
 import sqlite3
 
 import pytest
@@ -75,8 +76,6 @@ def test_two_writers_write_what_one_writes(result, tmp_path, monkeypatch):
 
 @pytest.mark.parametrize("how", ["raises", "dies"])
 def test_a_failed_helper_leaves_its_tables_to_the_run(result, tmp_path, monkeypatch, how):
-    import os
-
     def broken(path, tables, sender, parent_pid):
         if how == "dies":  # killed, say, by the kernel: no word to the parent
             sender.close()
@@ -104,7 +103,6 @@ def test_a_run_stopped_while_the_helper_writes_leaves_nothing(result, tmp_path, 
 
 def test_a_full_disk_is_said_in_words_when_the_helper_fails_too(result, tmp_path, monkeypatch):
     import errno
-    import os
 
     from recharge_atlas.algorithms.errors import InputError
 
@@ -116,3 +114,20 @@ def test_a_full_disk_is_said_in_words_when_the_helper_fails_too(result, tmp_path
     with pytest.raises(InputError, match="no space left on device while writing the output"):
         geopackage.write_geopackage(result, tmp_path / "out.gpkg")
     assert list(tmp_path.iterdir()) == []
+
+
+def test_the_helpers_file_left_by_a_killed_run_is_removed_by_the_next(tmp_path):
+    import subprocess
+    import sys
+
+    from recharge_atlas.algorithms import outputs
+
+    gone = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
+                          capture_output=True, text=True, check=True)  # fmt: skip
+    dead = outputs.owner_tag().replace(f"-{os.getpid()}-", f"-{gone.stdout.strip()}-")
+    left = tmp_path / f".recharge.{dead}abcd1234.gpkg-tables"
+    alive = tmp_path / f".recharge.{outputs.owner_tag()}abcd1234.gpkg-tables"
+    for path in (left, alive):
+        path.write_text("rows")
+    outputs.remove_dead_leftovers([tmp_path])
+    assert not left.exists() and alive.exists()
