@@ -629,8 +629,9 @@ def _split_gauges(names, codes, ticks, per_day, values, problems, flagged, min_d
             daily[day_number[a:b] - first] = mean[a:b]
             marks = np.zeros(last - first + 1, bool)
             marks[day_number[a:b] - first] = day_flagged[a:b]
-            flow = pd.Series(daily, index=index, name="discharge_m3s")
-            flags = pd.Series(marks, index=index, name="flagged")
+            # The arrays are this record's own: no copy (pandas 3 would copy by default).
+            flow = pd.Series(daily, index=index, name="discharge_m3s", copy=False)
+            flags = pd.Series(marks, index=index, name="flagged", copy=False)
         counts_g = {k: int(v[g]) for k, v in problem_counts.items()}
         if a < b:
             counts_g.update(_stray_days(day_number[a:b]))
