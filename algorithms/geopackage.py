@@ -146,7 +146,11 @@ def write_geopackage(
     style = recharge_style(result.catchments, scheme=scheme, classes=classes)
     # (name, description, rows): no rows for a table the spill holds.
     tables = [
-        (name, description, None if spill and spill.holds(name) else getattr(result, attribute))
+        (
+            name,
+            description,
+            None if spill is not None and spill.holds(name) else getattr(result, attribute),
+        )
         for name, attribute, description in RESULT_TABLES
     ]
     if daily:
@@ -205,12 +209,12 @@ class _TableHelper:
     table's time, and it runs on the second core; the copy costs a tenth of it. Should the
     helper fail in any way, :meth:`fill` writes its tables here as if it had never started
     (a real disk problem then says itself, in this process, in the usual words).
-    Measured on the 2-core machine (December 2026, 2,000 gauges × 30 years): the tables of
-    the run's GeoPackage in 2.0 s instead of 3.2 s.
+    Measured on the 2-core machine (December 2026, 2,000 gauges × 30 years): the run's
+    GeoPackage in 2.6 s instead of 3.35 s.
     """
 
-    def __init__(self, path=None, names=(), process=None, receiver=None):
-        self.path, self.names = path, tuple(names)
+    def __init__(self, path=None, kinds=None, process=None, receiver=None):
+        self.path, self.kinds = path, kinds or {}  # the helper's tables and their columns
         self.process, self.receiver = process, receiver
         self.pending = {}
 
@@ -232,22 +236,22 @@ class _TableHelper:
         import multiprocessing
 
         path = str(temp) + "-tables"
+        wanted = [(name, frame, _kinds(frame)) for name, frame in tables if name in names]
         context = multiprocessing.get_context("fork")
         receiver, sender = context.Pipe(duplex=False)
-        wanted = [(name, frame) for name, frame in tables if name in names]
         process = context.Process(
             target=_helper_writes, args=(path, wanted, sender, os.getpid()), daemon=True
         )
         process.start()
         sender.close()
-        return cls(path, names, process, receiver)
+        return cls(path, {name: kinds for name, _, kinds in wanted}, process, receiver)
 
     def holds(self, name) -> bool:
-        return name in self.names
+        return name in self.kinds
 
     def create(self, db, name, frame, description):
         """Create and list table ``name`` now (its rows come in :meth:`fill`)."""
-        kinds = {column: _gpkg_type(frame[column]) for column in frame.columns}
+        kinds = self.kinds[name]
         _create_table(db, name, kinds)
         _register_attributes(db, name, description, len(frame))
         self.pending[name] = (frame, kinds)
@@ -266,12 +270,7 @@ class _TableHelper:
         try:
             with db:
                 for name, (_, kinds) in self.pending.items():
-                    columns = ", ".join(_identifier(c) for c in kinds)
-                    table = _identifier(name)
-                    db.execute(
-                        f"INSERT INTO main.{table} ({columns}) "
-                        f"SELECT {columns} FROM helper.{table} ORDER BY fid"
-                    )
+                    _copy_rows(db, "helper", name, kinds)
         finally:
             db.execute("DETACH DATABASE helper")
 
@@ -299,8 +298,8 @@ class _TableHelper:
 
 
 def _helper_writes(path, tables, sender, parent_pid):
-    """In the helper process: ``tables`` (name, frame) into a new SQLite file at ``path``;
-    says "done", or what went wrong, to the parent."""
+    """In the helper process: ``tables`` (name, frame, column kinds) into a new SQLite file at
+    ``path``; says "done", or what went wrong, to the parent."""
     from .parallel import _worker_start
 
     try:
@@ -310,8 +309,7 @@ def _helper_writes(path, tables, sender, parent_pid):
             db.execute("PRAGMA journal_mode = OFF")  # a scratch file, thrown away after
             db.execute("PRAGMA synchronous = OFF")
             with db:
-                for name, frame in tables:
-                    kinds = {column: _gpkg_type(frame[column]) for column in frame.columns}
+                for name, frame, kinds in tables:
                     _create_table(db, name, kinds)
                     _insert_rows(db, name, frame, kinds)
         finally:
@@ -454,10 +452,25 @@ ROWS_PER_INSERT = 20_000
 # tables it could write).
 def add_attribute_table(db, name, frame, description=""):
     """Add a non-spatial table to an open GeoPackage (data type ``attributes``, GPKG 1.2+)."""
-    kinds = {column: _gpkg_type(frame[column]) for column in frame.columns}
+    kinds = _kinds(frame)
     _create_table(db, name, kinds)
     _insert_rows(db, name, frame, kinds)
     _register_attributes(db, name, description, len(frame))
+
+
+def _kinds(frame):
+    """The GeoPackage column type of each of ``frame``'s columns."""
+    return {column: _gpkg_type(frame[column]) for column in frame.columns}
+
+
+def _copy_rows(db, source, name, kinds):
+    """Table ``name``'s rows from the attached database ``source`` into the same table of
+    ``main``, in their order (feature ids are given anew, from 1)."""
+    columns = ", ".join(_identifier(c) for c in kinds)
+    table = _identifier(name)
+    db.execute(
+        f"INSERT INTO main.{table} ({columns}) SELECT {columns} FROM {source}.{table} ORDER BY fid"
+    )
 
 
 def _create_table(db, name, kinds):
@@ -555,7 +568,7 @@ class TableSpill:
             return
         try:
             if name not in self.kinds:
-                self.kinds[name] = {column: _gpkg_type(frame[column]) for column in frame.columns}
+                self.kinds[name] = _kinds(frame)
                 self.rows[name] = 0
                 _create_table(self.db, name, self.kinds[name])
             _insert_rows(self.db, name, frame, self.kinds[name])
@@ -580,11 +593,7 @@ class TableSpill:
         ``spill``), with the same columns and rows in the same order."""
         kinds = self.kinds[name]
         _create_table(db, name, kinds)
-        columns = ", ".join(_identifier(c) for c in kinds)
-        table = _identifier(name)
-        db.execute(
-            f"INSERT INTO main.{table} ({columns}) SELECT {columns} FROM spill.{table} ORDER BY fid"
-        )
+        _copy_rows(db, "spill", name, kinds)
         _register_attributes(db, name, description, self.rows[name])
 
     def batches(self, name, rows=50_000):

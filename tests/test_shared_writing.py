@@ -61,7 +61,7 @@ def test_two_writers_write_what_one_writes(result, tmp_path, monkeypatch):
 
     def start(temp, tables):
         helper = real(temp, tables)
-        started.append(helper.names)
+        started.append(list(helper.kinds))
         return helper
 
     monkeypatch.setattr(geopackage._TableHelper, "start", start)
