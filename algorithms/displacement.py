@@ -32,7 +32,7 @@ import numpy as np
 import pandas as pd
 
 from .recession import critical_time_days, displacement_recharge_m3
-from .rises import Rises
+from .rises import Rises, median_of_five
 from .tables import ColumnTable
 
 #: Columns of the event table, in order.
@@ -611,16 +611,8 @@ def recession_rises(events, logq, day0, recession_index_days):
 
 def _running_median_of_5(values):
     """The median of every 5 consecutive values (``size − 4`` of them; NaN where one of the
-    five is NaN), as ``np.median`` of the sliding windows gives it, by comparisons alone.
-
-    Of the first four, the larger of the two pairs' smaller values and the smaller of their
-    larger values are the middle two; the median of five is the median of those two and the
-    fifth. ``np.minimum`` and ``np.maximum`` carry NaN through, as ``np.median`` does.
-    """
-    a, b, c, d, e = (values[i : values.size - 4 + i] for i in range(5))
-    low = np.maximum(np.minimum(a, b), np.minimum(c, d))
-    high = np.minimum(np.maximum(a, b), np.maximum(c, d))
-    return np.maximum(np.minimum(low, high), np.minimum(np.maximum(low, high), e))
+    five is NaN), as ``np.median`` of the sliding windows gives it (:func:`median_of_five`)."""
+    return median_of_five(*(values[i : values.size - 4 + i] for i in range(5)))
 
 
 def _days_after_half_gain(x, a, b, k, start, end):

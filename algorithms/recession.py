@@ -20,7 +20,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from .rises import Rises, gap_free_blocks, noise_level
+from .rises import Rises, _median, gap_free_blocks, median_of_five, noise_level
 from .tables import ColumnTable
 from .units import SECONDS_PER_DAY, SQUARE_MILE_KM2
 
@@ -760,8 +760,8 @@ def rising_share(logq, segments, recession_index_days):
     d = d[np.isfinite(d)]
     if d.size < 30:
         return np.nan
-    centre = float(np.median(d))
-    spread = max(1.4826 * float(np.median(np.abs(d - centre))), STEP_SPREAD_FLOOR)
+    centre = _median(d)  # d is finite: the median by one partial sort
+    spread = max(1.4826 * _median(np.abs(d - centre)), STEP_SPREAD_FLOOR)
     return float(np.mean(d > centre + 3 * spread) - np.mean(d < centre - 3 * spread))
 
 
@@ -864,13 +864,14 @@ def settling_days(
         return np.nan
     offsets = np.arange(1, need + 1)
     block = x[chosen[:, None] + offsets[None, :]] + offsets[None, :] / k  # flattened by K
-    level = np.median(block[:, horizon:], axis=1)
+    level = median_of_five(*block[:, horizon:].T)  # the tail's five days
     excess = np.median(block[:, :horizon] - level[:, None], axis=0)
     # A running median of three days keeps one noisy day from deciding; the median of n events
     # scatters by about 1.25 σ/√n (σ the gauging noise), so the tolerance is at least 3 times
     # that.
-    if excess.size >= 3:
-        excess[1:-1] = np.median(np.stack((excess[:-2], excess[1:-1], excess[2:])), axis=0)
+    if excess.size >= 3:  # the median of three by comparisons (NaN carried through)
+        a, b, c = excess[:-2], excess[1:-1], excess[2:]
+        excess[1:-1] = np.maximum(np.minimum(a, b), np.minimum(np.maximum(a, b), c))
     sigma = noise_level(x) if noise is None else float(noise)
     settled = SETTLED_EXCESS
     if displacement is not None and np.isfinite(displacement) and displacement > 0:

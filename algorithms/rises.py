@@ -56,6 +56,19 @@ def _median(values):
     return 0.5 * float(part[half - 1] + part[half])
 
 
+def median_of_five(a, b, c, d, e):
+    """The median of five arrays, element by element (NaN where one of them is NaN), as
+    ``np.median`` of the five stacked gives it, by comparisons alone.
+
+    Of the first four, the larger of the two pairs' smaller values and the smaller of their
+    larger values are the middle two; the median of five is the median of those two and the
+    fifth. ``np.minimum`` and ``np.maximum`` carry NaN through, as ``np.median`` does.
+    """
+    low = np.maximum(np.minimum(a, b), np.minimum(c, d))
+    high = np.minimum(np.maximum(a, b), np.maximum(c, d))
+    return np.maximum(np.minimum(low, high), np.minimum(np.maximum(low, high), e))
+
+
 def rise_threshold(logq, min_rise=0.01, noise_multiple=5.0, noise=None) -> float:
     """The smallest rise (log10 units) treated as an event: the larger of a floor and k·σ
     (``noise``, σ when already known; else :func:`noise_level` of ``logq``)."""
