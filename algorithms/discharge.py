@@ -300,18 +300,24 @@ def tidy_discharge(
     positive = _positive_codes(codes, numeric[kept], values, n_gauges)
     values[positive] = np.nan
     is_code = code[kept] | positive
+    problems = {
+        "missing": was_missing[kept],
+        "non_numeric": non_numeric[kept],
+        "negative": bad_sign[kept],
+        "implausible": implausible[kept],
+        "missing_value_code": is_code,
+    }
+    # Counted per gauge now, and the row-length marks let go before the records are made.
+    problem_counts = {
+        k: np.bincount(codes[v], minlength=n_gauges).astype(int) for k, v in problems.items()
+    }
+    del problems, was_missing, non_numeric, bad_sign, implausible, code, named, has_stamp, keep
     records = _split_gauges(
         [str(n) for n in names],
         codes,
         *_ticks(stamp[kept]),
         values,
-        {
-            "missing": was_missing[kept],
-            "non_numeric": non_numeric[kept],
-            "negative": bad_sign[kept],
-            "implausible": implausible[kept],
-            "missing_value_code": is_code,
-        },
+        problem_counts,
         flagged[kept],
         float(min_day_coverage),
     )
@@ -522,12 +528,13 @@ def _median_steps(codes, ticks, per_day, n_gauges):
     return out
 
 
-def _split_gauges(names, codes, ticks, per_day, values, problems, flagged, min_day_coverage):
+def _split_gauges(names, codes, ticks, per_day, values, problem_counts, flagged, min_day_coverage):
     """One GaugeRecord per gauge, from the rows of all gauges at once (no loop over rows).
 
     ``ticks`` are the rows' time stamps as int64, ``per_day`` of them to a day. Rows are sorted
     by gauge and time; values of one day are averaged (sub-daily days with too few values are
-    dropped); each gauge's days are laid on a complete daily range.
+    dropped); each gauge's days are laid on a complete daily range. ``problem_counts`` holds the
+    counts of each kind of problem row per gauge (they go into each record's counts).
     """
     order = _by_gauge_and_time(codes, ticks)
     if order is not None:
@@ -537,12 +544,10 @@ def _split_gauges(names, codes, ticks, per_day, values, problems, flagged, min_d
             values[order],
             flagged[order],
         )
-        problems = {k: v[order] for k, v in problems.items()}
-    day = np.floor_divide(ticks, per_day).astype(np.int32)  # days since 1970 fit
+    # Days since 1970 fit in int32; written straight into it (no row-length int64 temporary).
+    day = np.empty(ticks.size, np.int32)
+    np.floor_divide(ticks, per_day, out=day, casting="unsafe")
     n_gauges = len(names)
-    problem_counts = {
-        k: np.bincount(codes[v], minlength=n_gauges).astype(int) for k, v in problems.items()
-    }
 
     # Typical step between distinct time stamps of each gauge (sub-daily when under a day).
     distinct = np.ones(codes.size, bool)
