@@ -214,9 +214,12 @@ class _TableHelper:
     """
 
     def __init__(self, path=None, kinds=None, process=None, receiver=None):
+        import time
+
         self.path, self.kinds = path, kinds or {}  # the helper's tables and their columns
         self.process, self.receiver = process, receiver
         self.pending = {}
+        self.started = time.monotonic()
 
     @classmethod
     def start(cls, temp, tables):
@@ -275,8 +278,16 @@ class _TableHelper:
             db.execute("DETACH DATABASE helper")
 
     def _finished(self) -> bool:
-        """True when the helper wrote every table it was given."""
+        """True when the helper wrote every table it was given. A helper that takes far longer
+        than this process took for its own share (:data:`HELPER_PATIENCE`) is given up on: it
+        may be stuck, and its tables are then written here."""
+        import time
+
+        factor, seconds = HELPER_PATIENCE
+        patience = factor * (time.monotonic() - self.started) + seconds
         try:
+            if not self.receiver.poll(patience):
+                return False
             said = self.receiver.recv()
         except (EOFError, OSError):  # it ended without a word
             return False
@@ -295,6 +306,12 @@ class _TableHelper:
             from .outputs import _remove_leftovers
 
             _remove_leftovers(self.path)
+
+
+#: How long the run waits for the second writer once its own share is written: this many
+#: times as long as that share took, plus these seconds (it has about as much to do, so a
+#: helper that is still at work after that is taken for stuck; our own rule).
+HELPER_PATIENCE = (10.0, 60.0)
 
 
 def _helper_writes(path, tables, sender, parent_pid):

@@ -131,3 +131,22 @@ def test_the_helpers_file_left_by_a_killed_run_is_removed_by_the_next(tmp_path):
         path.write_text("rows")
     outputs.remove_dead_leftovers([tmp_path])
     assert not left.exists() and alive.exists()
+
+
+def test_a_stuck_helper_is_given_up_on_and_its_tables_written_by_the_run(
+    result, tmp_path, monkeypatch
+):
+    import time
+
+    def stuck(path, tables, sender, parent_pid):
+        time.sleep(600)  # killed by the run long before
+
+    alone = _write(result, tmp_path / "alone.gpkg", monkeypatch, shared=False)
+    monkeypatch.setattr(geopackage, "_helper_writes", stuck)
+    monkeypatch.setattr(geopackage, "HELPER_PATIENCE", (0.0, 0.5))
+    started = time.monotonic()
+    shared = _write(result, tmp_path / "shared.gpkg", monkeypatch, shared=True)
+    assert time.monotonic() - started < 60
+    assert shared == alone
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["alone.gpkg", "shared.gpkg"]
+    assert not multiprocessing.active_children()
