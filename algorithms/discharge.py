@@ -630,11 +630,15 @@ def _split_gauges(names, codes, ticks, per_day, values, problem_counts, flagged,
                     np.datetime64(first, "D"), np.datetime64(last, "D"), freq="D", name="date"
                 )
                 index_of[key] = index
-            daily = np.full(last - first + 1, np.nan)
-            daily[day_number[a:b] - first] = mean[a:b]
-            marks = np.zeros(last - first + 1, bool)
-            marks[day_number[a:b] - first] = day_flagged[a:b]
-            # The arrays are this record's own: no copy (pandas 3 would copy by default).
+            if b - a == last - first + 1:  # a row for every day (sorted, one a day): slices
+                # of this function's own arrays, which no other record shares
+                daily, marks = mean[a:b], day_flagged[a:b]
+            else:  # days without a row are missing
+                daily = np.full(last - first + 1, np.nan)
+                daily[day_number[a:b] - first] = mean[a:b]
+                marks = np.zeros(last - first + 1, bool)
+                marks[day_number[a:b] - first] = day_flagged[a:b]
+            # No copy (pandas 3 would copy by default).
             flow = pd.Series(daily, index=index, name="discharge_m3s", copy=False)
             flags = pd.Series(marks, index=index, name="flagged", copy=False)
         counts_g = {k: int(v[g]) for k, v in problem_counts.items()}
