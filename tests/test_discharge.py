@@ -159,3 +159,63 @@ def test_typed_dates_in_any_unit_give_the_same_records(unit):
         pd.testing.assert_series_equal(typed[gid].flagged, text[gid].flagged)
         assert typed[gid].counts == text[gid].counts
     assert text["Q"].counts["sub_daily"] and text["D"].counts["repeated_rows"] == 2
+
+
+class _Switch:
+    """Stands in for numpy's huge-page switch: records each call, returns the old setting."""
+
+    def __init__(self, setting=True):
+        self.setting, self.calls = setting, []
+
+    def __call__(self, enabled):
+        self.calls.append(enabled)
+        old, self.setting = self.setting, enabled
+        return old
+
+
+def test_tidying_asks_for_plain_pages_and_restores_the_setting(monkeypatch):
+    from recharge_atlas.algorithms import discharge
+
+    switch = _Switch(True)
+    monkeypatch.setattr(discharge, "_HUGE_PAGE_SWITCH", switch)
+    seen = []
+    real = discharge._split_gauges
+
+    def split(*args):
+        seen.append(switch.setting)
+        return real(*args)
+
+    monkeypatch.setattr(discharge, "_split_gauges", split)
+    table = _table(gauge_id=["A", "A"], date=["2020-01-01", "2020-01-02"], discharge=[1.0, 2.0])
+    tidy_discharge(table)
+    assert seen == [False] and switch.setting is True and switch.calls == [False, True]
+    with pytest.raises(InputError):  # restored after an error too
+        tidy_discharge(table, units="furlongs")
+    with pytest.raises(InputError):
+        tidy_discharge(_table(gauge_id=["A"], date=["not a date"], discharge=[1.0]))
+    assert switch.setting is True
+
+
+def test_plain_page_blocks_that_overlap_restore_once_at_the_end(monkeypatch):
+    from recharge_atlas.algorithms import discharge
+
+    switch = _Switch(True)
+    monkeypatch.setattr(discharge, "_HUGE_PAGE_SWITCH", switch)
+    outer = discharge.plain_pages()
+    outer.__enter__()
+    with discharge.plain_pages():
+        assert switch.setting is False
+    assert switch.setting is False  # the outer block is still inside
+    outer.__exit__(None, None, None)
+    assert switch.setting is True and switch.calls == [False, True]
+    monkeypatch.setattr(discharge, "_HUGE_PAGE_SWITCH", None)  # a numpy without the switch
+    with discharge.plain_pages():
+        pass
+
+
+def test_the_huge_page_switch_is_found_on_this_numpy():
+    """Both library sets the project supports have it (numpy 1.24 and 2.x); if a future numpy
+    drops it, tidying still works and this test says why it got slower."""
+    from recharge_atlas.algorithms import discharge
+
+    assert callable(discharge._HUGE_PAGE_SWITCH)
