@@ -131,6 +131,34 @@ def test_benchmark_prints_its_ratios(tmp_path):
     assert last[0] == "io_ratio=not measured" and "not measured" in last[1]
 
 
+def test_per_gauge_benchmark_prints_its_split():
+    run = subprocess.run(
+        [
+            sys.executable,
+            str(ROOT / "benchmarks" / "per_gauge.py"),
+            "--years",
+            "1",
+            "3",
+            "--gauge-years",
+            "12",
+        ],
+        capture_output=True,
+        text=True,
+        timeout=300,
+    )
+    assert run.returncode == 0, run.stderr
+    last = run.stdout.strip().splitlines()[-2:]
+    assert [line.split("=")[0] for line in last] == ["fixed_ms", "per_year_ms"]
+    assert all(np.isfinite(float(line.split("=")[1])) for line in last)
+    refused = subprocess.run(
+        [sys.executable, str(ROOT / "benchmarks" / "per_gauge.py"), "--years", "2"],
+        capture_output=True,
+        text=True,
+        timeout=60,
+    )
+    assert refused.returncode == 2 and "two different record lengths" in refused.stderr
+
+
 @pytest.mark.parametrize("suffix, slice_rows", [(".csv", None), (".csv", 997), (".parquet", None)])
 def test_reading_in_gauge_groups_gives_identical_results(
     tmp_path, monkeypatch, sample_paths, suffix, slice_rows
