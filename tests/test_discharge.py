@@ -219,3 +219,22 @@ def test_the_huge_page_switch_is_found_on_this_numpy():
     from recharge_atlas.algorithms import discharge
 
     assert callable(discharge._HUGE_PAGE_SWITCH)
+
+
+def test_missing_value_codes_are_found_as_numpy_isin_finds_them():
+    """The shortcut compares only rows beyond the code nearest zero; it must agree with
+    ``np.isin`` everywhere, signed zeros, infinities, NaN and near misses included."""
+    from recharge_atlas.algorithms.discharge import (
+        MISSING_VALUE_CODES,
+        POSITIVE_MISSING_VALUE_CODES,
+        _among,
+    )
+
+    rng = np.random.default_rng(7)
+    edges = [0.0, -0.0, np.nan, np.inf, -np.inf, -9.0000001, 998.9999, 1e300, -1e300, -8.9]
+    pool = np.array(list(MISSING_VALUE_CODES) + list(POSITIVE_MISSING_VALUE_CODES) + edges)
+    for _ in range(100):
+        n = int(rng.integers(0, 200))
+        values = np.where(rng.random(n) < 0.5, rng.choice(pool, n), rng.normal(0, 1e4, n))
+        for codes in (MISSING_VALUE_CODES, POSITIVE_MISSING_VALUE_CODES):
+            assert np.array_equal(_among(values, codes), np.isin(values, codes))
