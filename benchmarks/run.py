@@ -17,7 +17,8 @@ and in fresh processes:
 
 * end to end: the discharge table as Parquet on disk to the GeoPackage, through the command
   line's own path with ``--workers``, its time and its peak memory (the table read whole; the
-  faster of two processes, and the higher of their peaks);
+  faster of two processes, and the higher of their peaks), and that run's time in reading,
+  tidying, computation and writing (``end_to_end_steps``);
 * the I/O floor: reading that Parquet table into arrays (pyarrow), plus writing the run's
   layer and tables to a fresh GeoPackage with the simplest correct bulk insert (pyogrio with
   Arrow), each the best of four (two in each of two processes);
@@ -174,6 +175,7 @@ def measure_end_to_end(folder, parquet, workers):
     from recharge_atlas.cli import run_files
 
     files.read_layer(Path(folder) / "gauges.gpkg", "gauges")  # loads the layer readers
+    steps = _time_steps()
     baseline = _rss_bytes()
     _reset_peak()
     start = time.perf_counter()
@@ -186,7 +188,40 @@ def measure_end_to_end(folder, parquet, workers):
         gauges_per_group=0,
     )
     seconds = time.perf_counter() - start
-    return {"seconds": seconds, "peak": max(_peak_rss_bytes(), baseline) - baseline}
+    steps["the rest"] = seconds - sum(steps.values())
+    peak = max(_peak_rss_bytes(), baseline) - baseline
+    return {"seconds": seconds, "peak": peak, "steps": steps}
+
+
+#: The end-to-end run's steps that are timed: (module, function, step).
+STEPS = (
+    ("files", "read_table", "reading"),
+    ("inputs", "tidy_discharge", "tidying"),
+    ("groups", "compute_gauges", "computation"),
+    ("files", "write_geopackage", "writing"),
+)
+
+
+def _time_steps():
+    """Wrap the functions of :data:`STEPS` so each adds its time to the dict returned."""
+    import functools
+    import importlib
+
+    steps = {step: 0.0 for _, _, step in STEPS}
+    for module_name, name, step in STEPS:
+        module = importlib.import_module(f"recharge_atlas.algorithms.{module_name}")
+        function = getattr(module, name)
+
+        @functools.wraps(function)
+        def timed(*args, _function=function, _step=step, **kwargs):
+            start = time.perf_counter()
+            try:
+                return _function(*args, **kwargs)
+            finally:
+                steps[_step] += time.perf_counter() - start
+
+        setattr(module, name, timed)
+    return steps
 
 
 def measure_io_floor(folder, parquet):
@@ -381,7 +416,8 @@ def main(argv=None):
             # Best of two fresh processes each (this machine's speed wanders; the floor's own
             # read by as much as 0.35 to 0.85 s, with the memory the system hands back).
             runs = [_child("--measure-end-to-end", folder, parquet, args.workers) for _ in range(2)]
-            e2e = {"seconds": min(r["seconds"] for r in runs), "peak": max(r["peak"] for r in runs)}
+            faster = min(runs, key=lambda r: r["seconds"])
+            e2e = {**faster, "peak": max(r["peak"] for r in runs)}
             floors = [_child("--measure-io-floor", folder, parquet) for _ in range(2)]
             floor = {k: min(f[k] for f in floors) for k in ("read", "write")}
         qgis = None if args.skip_qgis else qgis_ratio(folder)
@@ -405,6 +441,11 @@ def main(argv=None):
         print(
             f"end_to_end_seconds={e2e['seconds']:.2f} (Parquet on disk to GeoPackage, table read "
             f"whole, {args.workers} workers): {gauge_years / e2e['seconds']:,.0f} gauge-years/s"
+        )
+        print(
+            "end_to_end_steps: "
+            + ", ".join(f"{step} {t:.2f} s" for step, t in e2e["steps"].items())
+            + " (the faster run; the rest: linking, stacking, the layer, the checks)"
         )
         print(
             f"io_floor_seconds={io:.2f} (read the Parquet into arrays {floor['read']:.2f} s, "

@@ -101,24 +101,20 @@ def test_progress_line_only_on_a_terminal(monkeypatch):
     assert piped.getvalue() == ""
 
 
-def test_benchmark_prints_its_ratios(tmp_path):
-    run = subprocess.run(
-        [
-            sys.executable,
-            str(ROOT / "benchmarks" / "run.py"),
-            "--gauges",
-            "6",
-            "--years",
-            "3",
-            "--skip-end-to-end",
-            "--skip-qgis",
-            "--gaps-per-year",
-            "4",
-        ],
+def _benchmark(script, *args, timeout=300):
+    return subprocess.run(
+        [sys.executable, str(ROOT / "benchmarks" / script), *map(str, args)],
         capture_output=True,
         text=True,
-        timeout=300,
+        timeout=timeout,
     )
+
+
+def test_benchmark_prints_its_ratios(tmp_path):
+    run = _benchmark(
+        "run.py", "--gauges", 6, "--years", 3, "--skip-end-to-end", "--skip-qgis",
+        "--gaps-per-year", 4,
+    )  # fmt: skip
     assert run.returncode == 0, run.stderr
     last = run.stdout.strip().splitlines()[-4:]
     # Issue 17: the figures users wait for; the log10 floor (limit_ratio) is retired.
@@ -131,31 +127,26 @@ def test_benchmark_prints_its_ratios(tmp_path):
     assert last[0] == "io_ratio=not measured" and "not measured" in last[1]
 
 
+def test_benchmark_times_the_steps_of_its_end_to_end_run():
+    pytest.importorskip("pyarrow")
+    pytest.importorskip("pyogrio")
+    run = _benchmark("run.py", "--gauges", 6, "--years", 3, "--skip-qgis", "--repeat", 1)
+    assert run.returncode == 0, run.stderr
+    (steps,) = [line for line in run.stdout.splitlines() if line.startswith("end_to_end_steps:")]
+    named = [
+        part.strip().rsplit(" ", 2)[0] for part in steps.split(":", 1)[1].split("(")[0].split(",")
+    ]
+    assert named == ["reading", "tidying", "computation", "writing", "the rest"]
+    assert float(run.stdout.split("io_ratio=")[1].split()[0]) > 0
+
+
 def test_per_gauge_benchmark_prints_its_split():
-    run = subprocess.run(
-        [
-            sys.executable,
-            str(ROOT / "benchmarks" / "per_gauge.py"),
-            "--years",
-            "1",
-            "3",
-            "--gauge-years",
-            "12",
-        ],
-        capture_output=True,
-        text=True,
-        timeout=300,
-    )
+    run = _benchmark("per_gauge.py", "--years", 1, 3, "--gauge-years", 12)
     assert run.returncode == 0, run.stderr
     last = run.stdout.strip().splitlines()[-2:]
     assert [line.split("=")[0] for line in last] == ["fixed_ms", "per_year_ms"]
     assert all(np.isfinite(float(line.split("=")[1])) for line in last)
-    refused = subprocess.run(
-        [sys.executable, str(ROOT / "benchmarks" / "per_gauge.py"), "--years", "2"],
-        capture_output=True,
-        text=True,
-        timeout=60,
-    )
+    refused = _benchmark("per_gauge.py", "--years", 2, timeout=60)
     assert refused.returncode == 2 and "two different record lengths" in refused.stderr
 
 
