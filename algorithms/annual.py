@@ -210,6 +210,28 @@ def _mm(volume_m3, area_km2):
     return np.asarray(volume_m3, dtype=float) / (area_km2 * 1e3)
 
 
+class _EventYears:
+    """The slot (water year from ``first_year``) of each event's peak, for a table with
+    ``peak_date``: worked out once per peak-date array. The events, the same events at both
+    ends of K's interval and their reading errors share one such array."""
+
+    def __init__(self, start_month, first_year):
+        self.start_month, self.first_year = start_month, first_year
+        self.known = []  # (peak dates as given, their slots): compared by identity
+
+    def __call__(self, table):
+        if table is None or not len(table):
+            return np.empty(0, np.intp)
+        peaks = table["peak_date"]
+        for given, slots in self.known:
+            if given is peaks:
+                return slots
+        days = np.asarray(peaks).astype("datetime64[D]")
+        slots = (_water_year_of_days(days, self.start_month) - self.first_year).astype(np.intp)
+        self.known.append((peaks, slots))
+        return slots
+
+
 def _event_sums(events, slot_of_event, n_slots):
     """Per slot: the sum of measured event volumes, the events, and the skipped events."""
     if events is None or not len(events):
@@ -308,12 +330,7 @@ def mean_recharge_band(
     water_years = np.asarray(annual["water_year"], dtype=np.int64)
     n = water_years.size
 
-    def slots(table):
-        if table is None or not len(table):
-            return np.empty(0, np.intp)
-        peaks = np.asarray(table["peak_date"]).astype("datetime64[D]")
-        return (_water_year_of_days(peaks, start_month) - water_years[0]).astype(np.intp)
-
+    slots = _EventYears(start_month, water_years[0])
     recharge = np.asarray(annual["recharge_m3"], dtype=float)
     keep = np.asarray(annual[years], dtype=bool) & np.isfinite(recharge)
     if not keep.any():
@@ -442,12 +459,7 @@ def annual_columns(
     flow_m3 = _per_slot(slot, np.where(has_value, q, 0.0) * seconds, n)
     unusable = _unusable_days(q, has_value, flagged, slot, n)
 
-    def event_slots(table):
-        if table is None or not len(table):
-            return np.empty(0, np.intp)
-        peaks = np.asarray(table["peak_date"]).astype("datetime64[D]")
-        return (_water_year_of_days(peaks, start_month) - first_year).astype(np.intp)
-
+    event_slots = _EventYears(start_month, first_year)
     recharge, n_events, skipped = _event_sums(events, event_slots(events), n)
     low = high = None
     if events_low is not None and len(events_low) and events_high is not None and len(events_high):
