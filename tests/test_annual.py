@@ -113,3 +113,21 @@ def test_baseflow_index_by_water_year_counts_days_with_both(gaps):
         ok = np.isfinite(q[start : start + 365]) & np.isfinite(b[start : start + 365])
         expected = b[start : start + 365][ok].sum() / q[start : start + 365][ok].sum()
         assert table["baseflow_index"][i] == pytest.approx(expected, rel=1e-12)
+
+
+def test_event_years_are_shared_only_by_the_same_peak_dates():
+    """The water year of each peak is worked out once per peak-date array: tables sharing
+    the array share it, a different array (even an equal one) gets its own."""
+    from recharge_atlas.algorithms.annual import _EventYears
+
+    peaks = np.array(["2001-09-30", "2001-10-01", "2003-02-01"], dtype="datetime64[D]")
+    years = _EventYears(10, 2001)
+    first = years({"peak_date": peaks})
+    assert first.tolist() == [0, 1, 2]  # water years 2001, 2002, 2003 (October start)
+    assert years({"peak_date": peaks}) is first  # the same array: the same slots
+    other = years({"peak_date": peaks.copy()})
+    assert other is not first and other.tolist() == first.tolist()
+    moved = years({"peak_date": peaks + np.timedelta64(365, "D")})
+    assert moved.tolist() == [1, 2, 3]
+    frame = pd.DataFrame({"peak_date": peaks})  # a new Series at each look: computed afresh
+    assert years(frame).tolist() == [0, 1, 2] and years(None).size == 0
