@@ -17,8 +17,10 @@ and in fresh processes:
 
 * end to end: the discharge table as Parquet on disk to the GeoPackage, through the command
   line's own path with ``--workers``, its time and its peak memory (the table read whole; the
-  faster of two processes, and the higher of their peaks), and that run's time in reading,
-  tidying, computation and writing (``end_to_end_steps``);
+  faster of two processes, and the higher of their peaks), that run's time in reading,
+  tidying, computation and writing (``end_to_end_steps``), and the processor time its
+  processes used (``end_to_end_cpu``): divided by the cores, the least wall time that amount
+  of work could take, however well its steps overlapped;
 * the I/O floor: reading that Parquet table into arrays (pyarrow), plus writing the run's
   layer and tables to a fresh GeoPackage with the simplest correct bulk insert (pyogrio with
   Arrow), each the best of four (two in each of two processes);
@@ -69,6 +71,22 @@ def _peak_rss_bytes():
             if line.startswith("VmHWM:"):
                 return int(line.split()[1]) * 1024
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024  # kB on Linux
+
+
+def _cpu_seconds():
+    """Processor time (user and system) of this process and of its finished child processes
+    (the workers and the second writer, once the run has joined them)."""
+    own = resource.getrusage(resource.RUSAGE_SELF)
+    children = resource.getrusage(resource.RUSAGE_CHILDREN)
+    return own.ru_utime + own.ru_stime, children.ru_utime + children.ru_stime
+
+
+def _cores():
+    """The cores this process may run on (fewer than the machine's where it is limited)."""
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:  # not on Linux
+        return os.cpu_count() or 1
 
 
 def _reset_peak():
@@ -178,6 +196,7 @@ def measure_end_to_end(folder, parquet, workers):
     steps = _time_steps()
     baseline = _rss_bytes()
     _reset_peak()
+    own_before, children_before = _cpu_seconds()
     start = time.perf_counter()
     run_files(
         Path(folder) / "gauges.gpkg",
@@ -188,9 +207,11 @@ def measure_end_to_end(folder, parquet, workers):
         gauges_per_group=0,
     )
     seconds = time.perf_counter() - start
+    own_after, children_after = _cpu_seconds()
     steps["the rest"] = seconds - sum(steps.values())
     peak = max(_peak_rss_bytes(), baseline) - baseline
-    return {"seconds": seconds, "peak": peak, "steps": steps}
+    cpu = {"this process": own_after - own_before, "others": children_after - children_before}
+    return {"seconds": seconds, "peak": peak, "steps": steps, "cpu": cpu}
 
 
 #: The end-to-end run's steps that are timed: (module, function, step).
@@ -446,6 +467,13 @@ def main(argv=None):
             "end_to_end_steps: "
             + ", ".join(f"{step} {t:.2f} s" for step, t in e2e["steps"].items())
             + " (the faster run; the rest: linking, stacking, the layer, the checks)"
+        )
+        cpu, cores = e2e["cpu"], _cores()
+        print(
+            f"end_to_end_cpu: this process {cpu['this process']:.2f} s, the worker and writer "
+            f"processes {cpu['others']:.2f} s (the faster run); on {cores} cores that work "
+            f"takes at least {sum(cpu.values()) / cores:.2f} s however well its steps overlap, "
+            f"so io_ratio {sum(cpu.values()) / cores / io:.2f} or more"
         )
         print(
             f"io_floor_seconds={io:.2f} (read the Parquet into arrays {floor['read']:.2f} s, "

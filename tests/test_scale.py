@@ -137,6 +137,12 @@ def test_benchmark_times_the_steps_of_its_end_to_end_run():
         part.strip().rsplit(" ", 2)[0] for part in steps.split(":", 1)[1].split("(")[0].split(",")
     ]
     assert named == ["reading", "tidying", "computation", "writing", "the rest"]
+    # The processor time of the run's processes, and the least wall time it allows.
+    (cpu,) = [line for line in run.stdout.splitlines() if line.startswith("end_to_end_cpu:")]
+    seconds = [float(word) for word in cpu.replace(",", " ").split() if word[:1].isdigit()]
+    this, others, cores, least, least_ratio = seconds[:5]
+    assert this > 0 and others > 0 and cores >= 1
+    assert least == pytest.approx((this + others) / cores, abs=0.011)
     assert float(run.stdout.split("io_ratio=")[1].split()[0]) > 0
 
 
