@@ -469,11 +469,12 @@ def main(argv=None):
             + " (the faster run; the rest: linking, stacking, the layer, the checks)"
         )
         cpu, cores = e2e["cpu"], _cores()
+        least = sum(cpu.values()) / cores
         print(
             f"end_to_end_cpu: this process {cpu['this process']:.2f} s, the worker and writer "
             f"processes {cpu['others']:.2f} s (the faster run); on {cores} cores that work "
-            f"takes at least {sum(cpu.values()) / cores:.2f} s however well its steps overlap, "
-            f"so io_ratio {sum(cpu.values()) / cores / io:.2f} or more"
+            f"takes at least {least:.2f} s however well its steps overlap, "
+            f"so io_ratio {least / io:.2f} or more"
         )
         print(
             f"io_floor_seconds={io:.2f} (read the Parquet into arrays {floor['read']:.2f} s, "

@@ -143,6 +143,7 @@ def test_benchmark_times_the_steps_of_its_end_to_end_run():
     this, others, cores, least, least_ratio = seconds[:5]
     assert this > 0 and others > 0 and cores >= 1
     assert least == pytest.approx((this + others) / cores, abs=0.011)
+    assert least_ratio > 0
     assert float(run.stdout.split("io_ratio=")[1].split()[0]) > 0
 
 
